@@ -302,3 +302,30 @@ pub fn run(random_points: usize, seed: u64, progress: &(dyn Fn(usize, usize) + S
         seed,
     }
 }
+
+/// The text report of a sweep.
+#[must_use]
+pub fn render_text(r: &Report) -> String {
+    use std::fmt::Write as _;
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "model agreement over {} stages (seed {}): {} evaluated, {} refused by every model",
+        r.cases, r.seed, r.evaluated, r.refused
+    );
+    for (name, b) in [("fixed point", &r.fixed), ("f32", &r.f32)] {
+        let _ = writeln!(out, "\n  {name} against the f64 reference");
+        let _ = writeln!(out, "    {:<16} {:>14} {:>14} {:>10}", "", "max (ppm)", "99.9 % (ppm)", "points");
+        for (label, s) in [("hold", &b.hold), ("turn-on latency", &b.on_latency), ("inverse C", &b.inverse_c)] {
+            let _ =
+                writeln!(out, "    {:<16} {:>14.6} {:>14.6} {:>10}", label, s.max_rel_ppm, s.p999_rel_ppm, s.points);
+        }
+        let _ = writeln!(
+            out,
+            "    refusals that differ from the reference: {}; inverses refused as ill-conditioned: {}",
+            b.verdict_mismatches, b.inverse_ill_conditioned
+        );
+    }
+    let _ = writeln!(out, "\n  worst fixed-point hold at: {}", r.fixed.hold.worst_case);
+    out
+}

@@ -3,5 +3,7 @@
 //! reports behind the `rchold` command.
 
 pub mod agree;
+pub mod eval;
 pub mod reference;
+pub mod stagefile;
 pub mod values;

@@ -67,6 +67,9 @@ pub struct InputPreset {
     pub provenance: Provenance,
     /// Supply range it is defined for, in mV.
     pub vdd_mv: (u32, u32),
+    /// Output current a pin of the family is commonly rated for, in mA
+    /// (absolute maximum; **from memory**, varies by maker — check the part).
+    pub output_limit_ma: u32,
     levels: Levels,
 }
 
@@ -77,6 +80,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "JEDEC JESD7A high-speed CMOS",
         provenance: Provenance::Published,
         vdd_mv: (2_000, 6_000),
+        output_limit_ma: 25,
         levels: Levels::Table(&[(2_000, 500, 1_500), (4_500, 1_350, 3_150), (6_000, 1_800, 4_200)]),
     },
     InputPreset {
@@ -84,6 +88,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "JEDEC JESD13-B metal-gate CMOS",
         provenance: Provenance::Published,
         vdd_mv: (3_000, 18_000),
+        output_limit_ma: 10,
         levels: Levels::Table(&[(5_000, 1_500, 3_500), (10_000, 3_000, 7_000), (15_000, 4_000, 11_000)]),
     },
     InputPreset {
@@ -91,6 +96,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "JEDEC JESD8C LVCMOS 3.3 V",
         provenance: Provenance::Published,
         vdd_mv: (3_000, 3_600),
+        output_limit_ma: 24,
         levels: Levels::Table(&[(3_000, 800, 2_000), (3_600, 800, 2_000)]),
     },
     InputPreset {
@@ -98,6 +104,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "JEDEC JESD8-5 LVCMOS 2.5 V",
         provenance: Provenance::Published,
         vdd_mv: (2_300, 2_700),
+        output_limit_ma: 12,
         levels: Levels::Table(&[(2_300, 700, 1_700), (2_700, 700, 1_700)]),
     },
     InputPreset {
@@ -105,6 +112,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "JEDEC JESD8-7 LVCMOS 1.8 V (0.35/0.65 of the supply)",
         provenance: Provenance::Published,
         vdd_mv: (1_650, 1_950),
+        output_limit_ma: 8,
         levels: Levels::Table(&[(1_650, 578, 1_073), (1_950, 683, 1_268)]),
     },
     InputPreset {
@@ -112,6 +120,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "Schmitt input of the high-speed CMOS family (inside JESD7A limits)",
         provenance: Provenance::FromMemory,
         vdd_mv: (2_000, 6_000),
+        output_limit_ma: 25,
         levels: Levels::Schmitt([520_000, 580_000, 700_000], [300_000, 420_000, 480_000]),
     },
     InputPreset {
@@ -119,6 +128,7 @@ pub const PRESETS: &[InputPreset] = &[
         standard: "Schmitt input of the metal-gate CMOS family (inside JESD13-B limits)",
         provenance: Provenance::FromMemory,
         vdd_mv: (3_000, 18_000),
+        output_limit_ma: 10,
         levels: Levels::Schmitt([520_000, 600_000, 700_000], [300_000, 400_000, 480_000]),
     },
 ];
