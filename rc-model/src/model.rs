@@ -641,7 +641,13 @@ impl Derived {
     /// ln of the discharge ratio for a capacitor voltage `v_c0` at release (Q62).
     fn hold_ln(&self, v_c0: i128) -> Result<i128, Error> {
         let lk = ir(self.i_lk, self.r_eff)?;
-        let ln = arith(ln_ratio_q62(pos(v_c0 + lk)?, pos(self.fall + lk)?))?
+        let (start, end) = (v_c0 + lk, self.fall + lk);
+        // Also catches a capacitor that a very short press left at (a rounding
+        // error around) zero volts.
+        if start <= end {
+            return Err(Error::NoHold);
+        }
+        let ln = arith(ln_ratio_q62(pos(start)?, pos(end)?))?
             - if self.rs == 0 { 0 } else { arith(ln_ratio_q62(self.r_eff + self.rs, self.r_eff))? };
         if ln <= 0 {
             return Err(Error::NoHold);
