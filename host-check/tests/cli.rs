@@ -1,0 +1,173 @@
+//! The real `rchold` binary, run in a temporary directory.
+
+use std::path::Path;
+use std::process::{Command, Output};
+
+const GOOD: &str = r#"name = "Test stage"
+[stage]
+r = "1M"
+c = "1u"
+vdd = "5"
+driver_ohms = "50"
+charge_ohms = "100"
+series_ohms = "0"
+leak_ohms = "inf"
+diode = { drop = "0.6" }
+
+[input]
+family = "hc-schmitt"
+
+[press]
+duration = "100m"
+
+[tolerance]
+r = "1%"
+c = "10%"
+"#;
+
+fn run(dir: &Path, args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_rchold"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .unwrap_or_else(|e| panic!("cannot run rchold: {e}"))
+}
+
+fn write(dir: &Path, name: &str, text: &str) {
+    std::fs::write(dir.join(name), text).unwrap_or_else(|e| panic!("{e}"));
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+#[test]
+fn eval_prints_timing_window_findings_and_caution() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(dir.path(), &["eval", "stage.toml"]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}{}", text(&out.stderr));
+    // Schmitt typ thresholds 2.9 / 2.1 V, node 4.4·1M/(1M+150) V: hold = τ·ln(4.39934/2.1) = 0.739517 s;
+    // window r ±1 %, c ±10 %, fall band 1.5 – 2.4 V: 0.891·ln(4.39934/2.4) = 0.539933 s,
+    // 1.111·ln(4.39934/1.5) = 1.195424 s; latency 150 µs·ln(4.39934/1.49934) = 161.45 µs;
+    // peak charge current 4.4 V / 150 Ω = 29.3 mA (math).
+    for want in [
+        "hold stage stage.toml \u{b7} Test stage",
+        "hold after release ............ 739.5 ms",
+        "active for a 100.0 ms press ... 839.4 ms",
+        "turn-on latency ............... 161.4 µs",
+        "turn-on latency",
+        "window over 16 corners ........ 539.9 ms to 1.195 s",
+        "shortest at r- c- rise- fall+",
+        "longest at  r+ c+ rise- fall-",
+        "findings",
+        "drive-current \u{2014} the press starts by pulling 29.33 mA from the driver",
+        "note: timing only",
+    ] {
+        assert!(stdout.contains(want), "missing {want:?} in:\n{stdout}");
+    }
+}
+
+#[test]
+fn eval_json_has_the_documented_keys() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(dir.path(), &["eval", "stage.toml", "--json"]);
+    assert_eq!(out.status.code(), Some(0));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}"));
+    for key in ["hold_s", "on_latency_s", "active_s", "node_at_release_v"] {
+        assert!(v[key].is_number(), "{key}: {v}");
+    }
+    let hold = v["hold_s"].as_f64().unwrap_or(0.0);
+    assert!((hold - 0.739_517).abs() < 1e-6, "{hold}");
+    assert!(v["window"]["min_s"].as_f64().unwrap_or(1.0) < hold);
+    assert!(v["window"]["max_s"].as_f64().unwrap_or(0.0) > hold);
+    let w = v["warnings"].as_array().cloned().unwrap_or_default();
+    assert!(w.iter().all(|w| w["code"].is_string() && w["message"].is_string()));
+}
+
+fn bad(dir: &Path, body: &str) -> (Option<i32>, String) {
+    write(dir, "bad.toml", body);
+    let out = run(dir, &["eval", "bad.toml"]);
+    assert!(out.stdout.is_empty(), "no report on bad input");
+    (out.status.code(), text(&out.stderr))
+}
+
+#[test]
+fn bad_input_gets_one_line_naming_file_line_key_and_range() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let cases = [
+        (GOOD.replace("r = \"1M\"", "r = \"4x7\""), "bad.toml:3: stage.r: cannot read \"4x7\""),
+        (
+            GOOD.replace("r = \"1M\"", "r = \"470M\""),
+            "bad.toml:3: stage.r: 470000000 is outside the accepted range (1 kΩ to 100 MΩ)",
+        ),
+        (
+            GOOD.replace("vdd = \"5\"", "vdd = \"24\""),
+            "bad.toml:5: stage.vdd: 24 is outside the accepted range (1.6 V to 18 V)",
+        ),
+        (GOOD.replace("family = \"hc-schmitt\"", "family = \"hc\"\nrise = 0.5"), "bad.toml: input: give either family"),
+        (GOOD.replace("family = \"hc-schmitt\"", "family = \"ttl\""), "bad.toml:13: input.family: unknown family"),
+        (
+            GOOD.replace("c = \"10%\"", "c = \"150%\""),
+            "bad.toml:20: tolerance.c: 150% is outside the accepted range (0 % to 100 % of nominal)",
+        ),
+        (
+            GOOD.replace("leak_ohms = \"inf\"", "leak_ohms = \"inf\"\ncolour = \"red\""),
+            "bad.toml:10: unknown field `colour`",
+        ),
+        (GOOD.replace("duration = \"100m\"\n", ""), "bad.toml"),
+        (
+            GOOD.replace("vdd = \"5\"", "vdd = \"12\""),
+            "bad.toml:13: input.family: hc-schmitt is defined for supplies of 2 V to 6 V, not 12 V",
+        ),
+    ];
+    for (body, want) in cases {
+        let (code, stderr) = bad(dir.path(), &body);
+        assert_eq!(code, Some(2), "{stderr}");
+        assert_eq!(stderr.lines().count(), 1, "one line: {stderr}");
+        assert!(stderr.contains(want), "want {want:?}, got {stderr}");
+    }
+    let out = run(dir.path(), &["eval", "missing.toml"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(text(&out.stderr).starts_with("rchold: missing.toml: cannot read the file"));
+}
+
+#[test]
+fn a_stage_that_never_activates_exits_1_with_a_finding() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    // 2.4 V supply, 1.7 V drop: the node tops out at 0.7 V, below the 1.39 V rising threshold.
+    let body = GOOD
+        .replace("vdd = \"5\"", "vdd = \"2.4\"")
+        .replace("diode = { drop = \"0.6\" }", "diode = { drop = \"1.7\" }");
+    write(dir.path(), "flat.toml", &body);
+    let out = run(dir.path(), &["eval", "flat.toml"]);
+    assert_eq!(out.status.code(), Some(1));
+    let stdout = text(&out.stdout);
+    assert!(stdout.contains("never-activates"), "{stdout}");
+    assert!(stdout.contains("the stage does not work as a hold stage"), "{stdout}");
+}
+
+#[test]
+fn agree_reports_and_fails_above_a_bound() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let out = run(dir.path(), &["agree", "--points", "200", "--json", "--fail-above", "0.1"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}"));
+    assert!(v["fixed"]["hold"]["max_rel_ppm"].as_f64().unwrap_or(1.0) < 0.1);
+    assert!(v["fixed"]["inverse_c"]["max_rel_ppm"].as_f64().is_some());
+    assert!(v["f32"]["hold"]["max_rel_ppm"].as_f64().is_some());
+    assert!(v["cases"].as_u64().unwrap_or(0) > 200);
+    // An impossible bound makes the same sweep fail.
+    let out = run(dir.path(), &["agree", "--points", "200", "--fail-above", "0"]);
+    assert_eq!(out.status.code(), Some(1));
+    assert!(text(&out.stdout).contains("model agreement over"));
+}
+
+#[test]
+fn usage_errors_exit_2() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(run(dir.path(), &["frobnicate"]).status.code(), Some(2));
+    assert_eq!(run(dir.path(), &["--help"]).status.code(), Some(0));
+}
