@@ -287,7 +287,7 @@ pub fn run(random_points: usize, seed: u64, progress: &(dyn Fn(usize, usize) + S
         .map(|s| {
             let r = compare_point(s);
             let n = done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
-            if n % 10_000 == 0 {
+            if n.is_multiple_of(10_000) {
                 progress(n, total);
             }
             r

@@ -27,6 +27,9 @@ enum Command {
         /// Print JSON instead of the text report.
         #[arg(long)]
         json: bool,
+        /// Also write the stage as a SPICE netlist (ngspice batch mode: `ngspice -b FILE`).
+        #[arg(long, value_name = "FILE")]
+        netlist: Option<PathBuf>,
     },
     /// Sweep the whole supported domain and report how far the fixed-point and f32 models stray from the f64 reference.
     Agree {
@@ -91,8 +94,13 @@ fn emit(text: &str) -> anyhow::Result<()> {
 
 fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
-        Command::Eval { stage, json } => {
+        Command::Eval { stage, json, netlist } => {
             let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
+            if let Some(out) = &netlist {
+                let title = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
+                let text = host_check::netlist::single_press(&sf.stage, &title).text;
+                std::fs::write(out, text).with_context(|| format!("writing the netlist to {}", out.display()))?;
+            }
             let report = eval::evaluate(&sf);
             if let Err(rc_model::Error::OutOfDomain(_)) = report.nominal {
                 if let Err(e) = report.nominal {

@@ -218,7 +218,7 @@ impl Ctx<'_> {
                 return Err(self.err(Some(v.span().start), key, "expected a number or a value string such as \"4.7k\""))
             }
         };
-        if !(x >= lo && x <= hi) {
+        if x.is_nan() || x < lo || x > hi {
             return Err(self.err(Some(v.span().start), key, format!("{x} is outside the accepted range ({range})")));
         }
         Ok(x)

@@ -107,7 +107,7 @@ pub fn parse_tolerance(text: &str, unit: &[&str]) -> Result<Tol, ValueError> {
         Tol::Absolute(parse_value(t, unit)?)
     };
     match tol {
-        Tol::Relative(v) | Tol::Absolute(v) if !(v >= 0.0) => {
+        Tol::Relative(v) | Tol::Absolute(v) if v.is_nan() || v < 0.0 => {
             Err(ValueError { text: text.to_string(), reason: "a tolerance is a size, not negative" })
         }
         _ => Ok(tol),

@@ -171,3 +171,25 @@ fn usage_errors_exit_2() {
     assert_eq!(run(dir.path(), &["frobnicate"]).status.code(), Some(2));
     assert_eq!(run(dir.path(), &["--help"]).status.code(), Some(0));
 }
+
+#[test]
+fn eval_writes_a_netlist_the_simulator_reads() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(dir.path(), &["eval", "stage.toml", "--netlist", "stage.cir"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let net = std::fs::read_to_string(dir.path().join("stage.cir")).unwrap_or_default();
+    assert!(net.starts_with("* rchold hold stage: Test stage"), "{net}");
+    for want in [
+        "RO drv d1 5.000000000e1",
+        "RCH d2 a 1.000000000e2",
+        "R1 a 0 1.000000000e6",
+        "C1 a 0 1.000000000e-6 IC=0",
+        ".meas tran t_fall",
+    ] {
+        assert!(net.contains(want), "missing {want:?} in:\n{net}");
+    }
+    let bad = run(dir.path(), &["eval", "stage.toml", "--netlist", "no/such/dir/x.cir"]);
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(text(&bad.stderr).contains("writing the netlist to no/such/dir/x.cir"));
+}

@@ -75,7 +75,7 @@ pub struct Model {
 }
 
 fn span(seconds: f32) -> Result<Span, Error> {
-    if !(seconds >= 0.0) || !seconds.is_finite() {
+    if seconds.is_nan() || seconds < 0.0 || !seconds.is_finite() {
         return Err(Error::Arithmetic);
     }
     // f32 → u128 via u64 ns and a 32-bit fraction; saturates only above 2^64 ns,
@@ -329,7 +329,7 @@ impl Model {
             m.c = c * 1.001;
             let e = (seconds(&m)? / h - 1.0) / 0.001;
             m.c = c;
-            if !(e >= 0.125) {
+            if e.is_nan() || e < 0.125 {
                 return Err(Error::IllConditioned);
             }
             let next = c * (1.0 + (target / h - 1.0) / e);
@@ -340,7 +340,7 @@ impl Model {
             }
         }
         let c_ff = m.c * 1e15;
-        if !(c_ff >= limits::C_FF.0 as f32 && c_ff <= limits::C_FF.1 as f32) {
+        if c_ff.is_nan() || c_ff < limits::C_FF.0 as f32 || c_ff > limits::C_FF.1 as f32 {
             return Err(Error::OutOfDomain(Quantity::C));
         }
         Ok(InverseC { c_ff_q32: (f64::from(c_ff) * 4_294_967_296.0) as u128, nominal_ff: self.stage.c_ff })

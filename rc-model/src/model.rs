@@ -296,6 +296,26 @@ impl Model {
         })
     }
 
+    /// Capacitor voltage `elapsed` after a release that left it at
+    /// `cap_at_release` (driver low, the node discharging through R, the
+    /// leakage and Rs): `V_C(t) = (V_C0 + R_eff·I_lk)·e^(−t/τd) − R_eff·I_lk`.
+    /// A retrigger at that instant is [`Model::evaluate_from`] this voltage.
+    ///
+    /// The result can fall below zero when a constant leakage current
+    /// outlasts the charge; a real node is clamped there by the input's
+    /// protection diode, which the model does not include.
+    ///
+    /// # Errors
+    /// [`Error::Arithmetic`] (not reached inside the domain).
+    pub fn cap_after(&self, cap_at_release: Voltage, elapsed: Span) -> Result<Voltage, Error> {
+        let q = &self.q;
+        let lk = ir(q.i_lk, q.r_eff)?;
+        let tau_d = arith(mul_div(q.r_eff + q.rs, q.c, RC_SCALE))?;
+        let x = arith(mul_div(elapsed.ns_q32(), ONE_Q62 as u128, tau_d))?;
+        let decayed = arith(mul_div_signed(cap_at_release.uv_q32() + lk, pos_i(exp_neg_q62(x))?, ONE_Q62))?;
+        Ok(Voltage::from_uv_q32(decayed - lk))
+    }
+
     /// The capacitance that explains a measured hold, all else as in the stage.
     ///
     /// Newton's method on `ln hold` against `ln C`, with the slope (the hold's

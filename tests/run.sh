@@ -1,0 +1,32 @@
+#!/usr/bin/env bash
+# Every test and check of the workspace. Works on a fresh machine (installs
+# what it needs through tests/setup.sh).
+set -euo pipefail
+cd "$(dirname "$0")/.."
+export CARGO_TERM_COLOR=never
+step() { printf '\n== %s\n' "$*"; }
+
+step "setup"
+bash tests/setup.sh
+
+step "format"
+cargo fmt --all -- --check
+
+step "lints"
+cargo clippy --workspace --all-targets --all-features -- -D warnings
+
+step "docs"
+RUSTDOCFLAGS="-D warnings" cargo doc -q --workspace --no-deps
+
+step "tests"
+cargo test --workspace
+
+step "cross builds of the no_std crates"
+cargo build -q -p rc-model --release --target thumbv6m-none-eabi
+cargo build -q -p rc-model --release --target thumbv7em-none-eabihf --features f32,defmt
+cargo build -q -p rc-model --release --target thumbv7em-none-eabihf --features f32-micromath
+
+step "no soft float on the FPU-less target"
+bash tests/no-soft-float.sh
+
+printf '\nall checks passed\n'

@@ -1,0 +1,24 @@
+#!/usr/bin/env bash
+# Installs what the test suite needs on a fresh Debian machine with rustup.
+# Idempotent: each step is skipped when its piece is already there.
+set -euo pipefail
+
+have_target() { rustup target list --installed | grep -qx "$1"; }
+for t in thumbv6m-none-eabi thumbv7em-none-eabihf; do
+    have_target "$t" || rustup target add "$t"
+done
+rustup component list --installed | grep -q '^llvm-tools' || rustup component add llvm-tools
+rustup component list --installed | grep -q '^clippy' || rustup component add clippy
+rustup component list --installed | grep -q '^rustfmt' || rustup component add rustfmt
+
+# Debian packages: the circuit simulator the model is checked against.
+missing=()
+command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
+if [ "${#missing[@]}" -gt 0 ]; then
+    if [ "$(id -u)" -ne 0 ]; then
+        echo "tests/setup.sh: need root to apt-get install ${missing[*]}" >&2
+        exit 1
+    fi
+    apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${missing[@]}" >/dev/null
+fi
