@@ -1,8 +1,10 @@
 #![doc = include_str!("../README.md")]
 
 pub mod agree;
+pub mod eseries;
 pub mod eval;
 pub mod netlist;
 pub mod reference;
 pub mod stagefile;
+pub mod stats;
 pub mod values;

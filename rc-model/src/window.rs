@@ -456,3 +456,38 @@ impl Spread {
         Ok(w)
     }
 }
+
+/// Expected life of an aluminium electrolytic capacitor at `at_mdeg_c`, in
+/// hours, from its rated life `rated_h` at `rated_mdeg_c`, by the rule that
+/// life doubles for every 10 °C cooler: `L = L0·2^((T0 − T)/10)` (common
+/// practice, Arrhenius-based; no source). Rounded down to whole hours.
+///
+/// Computed as `2^k · 2^f` with `k` whole and `0 ≤ f < 1`, `2^f = 2·e^(−(1−f)·ln 2)`
+/// (error below 1e-17 relative before rounding).
+///
+/// # Errors
+/// [`Error::OutOfDomain`] with [`Quantity::Temperature`] outside −55 … +150 °C,
+/// or with [`Quantity::Tolerance`] when the life exceeds 2^64 hours.
+pub fn electrolytic_life_h(rated_h: u32, rated_mdeg_c: i32, at_mdeg_c: i32) -> Result<u64, Error> {
+    use crate::fixed::{exp_neg_q62, LN2_Q62, ONE_Q62};
+    let (lo, hi) = crate::stage::limits::TEMP_MDEG_C;
+    if !(lo..=hi).contains(&rated_mdeg_c) || !(lo..=hi).contains(&at_mdeg_c) {
+        return Err(Error::OutOfDomain(Quantity::Temperature));
+    }
+    // Exponent in Q62: (T0 − T)/10 °C, |·| ≤ 20.5.
+    let delta = i128::from(rated_mdeg_c) - i128::from(at_mdeg_c);
+    let x = delta * ONE_Q62 / 10_000;
+    let k = x.div_euclid(ONE_Q62);
+    let f = x.rem_euclid(ONE_Q62);
+    // 2^f = 2·e^(−(1 − f)·ln 2), in Q62 (≤ 2^63).
+    let arg = mul_div((ONE_Q62 - f).unsigned_abs(), LN2_Q62.unsigned_abs(), ONE_Q62.unsigned_abs())
+        .ok_or(Error::Arithmetic)?;
+    let two_f = 2 * exp_neg_q62(arg);
+    let base = u128::from(rated_h) * two_f; // h·Q62 < 2^32·2^63
+    let life = if k >= 0 {
+        base.checked_shl(k.unsigned_abs() as u32).ok_or(Error::Arithmetic)?
+    } else {
+        base >> k.unsigned_abs()
+    };
+    u64::try_from(life >> 62).map_err(|_| Error::OutOfDomain(Quantity::Tolerance))
+}

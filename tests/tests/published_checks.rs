@@ -165,3 +165,15 @@ fn diode_drop_tempco_default() {
     assert_eq!(at.diode, Diode::Drop { drop_uv: 580_000 });
     assert_eq!(at.temp_mdeg_c, 35_000);
 }
+
+/// Electrolytic life doubles for each 10 °C cooler, L = L0·2^((T0 − T)/10)
+/// (common practice, Arrhenius-based; check-value list §5): 2,000 h at 105 °C
+/// → 4,000 h at 95 °C, 8,000 h at 85 °C, 32,000 h at 65 °C.
+#[test]
+fn electrolytic_ten_degree_rule() {
+    use rc_model::window::electrolytic_life_h;
+    for (t, want) in [(105_000, 2_000), (95_000, 4_000), (85_000, 8_000), (65_000, 32_000), (110_000, 1_414)] {
+        assert_eq!(electrolytic_life_h(2_000, 105_000, t), Ok(want), "{t}");
+    }
+    assert!(electrolytic_life_h(2_000, 105_000, 151_000).is_err());
+}
