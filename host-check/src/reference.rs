@@ -234,8 +234,9 @@ impl StageF {
 
 /// Adaptive Gauss–Kronrod 7/15 quadrature of `f` on `[a, b]` to relative `tol`.
 pub fn integrate<F: Fn(f64) -> f64>(f: &F, a: f64, b: f64, tol: f64) -> f64 {
-    // Nodes and weights of the 15-point Kronrod rule (and embedded 7-point Gauss),
-    // tabulated in QUADPACK (Piessens et al., 1983).
+    // Nodes and weights of the 15-point Kronrod rule (and embedded 7-point Gauss)
+    // as tabulated in QUADPACK (Piessens et al., 1983) — typed from memory and
+    // verified by the tests: the Kronrod rule integrates x^22 exactly.
     const XGK: [f64; 8] = [
         0.991_455_371_120_812_6,
         0.949_107_912_342_758_5,
@@ -292,7 +293,9 @@ fn charge_transient(s: &StageF, i_inf: f64, d0: f64, t_end: f64) -> f64 {
         let i = i_inf + d;
         -s.cap_current(i) / (s.c * s.n_of(i))
     };
-    // Butcher tableau of Dormand & Prince (1980).
+    // Butcher tableau of Dormand & Prince (1980) — typed from memory and
+    // verified by the tests (convergence to the closed-form steady state, and
+    // the latency integral against the transient).
     const A: [[f64; 6]; 6] = [
         [1.0 / 5.0, 0.0, 0.0, 0.0, 0.0, 0.0],
         [3.0 / 40.0, 9.0 / 40.0, 0.0, 0.0, 0.0, 0.0],
@@ -459,6 +462,18 @@ mod tests {
         s.ro = 0.0;
         let e = evaluate(&s).unwrap_or_else(|_| panic!("evaluates"));
         assert_relative_eq!(e.hold, 0.565_314, max_relative = 1e-6);
+    }
+
+    /// The 15-point Kronrod extension of the 7-point Gauss rule is exact for
+    /// polynomials up to degree 3·7 + 2 = 23 (math): one panel, no
+    /// refinement. A mistyped node or weight breaks this; degree 24 is not
+    /// exact, which shows the check can fail.
+    #[test]
+    fn kronrod_table_is_exact_to_its_degree() {
+        let once = |f: &dyn Fn(f64) -> f64| integrate(&f, -1.0, 1.0, f64::INFINITY);
+        assert_relative_eq!(once(&|x: f64| x.powi(22)), 2.0 / 23.0, max_relative = 1e-13);
+        assert_relative_eq!(once(&|x: f64| 1.0 + x.powi(10) + x.powi(23)), 2.0 + 2.0 / 11.0, max_relative = 1e-13);
+        assert!((once(&|x: f64| x.powi(24)) - 2.0 / 25.0).abs() > 1e-9);
     }
 
     /// Quadrature sanity: ∫0^1 x^14 dx = 1/15 and ∫ e^x over [0, 3] (math).

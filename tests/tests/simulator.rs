@@ -293,6 +293,15 @@ fn check(dir: &Path, tag: usize, case: &Case) -> Outcome {
             None => problems.push("simulator measured no turn-on".into()),
         }
     }
+    // The independent f64 reference (its transient for partial presses) against the simulator too.
+    if !matches!(case.kind, Kind::Retrigger { .. }) {
+        match (host_check::reference::evaluate(&host_check::reference::StageF::from(s)), hold_sim) {
+            (Ok(r), Some(h)) if rel(r.hold, h) <= target => {}
+            (Ok(r), Some(h)) => problems.push(format!("f64 reference hold {:.6e} s vs simulator {h:.6e} s", r.hold)),
+            (Err(e), _) => problems.push(format!("f64 reference refused: {e:?}")),
+            (Ok(_), None) => {}
+        }
+    }
     if let Some(v) = get(&m, meas::CAP_AT_RELEASE) {
         let vc = expected.cap_at_release.uv_q32() as f64 / 4_294_967_296.0 * 1e-6;
         if rel(vc, v) > target / 2.0 {
