@@ -390,24 +390,36 @@ impl Spread {
         // Temperature.
         let (temp_on, temp_high) = bit(Param::Temp);
         if let (true, Some((lo, hi))) = (temp_on, self.temp_mdeg_c) {
-            let t = if temp_high { hi } else { lo };
-            let delta = i64::from(t) - i64::from(self.ref_mdeg_c);
-            s.temp_mdeg_c = t;
-            s.r_mohm = tempco_scale(s.r_mohm, self.tempco.r_ppm_per_c, delta)?;
-            s.c_ff = tempco_scale(s.c_ff, self.tempco.c_ppm_per_c, delta)?;
-            if let Diode::Drop { drop_uv } = s.diode {
-                let d = i64::from(self.tempco.drop_uv_per_c) * delta / 1000;
-                s.diode = Diode::Drop { drop_uv: offset_u32(drop_uv, d)? };
-            }
-            let shift = i64::from(self.tempco.threshold_ppm_per_c) * delta / 1000 * i64::from(s.vdd_uv) / 1_000_000;
-            s.rise_uv = offset_u32(s.rise_uv, shift)?;
-            s.fall_uv = offset_u32(s.fall_uv, shift)?;
+            s = self.at_temperature(&s, if temp_high { hi } else { lo })?;
         }
         // Age.
         let (age_on, aged) = bit(Param::Age);
         if let (true, true, Some(a)) = (age_on, aged, self.aging) {
             s.c_ff = scale_u64(s.c_ff, u64::from(a.remaining_ppm()?))?;
         }
+        Ok(s)
+    }
+
+    /// The stage at junction temperature `temp_mdeg_c`: R, C, the fixed drop
+    /// and the thresholds moved by their coefficients from [`Spread::ref_mdeg_c`],
+    /// and the junction temperature set (a junction diode's thermal voltage).
+    ///
+    /// # Errors
+    /// [`Error::OutOfDomain`] with [`Quantity::Tolerance`] when a coefficient
+    /// would drive a value through zero; the moved stage is checked by the model.
+    pub fn at_temperature(&self, stage: &Stage, temp_mdeg_c: i32) -> Result<Stage, Error> {
+        let mut s = *stage;
+        let delta = i64::from(temp_mdeg_c) - i64::from(self.ref_mdeg_c);
+        s.temp_mdeg_c = temp_mdeg_c;
+        s.r_mohm = tempco_scale(s.r_mohm, self.tempco.r_ppm_per_c, delta)?;
+        s.c_ff = tempco_scale(s.c_ff, self.tempco.c_ppm_per_c, delta)?;
+        if let Diode::Drop { drop_uv } = s.diode {
+            let d = i64::from(self.tempco.drop_uv_per_c) * delta / 1000;
+            s.diode = Diode::Drop { drop_uv: offset_u32(drop_uv, d)? };
+        }
+        let shift = i64::from(self.tempco.threshold_ppm_per_c) * delta / 1000 * i64::from(s.vdd_uv) / 1_000_000;
+        s.rise_uv = offset_u32(s.rise_uv, shift)?;
+        s.fall_uv = offset_u32(s.fall_uv, shift)?;
         Ok(s)
     }
 

@@ -1,0 +1,19 @@
+#![doc = include_str!("../README.md")]
+#![no_std]
+#![forbid(unsafe_code)]
+#![deny(missing_docs)]
+#![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used, clippy::indexing_slicing, clippy::panic))]
+
+mod config;
+pub mod drift;
+mod engine;
+pub mod record;
+mod time;
+mod timer;
+mod verdict;
+
+pub use config::Config;
+pub use engine::{Error, Measurement, Retrigger, Tester};
+pub use time::{Stopwatch, TickSource};
+pub use timer::SoftHold;
+pub use verdict::{Hint, Verdict};
