@@ -37,7 +37,8 @@ fn ticks(span: Span, clock_hz: u32) -> Result<u64, ModelError> {
 impl Config {
     /// Settings for a stage: the press lasts its model press; the pass window
     /// is the model window widened by `guard_ppm` on each side; timeouts leave
-    /// room for a hold twice the window's maximum.
+    /// room for a hold 16 times the window's maximum, so that a capacitor a
+    /// decade too large reads as a long hold, not a stuck output.
     ///
     /// # Errors
     /// The model's errors for a clock outside 1 kHz – 200 MHz.
@@ -64,7 +65,7 @@ impl Config {
             on_timeout_ticks: (latency.saturating_mul(10)).max(press_ticks / 2).min(press_ticks).max(1),
             hold_min_ticks: min.saturating_sub(guard(min)),
             hold_max_ticks: max.saturating_add(guard(max)),
-            hold_timeout_ticks: max.saturating_mul(2).max(1),
+            hold_timeout_ticks: max.saturating_mul(16).max(1),
             chatter_limit: 8,
         })
     }

@@ -56,6 +56,25 @@ pub struct Entry {
     pub value: i32,
 }
 
+/// The capacitance deviation from nominal, in ppm, that a hold measured at
+/// junction temperature `temp_mdeg_c` implies, referred to the reference
+/// temperature: the stage is moved to that temperature through the spread's
+/// coefficients, the hold is inverted there, and the deviation is taken
+/// against the capacitance the part should have at that temperature.
+///
+/// # Errors
+/// The model's errors (out-of-domain values, ill-conditioned inverse).
+pub fn deviation_at(
+    spread: &rc_model::window::Spread,
+    nominal: &rc_model::Stage,
+    temp_mdeg_c: i32,
+    hold: rc_model::Span,
+) -> Result<i32, rc_model::Error> {
+    let at = spread.at_temperature(nominal, temp_mdeg_c)?;
+    let inverse = rc_model::Model::new(&at)?.inverse_c(hold)?;
+    i32::try_from(inverse.deviation_ppm()).map_err(|_| rc_model::Error::OutOfDomain(rc_model::Quantity::C))
+}
+
 /// Integer square root (floor) of a `u128`, by Newton's method.
 #[must_use]
 pub fn isqrt(n: u128) -> u128 {

@@ -11,6 +11,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::config::Config;
 use crate::time::{Stopwatch, TickSource};
+use crate::timer::SoftHold;
 use crate::verdict::{Hint, Verdict};
 
 /// Errors of the engine, generic over the pins' error type.
@@ -305,6 +306,96 @@ where
             None => self.outcome(press, Some(0), None, filter.glitches, Verdict::StuckActive),
         };
         Ok(Retrigger { stayed_active, second })
+    }
+}
+
+/// One step of a press schedule: press for `press_ticks`, then leave the
+/// trigger released for `gap_ticks`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Step {
+    /// Press length, ticks.
+    pub press_ticks: u64,
+    /// Released time after it, ticks.
+    pub gap_ticks: u64,
+}
+
+/// The stage and a software timer run on the same presses.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Comparison {
+    /// Ticks the stage output was active.
+    pub stage_active_ticks: u64,
+    /// Ticks the software timer was active.
+    pub timer_active_ticks: u64,
+    /// Ticks the two disagreed.
+    pub disagree_ticks: u64,
+    /// Separate active intervals of the stage.
+    pub stage_intervals: u16,
+    /// Separate active intervals of the timer.
+    pub timer_intervals: u16,
+}
+
+impl<TRIG, OUT, D, K, E> Tester<TRIG, OUT, D, K>
+where
+    TRIG: OutputPin<Error = E>,
+    OUT: InputPin<Error = E>,
+    D: DelayNs,
+    K: TickSource,
+{
+    /// Runs `steps` on the stage and on `timer` side by side, sampling both
+    /// at every poll, and reports how long each was active and how long
+    /// they disagreed.
+    ///
+    /// # Errors
+    /// [`Error::Pin`] when a pin operation fails.
+    pub fn compare_soft(&mut self, timer: &mut SoftHold, steps: &[Step]) -> Result<Comparison, Error<E>> {
+        let mut c = Comparison::default();
+        let (mut was_stage, mut was_timer) = (false, false);
+        let mut last = self.clock.now();
+        for step in steps {
+            for (pressed, ticks) in [(true, step.press_ticks), (false, step.gap_ticks)] {
+                let now = self.clock.now();
+                if pressed {
+                    self.trigger.set_low().map_err(Error::Pin)?;
+                    timer.press(now);
+                } else {
+                    self.trigger.set_high().map_err(Error::Pin)?;
+                    timer.release(now);
+                }
+                let mut sw = Stopwatch::start(now);
+                loop {
+                    let now = self.clock.now();
+                    let t = sw.update(now);
+                    let dt = u64::from(now.wrapping_sub(last));
+                    last = now;
+                    let stage = self.active()?;
+                    let soft = timer.active(now);
+                    if was_stage {
+                        c.stage_active_ticks += dt;
+                    }
+                    if was_timer {
+                        c.timer_active_ticks += dt;
+                    }
+                    if was_stage != was_timer {
+                        c.disagree_ticks += dt;
+                    }
+                    if stage && !was_stage {
+                        c.stage_intervals = c.stage_intervals.saturating_add(1);
+                    }
+                    if soft && !was_timer {
+                        c.timer_intervals = c.timer_intervals.saturating_add(1);
+                    }
+                    was_stage = stage;
+                    was_timer = soft;
+                    if t >= ticks {
+                        break;
+                    }
+                    self.delay.delay_ns(self.config.poll_ns);
+                }
+            }
+        }
+        Ok(c)
     }
 }
 

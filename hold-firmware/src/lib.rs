@@ -13,7 +13,7 @@ mod timer;
 mod verdict;
 
 pub use config::Config;
-pub use engine::{Error, Measurement, Retrigger, Tester};
+pub use engine::{Comparison, Error, Measurement, Retrigger, Step, Tester};
 pub use time::{Stopwatch, TickSource};
 pub use timer::SoftHold;
 pub use verdict::{Hint, Verdict};

@@ -7,4 +7,5 @@ pub mod netlist;
 pub mod reference;
 pub mod stagefile;
 pub mod stats;
+pub mod twin;
 pub mod values;
