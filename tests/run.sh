@@ -11,6 +11,7 @@ bash tests/setup.sh
 
 step "format"
 cargo fmt --all -- --check
+(cd hold-firmware/footprint && cargo fmt -- --check)
 
 step "lints"
 cargo clippy --workspace --all-targets --all-features -- -D warnings
@@ -25,8 +26,13 @@ step "cross builds of the no_std crates"
 cargo build -q -p rc-model --release --target thumbv6m-none-eabi
 cargo build -q -p rc-model --release --target thumbv7em-none-eabihf --features f32,defmt
 cargo build -q -p rc-model --release --target thumbv7em-none-eabihf --features f32-micromath
+cargo build -q -p hold-firmware --release --target thumbv6m-none-eabi
+cargo build -q -p hold-firmware --release --target thumbv7em-none-eabihf --features async,defmt
 
 step "no soft float on the FPU-less target"
 bash tests/no-soft-float.sh
+
+step "the linked Cortex-M0 tester: size and no soft float"
+bash benches/footprint.sh
 
 printf '\nall checks passed\n'

@@ -94,6 +94,75 @@ impl Filter {
     }
 }
 
+/// The measurement with its verdict's diagnosis: the cause hint and, for
+/// short and long holds, the capacitance the hold implies.
+pub(crate) fn outcome(
+    config: &Config,
+    model: &Model,
+    press_ticks: u64,
+    on: Option<u64>,
+    hold: Option<u64>,
+    glitches: u16,
+    verdict: Verdict,
+) -> Measurement {
+    let mut m = Measurement {
+        press_ticks,
+        on_ticks: on,
+        hold_ticks: hold,
+        glitches,
+        verdict,
+        c_deviation_ppm: None,
+        hint: Hint::None,
+    };
+    m.hint = match verdict {
+        Verdict::WithinWindow | Verdict::NotIdle => Hint::None,
+        Verdict::NoResponse => Hint::NoChargePath,
+        Verdict::StuckActive => Hint::OpenResistorOrShortedNode,
+        Verdict::Chatter => Hint::NoisyOutput,
+        Verdict::Short | Verdict::Long => {
+            let hold = hold.unwrap_or(0);
+            if hold.saturating_mul(20) < config.hold_min_ticks {
+                Hint::OpenCapacitorOrDiode
+            } else {
+                match config.span(hold).and_then(|s| model.inverse_c(s)) {
+                    Ok(c) => {
+                        let dev = c.deviation_ppm();
+                        m.c_deviation_ppm = Some(dev);
+                        Hint::from_deviation_ppm(dev)
+                    }
+                    // Outside the model's domain (a hold beyond 24 h or C beyond 10 mF).
+                    Err(_) => Hint::WrongPart,
+                }
+            }
+        }
+    };
+    #[cfg(feature = "defmt")]
+    defmt::info!("hold measurement: {} (hint {})", m.verdict.name(), m.hint.name());
+    m
+}
+
+/// The verdict on a completed hold.
+pub(crate) fn judge(
+    config: &Config,
+    model: &Model,
+    press: u64,
+    on: Option<u64>,
+    hold: u64,
+    glitches: u16,
+    dropped: bool,
+) -> Measurement {
+    let verdict = if glitches > config.chatter_limit || dropped {
+        Verdict::Chatter
+    } else if hold < config.hold_min_ticks {
+        Verdict::Short
+    } else if hold > config.hold_max_ticks {
+        Verdict::Long
+    } else {
+        Verdict::WithinWindow
+    };
+    outcome(config, model, press, on, Some(hold), glitches, verdict)
+}
+
 /// The measuring engine: owns the trigger and output pins, a delay and a tick
 /// source, and the model of the stage it measures.
 pub struct Tester<TRIG, OUT, D, K> {
@@ -144,41 +213,7 @@ where
         glitches: u16,
         verdict: Verdict,
     ) -> Measurement {
-        let mut m = Measurement {
-            press_ticks,
-            on_ticks: on,
-            hold_ticks: hold,
-            glitches,
-            verdict,
-            c_deviation_ppm: None,
-            hint: Hint::None,
-        };
-        m.hint = match verdict {
-            Verdict::WithinWindow | Verdict::NotIdle => Hint::None,
-            Verdict::NoResponse => Hint::NoChargePath,
-            Verdict::StuckActive => Hint::OpenResistorOrShortedNode,
-            Verdict::Chatter => Hint::NoisyOutput,
-            Verdict::Short | Verdict::Long => {
-                let hold = hold.unwrap_or(0);
-                if hold.saturating_mul(20) < self.config.hold_min_ticks {
-                    Hint::OpenCapacitorOrDiode
-                } else {
-                    let inv = self.config.span(hold).and_then(|s| self.model.inverse_c(s));
-                    match inv {
-                        Ok(c) => {
-                            let dev = c.deviation_ppm();
-                            m.c_deviation_ppm = Some(dev);
-                            Hint::from_deviation_ppm(dev)
-                        }
-                        Err(_) if verdict == Verdict::Short => Hint::WrongPart,
-                        Err(_) => Hint::WrongPart,
-                    }
-                }
-            }
-        };
-        #[cfg(feature = "defmt")]
-        defmt::info!("hold measurement: {} (hint {})", m.verdict.name(), m.hint.name());
-        m
+        outcome(&self.config, &self.model, press_ticks, on, hold, glitches, verdict)
     }
 
     /// Waits `ticks` with the trigger released, requiring the output to stay
@@ -246,16 +281,7 @@ where
     }
 
     fn judge(&self, press: u64, on: Option<u64>, hold: u64, glitches: u16, dropped: bool) -> Measurement {
-        let verdict = if glitches > self.config.chatter_limit || dropped {
-            Verdict::Chatter
-        } else if hold < self.config.hold_min_ticks {
-            Verdict::Short
-        } else if hold > self.config.hold_max_ticks {
-            Verdict::Long
-        } else {
-            Verdict::WithinWindow
-        };
-        self.outcome(press, on, Some(hold), glitches, verdict)
+        judge(&self.config, &self.model, press, on, hold, glitches, dropped)
     }
 
     /// One measurement: idle check, press, release, hold.

@@ -4,6 +4,8 @@
 #![deny(missing_docs)]
 #![cfg_attr(not(test), deny(clippy::unwrap_used, clippy::expect_used, clippy::indexing_slicing, clippy::panic))]
 
+#[cfg(feature = "async")]
+mod asynch;
 mod config;
 pub mod drift;
 mod engine;
@@ -12,6 +14,8 @@ mod time;
 mod timer;
 mod verdict;
 
+#[cfg(feature = "async")]
+pub use asynch::AsyncTester;
 pub use config::Config;
 pub use engine::{Comparison, Error, Measurement, Retrigger, Step, Tester};
 pub use time::{Stopwatch, TickSource};

@@ -311,6 +311,86 @@ impl DelayNs for VirtualDelay {
     }
 }
 
+/// Virtual time one poll of an async wait or delay lets pass, s.
+const ASYNC_STEP_S: f64 = 10e-6;
+
+impl embedded_hal_async::digital::Wait for StageOutput {
+    async fn wait_for_high(&mut self) -> Result<(), Infallible> {
+        self.wait_for(false).await;
+        Ok(())
+    }
+    async fn wait_for_low(&mut self) -> Result<(), Infallible> {
+        self.wait_for(true).await;
+        Ok(())
+    }
+    async fn wait_for_rising_edge(&mut self) -> Result<(), Infallible> {
+        self.wait_for(true).await;
+        self.wait_for(false).await;
+        Ok(())
+    }
+    async fn wait_for_falling_edge(&mut self) -> Result<(), Infallible> {
+        self.wait_for(false).await;
+        self.wait_for(true).await;
+        Ok(())
+    }
+    async fn wait_for_any_edge(&mut self) -> Result<(), Infallible> {
+        let now = self.0.borrow_mut().output_active();
+        self.wait_for(!now).await;
+        Ok(())
+    }
+}
+
+impl StageOutput {
+    /// Resolves when the output is `active`; each poll lets one step of virtual time pass.
+    async fn wait_for(&mut self, active: bool) {
+        core::future::poll_fn(|cx| {
+            let mut p = self.0.borrow_mut();
+            if p.output_active() == active {
+                return core::task::Poll::Ready(());
+            }
+            p.advance(ASYNC_STEP_S);
+            if p.output_active() == active {
+                return core::task::Poll::Ready(());
+            }
+            cx.waker().wake_by_ref();
+            core::task::Poll::Pending
+        })
+        .await;
+    }
+}
+
+impl embedded_hal_async::delay::DelayNs for VirtualDelay {
+    /// Resolves once `ns` of virtual time has passed; each poll lets one step pass.
+    async fn delay_ns(&mut self, ns: u32) {
+        let deadline = self.0.borrow().t + f64::from(ns) * 1e-9;
+        core::future::poll_fn(|cx| {
+            let mut p = self.0.borrow_mut();
+            if p.t >= deadline {
+                return core::task::Poll::Ready(());
+            }
+            let step = ASYNC_STEP_S.min(deadline - p.t);
+            p.advance(step);
+            if p.t >= deadline {
+                return core::task::Poll::Ready(());
+            }
+            cx.waker().wake_by_ref();
+            core::task::Poll::Pending
+        })
+        .await;
+    }
+}
+
+/// Runs a future to completion on this thread (the twin's futures never block).
+pub fn block_on<F: core::future::Future>(f: F) -> F::Output {
+    let mut f = core::pin::pin!(f);
+    let mut cx = core::task::Context::from_waker(core::task::Waker::noop());
+    loop {
+        if let core::task::Poll::Ready(v) = f.as_mut().poll(&mut cx) {
+            return v;
+        }
+    }
+}
+
 impl TickSource for VirtualClock {
     fn now(&mut self) -> u32 {
         let p = self.0.borrow();

@@ -332,3 +332,32 @@ fn software_timer_matches_the_stage() {
     assert!(c.disagree_ticks * 100 < c.stage_active_ticks, "{c:?}");
     assert!(c.stage_active_ticks.abs_diff(c.timer_active_ticks) * 100 < c.stage_active_ticks, "{c:?}");
 }
+
+/// The async engine (edges awaited, timeouts raced) gives the blocking
+/// engine's verdicts and hints on the same boards and faults.
+#[test]
+fn async_engine_gives_the_same_verdicts() {
+    use hold_firmware::AsyncTester;
+    let nominal = stage();
+    let (config, model) = config_for(&nominal, &spread());
+    let cases: [&[Fault]; 6] = [
+        &[],
+        &[Fault::OpenCapacitor],
+        &[Fault::CapacitorTimes(0.1)],
+        &[Fault::CapacitorTimes(10.0)],
+        &[Fault::OpenDiode],
+        &[Fault::OpenResistor],
+    ];
+    for faults in cases {
+        let blocking = measure(&nominal, faults, config, model, 5);
+        let twin = Twin::new(&nominal, faults, CLOCK_HZ, 5);
+        let (trig, out, delay, clock) = twin.handles();
+        let mut t = AsyncTester::new(trig, out, delay, clock, config, model);
+        let m = host_check::twin::block_on(t.measure()).unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!((m.verdict, m.hint), (blocking.verdict, blocking.hint), "{faults:?}: {m:?} vs {blocking:?}");
+        if let (Some(a), Some(b)) = (m.hold_ticks, blocking.hold_ticks) {
+            // Edge timestamps and polls differ by at most a few poll quanta.
+            assert!(a.abs_diff(b) <= 3 * u64::from(POLL_NS / 1_000) + 50, "{faults:?}: hold {a} vs {b}");
+        }
+    }
+}

@@ -1,0 +1,153 @@
+//! The engine over `embedded-hal-async`: the output's edges are awaited
+//! (`Wait`, typically an edge interrupt) instead of polled, each wait raced
+//! against an async delay for its timeout. Same settings, same verdicts and
+//! diagnosis as [`crate::Tester`]; times are taken when an edge arrives.
+
+use core::future::{poll_fn, Future};
+use core::pin::pin;
+use core::task::Poll;
+
+use embedded_hal::digital::{InputPin, OutputPin};
+use embedded_hal_async::delay::DelayNs;
+use embedded_hal_async::digital::Wait;
+use rc_model::Model;
+
+use crate::config::Config;
+use crate::engine::{judge, outcome, Error, Measurement};
+use crate::time::{Stopwatch, TickSource};
+use crate::verdict::Verdict;
+
+/// Whichever of two futures finishes first (`a` is polled first).
+enum Either<A, B> {
+    Left(A),
+    Right(B),
+}
+
+async fn first<A: Future, B: Future>(a: A, b: B) -> Either<A::Output, B::Output> {
+    let mut a = pin!(a);
+    let mut b = pin!(b);
+    poll_fn(move |cx| {
+        if let Poll::Ready(v) = a.as_mut().poll(cx) {
+            return Poll::Ready(Either::Left(v));
+        }
+        if let Poll::Ready(v) = b.as_mut().poll(cx) {
+            return Poll::Ready(Either::Right(v));
+        }
+        Poll::Pending
+    })
+    .await
+}
+
+/// The async measuring engine. See [`crate::Tester`].
+pub struct AsyncTester<TRIG, OUT, D, K> {
+    trigger: TRIG,
+    output: OUT,
+    delay: D,
+    clock: K,
+    config: Config,
+    model: Model,
+}
+
+impl<TRIG, OUT, D, K, E> AsyncTester<TRIG, OUT, D, K>
+where
+    TRIG: OutputPin<Error = E>,
+    OUT: InputPin<Error = E> + Wait<Error = E>,
+    D: DelayNs,
+    K: TickSource,
+{
+    /// Takes the peripherals and the settings.
+    pub fn new(trigger: TRIG, output: OUT, delay: D, clock: K, config: Config, model: Model) -> Self {
+        AsyncTester { trigger, output, delay, clock, config, model }
+    }
+
+    /// Gives the peripherals back.
+    pub fn release(self) -> (TRIG, OUT, D, K) {
+        (self.trigger, self.output, self.delay, self.clock)
+    }
+
+    fn ticks_to_ns(&self, ticks: u64) -> u32 {
+        let ns = u128::from(ticks) * 1_000_000_000 / u128::from(self.config.clock_hz.max(1));
+        u32::try_from(ns).unwrap_or(u32::MAX)
+    }
+
+    /// Waits up to `ticks` for the output to reach `active`; `true` if it did.
+    async fn edge(&mut self, active: bool, ticks: u64) -> Result<bool, Error<E>> {
+        let ns = self.ticks_to_ns(ticks);
+        let wait = async {
+            if active {
+                self.output.wait_for_low().await
+            } else {
+                self.output.wait_for_high().await
+            }
+        };
+        match first(wait, self.delay.delay_ns(ns)).await {
+            Either::Left(r) => r.map(|()| true).map_err(Error::Pin),
+            Either::Right(()) => Ok(false),
+        }
+    }
+
+    /// Waits until the output has been `active` for the glitch time, up to
+    /// `deadline` ticks on `sw`; returns when that level began. Levels that do
+    /// not last are counted in `glitches`.
+    async fn settle(
+        &mut self,
+        active: bool,
+        sw: &mut Stopwatch,
+        deadline: u64,
+        glitches: &mut u16,
+    ) -> Result<Option<u64>, Error<E>> {
+        loop {
+            let t = sw.update(self.clock.now());
+            if t >= deadline {
+                return Ok(None);
+            }
+            let now_active = self.output.is_low().map_err(Error::Pin)?;
+            if now_active != active {
+                if !self.edge(active, deadline - t).await? {
+                    return Ok(None);
+                }
+                continue;
+            }
+            let began = sw.update(self.clock.now());
+            if self.edge(!active, self.config.glitch_ticks).await? {
+                *glitches = glitches.saturating_add(1);
+                continue;
+            }
+            return Ok(Some(began));
+        }
+    }
+
+    /// One measurement. See [`crate::Tester::measure`].
+    ///
+    /// # Errors
+    /// [`Error::Pin`] when a pin operation fails.
+    pub async fn measure(&mut self) -> Result<Measurement, Error<E>> {
+        let (config, model) = (self.config, self.model);
+        let mut glitches = 0u16;
+        self.trigger.set_high().map_err(Error::Pin)?;
+        let mut sw = Stopwatch::start(self.clock.now());
+        if self.settle(true, &mut sw, config.settle_ticks, &mut glitches).await?.is_some() {
+            return Ok(outcome(&config, &model, 0, None, None, glitches, Verdict::NotIdle));
+        }
+        self.trigger.set_low().map_err(Error::Pin)?;
+        let mut sw = Stopwatch::start(self.clock.now());
+        let Some(on) = self.settle(true, &mut sw, config.on_timeout_ticks, &mut glitches).await? else {
+            self.trigger.set_high().map_err(Error::Pin)?;
+            let t = sw.update(self.clock.now());
+            return Ok(outcome(&config, &model, t, None, None, glitches, Verdict::NoResponse));
+        };
+        // Hold the press; the output must not drop out meanwhile.
+        let dropped = self.settle(false, &mut sw, config.press_ticks, &mut glitches).await?.is_some();
+        let t = sw.update(self.clock.now());
+        if t < config.press_ticks {
+            self.delay.delay_ns(self.ticks_to_ns(config.press_ticks - t)).await;
+        }
+        let press = sw.update(self.clock.now());
+        self.trigger.set_high().map_err(Error::Pin)?;
+        let mut sw = Stopwatch::start(self.clock.now());
+        match self.settle(false, &mut sw, config.hold_timeout_ticks, &mut glitches).await? {
+            Some(hold) => Ok(judge(&config, &model, press, Some(on), hold, glitches, dropped)),
+            None => Ok(outcome(&config, &model, press, Some(on), None, glitches, Verdict::StuckActive)),
+        }
+    }
+}
