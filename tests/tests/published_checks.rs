@@ -76,7 +76,7 @@ fn published_plain_cmos_band() {
 
 /// JEDEC JESD7A (high-speed CMOS) at Vcc 4.5 V: VIH(min) 3.15 V, VIL(max)
 /// 1.35 V, so a hold discharging from Vcc lies in [ln(4.5/3.15), ln(4.5/1.35)]·τ
-/// = [0.3567, 1.2040]·τ (published levels, from transcriptions; math).
+/// = [0.3567, 1.2040]·τ (published levels, as quoted in secondary sources; math).
 #[test]
 fn jesd7a_worst_case_band() {
     let mut s = ideal_stage(500_000);
@@ -98,7 +98,7 @@ fn jesd7a_worst_case_band() {
 
 /// Every preset's thresholds lie inside its family's guaranteed VIL(max) …
 /// VIH(min) limits (published: JEDEC JESD7A, JESD13-B, JESD8C, JESD8-5,
-/// JESD8-7, as transcribed in the check-value list, section 4).
+/// JESD8-7, as quoted in the check-value list, section 4).
 #[test]
 fn presets_lie_inside_their_family_limits() {
     // (preset, supply mV, VIL(max) mV, VIH(min) mV)
