@@ -35,7 +35,10 @@ fn ticks(span: Span, clock_hz: u32) -> Result<u64, ModelError> {
 }
 
 impl Config {
-    /// Settings for a stage: the press lasts its model press; the pass window
+    /// Settings for a stage: the press lasts the stage's press, but at least
+    /// the turn-on latency plus five charge time constants (so the capacitor
+    /// is charged to within 1 % of its target whatever the stage file says);
+    /// the pass window
     /// is the model window widened by `guard_ppm` on each side; timeouts leave
     /// room for a hold 16 times the window's maximum, so that a capacitor a
     /// decade too large reads as a long hold, not a stuck output.
@@ -53,8 +56,9 @@ impl Config {
         let min = ticks(window.min, clock_hz)?;
         let max = ticks(window.max, clock_hz)?;
         let guard = |t: u64| t / 1_000_000 * u64::from(guard_ppm) + t % 1_000_000 * u64::from(guard_ppm) / 1_000_000;
-        let press_ticks = ticks(press, clock_hz)?;
         let latency = ticks(nominal.on_latency, clock_hz)?;
+        let full_charge = ticks(nominal.charge_tau, clock_hz)?.saturating_mul(5).saturating_add(latency);
+        let press_ticks = ticks(press, clock_hz)?.max(full_charge);
         let poll_ticks = u64::from(poll_ns) * u64::from(clock_hz) / 1_000_000_000;
         Ok(Config {
             clock_hz,

@@ -189,3 +189,18 @@ fn pin_errors_are_propagated() {
     trig.done();
     out.done();
 }
+
+#[test]
+fn the_press_is_long_enough_to_charge_the_capacitor() {
+    use rc_model::window::Spread;
+    let mut s = *model().stage();
+    s.charge_mohm = 10_000_000; // 10 kΩ: τc = 10 ms
+    s.press_ns = 20_000_000; // a 20 ms press asked for: turns on, but 5 τc need 61 ms
+    let m = Model::new(&s).unwrap_or_else(|e| panic!("{e}"));
+    let w = Spread::default().window(&s).unwrap_or_else(|f| panic!("{f:?}"));
+    let c = Config::from_model(&m, &w, 1_000_000, 20_000, 1_000).unwrap_or_else(|e| panic!("{e}"));
+    let e = m.evaluate().unwrap_or_else(|e| panic!("{e}"));
+    let want = e.charge_tau.ticks(1_000_000).unwrap_or(0) * 5 + e.on_latency.ticks(1_000_000).unwrap_or(0);
+    assert_eq!(c.press_ticks, want);
+    assert!(c.press_ticks > 50_000, "{}", c.press_ticks);
+}
