@@ -38,7 +38,8 @@ impl Config {
     /// Settings for a stage: the press lasts the stage's press, but at least
     /// the turn-on latency plus five charge time constants (so the capacitor
     /// is charged to within 1 % of its target whatever the stage file says);
-    /// the pass window
+    /// the pass window, widened also by one tick of timer quantisation and one
+    /// poll of latency on each side, is
     /// is the model window widened by `guard_ppm` on each side; timeouts leave
     /// room for a hold 16 times the window's maximum, so that a capacitor a
     /// decade too large reads as a long hold, not a stuck output.
@@ -67,8 +68,9 @@ impl Config {
             glitch_ticks: (4 * poll_ticks).max(1).min(min / 50 + 1),
             poll_ns,
             on_timeout_ticks: (latency.saturating_mul(10)).max(press_ticks / 2).min(press_ticks).max(1),
-            hold_min_ticks: min.saturating_sub(guard(min)),
-            hold_max_ticks: max.saturating_add(guard(max)),
+            // Timer quantisation (1 tick) and polling latency (1 poll) widen each side.
+            hold_min_ticks: min.saturating_sub(guard(min)).saturating_sub(poll_ticks + 1),
+            hold_max_ticks: max.saturating_add(guard(max)).saturating_add(poll_ticks + 1),
             hold_timeout_ticks: max.saturating_mul(16).max(1),
             chatter_limit: 8,
         })
@@ -96,5 +98,174 @@ impl Config {
     /// [`ModelError::OutOfDomain`] for a clock outside 1 kHz – 200 MHz.
     pub fn span(&self, ticks: u64) -> Result<Span, ModelError> {
         Span::from_ticks(ticks, self.clock_hz)
+    }
+}
+
+/// Length of a settings blob, bytes.
+pub const BLOB_LEN: usize = 80;
+const BLOB_MAGIC: [u8; 4] = *b"RCHW";
+const BLOB_VERSION: u8 = 1;
+const CRC: crc::Crc<u32> = crc::Crc::<u32>::new(&crc::CRC_32_ISO_HDLC);
+
+/// Why a settings blob was refused.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+#[non_exhaustive]
+pub enum BlobError {
+    /// Not [`BLOB_LEN`] bytes.
+    Length,
+    /// Not a settings blob (wrong magic).
+    Magic,
+    /// A version this firmware does not know.
+    Version,
+    /// The CRC does not match: the blob is corrupted.
+    Crc,
+    /// The settings contradict each other (e.g. a window whose minimum exceeds its maximum).
+    Invalid,
+}
+
+impl core::fmt::Display for BlobError {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        f.write_str(match self {
+            BlobError::Length => "wrong length",
+            BlobError::Magic => "not a settings blob",
+            BlobError::Version => "unknown version",
+            BlobError::Crc => "CRC mismatch",
+            BlobError::Invalid => "contradictory settings",
+        })
+    }
+}
+
+impl core::error::Error for BlobError {}
+
+impl Config {
+    /// The settings as a blob to store in flash or send to a fixture:
+    /// "RCHW", version 1, three reserved bytes, the fields little-endian in
+    /// declaration order (clock u32, settle u64, press u64, glitch u64, poll
+    /// u32, turn-on timeout u64, hold min u64, hold max u64, hold timeout u64,
+    /// chatter limit u16), two reserved bytes, CRC-32/ISO-HDLC of all before it.
+    #[must_use]
+    pub fn to_blob(&self) -> [u8; BLOB_LEN] {
+        let mut b = [0u8; BLOB_LEN];
+        let mut at = 0usize;
+        let mut put = |bytes: &[u8]| {
+            if let Some(dst) = b.get_mut(at..at + bytes.len()) {
+                dst.copy_from_slice(bytes);
+            }
+            at += bytes.len();
+        };
+        put(&BLOB_MAGIC);
+        put(&[BLOB_VERSION, 0, 0, 0]);
+        put(&self.clock_hz.to_le_bytes());
+        put(&self.settle_ticks.to_le_bytes());
+        put(&self.press_ticks.to_le_bytes());
+        put(&self.glitch_ticks.to_le_bytes());
+        put(&self.poll_ns.to_le_bytes());
+        put(&self.on_timeout_ticks.to_le_bytes());
+        put(&self.hold_min_ticks.to_le_bytes());
+        put(&self.hold_max_ticks.to_le_bytes());
+        put(&self.hold_timeout_ticks.to_le_bytes());
+        put(&self.chatter_limit.to_le_bytes());
+        put(&[0, 0]);
+        let crc = CRC.checksum(b.get(..BLOB_LEN - 4).unwrap_or(&[]));
+        if let Some(dst) = b.get_mut(BLOB_LEN - 4..) {
+            dst.copy_from_slice(&crc.to_le_bytes());
+        }
+        b
+    }
+
+    /// Loads settings from a blob made by [`Config::to_blob`] (or `rchold window --emit bin`).
+    ///
+    /// # Errors
+    /// [`BlobError`] for a wrong length, magic or version, a CRC mismatch, or
+    /// contradictory settings.
+    pub fn from_blob(blob: &[u8]) -> Result<Config, BlobError> {
+        if blob.len() != BLOB_LEN {
+            return Err(BlobError::Length);
+        }
+        if blob.get(..4) != Some(&BLOB_MAGIC[..]) {
+            return Err(BlobError::Magic);
+        }
+        if blob.get(4) != Some(&BLOB_VERSION) {
+            return Err(BlobError::Version);
+        }
+        let body = blob.get(..BLOB_LEN - 4).ok_or(BlobError::Length)?;
+        let crc = blob.get(BLOB_LEN - 4..).and_then(|c| <[u8; 4]>::try_from(c).ok()).ok_or(BlobError::Length)?;
+        if CRC.checksum(body) != u32::from_le_bytes(crc) {
+            return Err(BlobError::Crc);
+        }
+        let mut at = 8usize;
+        let mut take = |n: usize| -> Result<&[u8], BlobError> {
+            let s = blob.get(at..at + n).ok_or(BlobError::Length)?;
+            at += n;
+            Ok(s)
+        };
+        let u32_ = |s: &[u8]| s.try_into().map(u32::from_le_bytes).map_err(|_| BlobError::Length);
+        let u64_ = |s: &[u8]| s.try_into().map(u64::from_le_bytes).map_err(|_| BlobError::Length);
+        let c = Config {
+            clock_hz: u32_(take(4)?)?,
+            settle_ticks: u64_(take(8)?)?,
+            press_ticks: u64_(take(8)?)?,
+            glitch_ticks: u64_(take(8)?)?,
+            poll_ns: u32_(take(4)?)?,
+            on_timeout_ticks: u64_(take(8)?)?,
+            hold_min_ticks: u64_(take(8)?)?,
+            hold_max_ticks: u64_(take(8)?)?,
+            hold_timeout_ticks: u64_(take(8)?)?,
+            chatter_limit: take(2)?.try_into().map(u16::from_le_bytes).map_err(|_| BlobError::Length)?,
+        };
+        if rc_model::check_clock(c.clock_hz).is_err()
+            || c.hold_min_ticks > c.hold_max_ticks
+            || c.hold_max_ticks > c.hold_timeout_ticks
+            || c.press_ticks == 0
+            || c.on_timeout_ticks > c.press_ticks
+        {
+            return Err(BlobError::Invalid);
+        }
+        Ok(c)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn sample() -> Config {
+        Config {
+            clock_hz: 1_000_000,
+            settle_ticks: 50_000,
+            press_ticks: 100_000,
+            glitch_ticks: 400,
+            poll_ns: 100_000,
+            on_timeout_ticks: 50_000,
+            hold_min_ticks: 500_000,
+            hold_max_ticks: 1_250_000,
+            hold_timeout_ticks: 20_000_000,
+            chatter_limit: 8,
+        }
+    }
+
+    #[test]
+    fn blob_round_trips() {
+        let c = sample();
+        assert_eq!(Config::from_blob(&c.to_blob()), Ok(c));
+    }
+
+    #[test]
+    fn corrupted_blobs_are_refused() {
+        let b = sample().to_blob();
+        for i in 0..BLOB_LEN {
+            for bit in 0..8 {
+                let mut x = b;
+                if let Some(byte) = x.get_mut(i) {
+                    *byte ^= 1 << bit;
+                }
+                assert!(Config::from_blob(&x).is_err(), "byte {i} bit {bit}");
+            }
+        }
+        assert_eq!(Config::from_blob(&b[..79]), Err(BlobError::Length));
+        let mut wrong = sample();
+        wrong.hold_min_ticks = wrong.hold_max_ticks + 1;
+        assert_eq!(Config::from_blob(&wrong.to_blob()), Err(BlobError::Invalid));
     }
 }

@@ -3,6 +3,7 @@
 pub mod agree;
 pub mod eseries;
 pub mod eval;
+pub mod fixture;
 pub mod netlist;
 pub mod reference;
 pub mod stagefile;

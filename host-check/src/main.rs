@@ -31,6 +31,26 @@ enum Command {
         #[arg(long, value_name = "FILE")]
         netlist: Option<PathBuf>,
     },
+    /// The firmware's pass window and timings in ticks of a clock, from the stage file's tolerances.
+    Window {
+        /// The stage file (TOML).
+        stage: PathBuf,
+        /// The firmware's tick clock ("1MHz", "32.768k", "16e6").
+        #[arg(long)]
+        clock: String,
+        /// Extra margin on each side of the window ("2%").
+        #[arg(long, default_value = "2%")]
+        guard: String,
+        /// Time between two reads of the output ("100us"); default: 1/1000 of the shortest hold.
+        #[arg(long)]
+        poll: Option<String>,
+        /// What to write: text, rust (a const), json, or bin (the blob the firmware loads; needs --out).
+        #[arg(long, default_value = "text", value_parser = ["text", "rust", "json", "bin"])]
+        emit: String,
+        /// Write to this file instead of standard output.
+        #[arg(long)]
+        out: Option<PathBuf>,
+    },
     /// Sweep the whole supported domain and report how far the fixed-point and f32 models stray from the f64 reference.
     Agree {
         /// Random points on top of the log-spaced grid.
@@ -113,6 +133,62 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 emit(&eval::render_text(&sf, &report))?;
             }
             Ok(if report.nominal.is_ok() { ExitCode::SUCCESS } else { ExitCode::from(1) })
+        }
+        Command::Window { stage, clock, guard, poll, emit: what, out } => {
+            let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
+            let bad = |opt: &str, v: &str, range: &str, why: String| {
+                BadInput(format!("--{opt} {v:?}: {why} (accepted: {range})"))
+            };
+            let clock_hz = host_check::values::parse_value(&clock, &["Hz"])
+                .map_err(|e| bad("clock", &clock, "1 kHz to 200 MHz", e.to_string()))?;
+            if !(1e3..=200e6).contains(&clock_hz) {
+                return Err(bad("clock", &clock, "1 kHz to 200 MHz", "out of range".into()).into());
+            }
+            let guard_ppm = match host_check::values::parse_tolerance(&guard, &[]) {
+                Ok(host_check::values::Tol::Relative(f)) if f <= 0.5 => (f * 1e6).round() as u32,
+                Ok(_) => return Err(bad("guard", &guard, "0% to 50%", "give a percentage".into()).into()),
+                Err(e) => return Err(bad("guard", &guard, "0% to 50%", e.to_string()).into()),
+            };
+            let nominal = rc_model::Model::new(&sf.stage)
+                .and_then(|m| m.evaluate())
+                .map_err(|e| BadInput(sf.model_error(e).to_string()))?;
+            let poll_ns = match &poll {
+                Some(p) => {
+                    let s = host_check::values::parse_value(p, &["s"])
+                        .map_err(|e| bad("poll", p, "1 µs to 1 s", e.to_string()))?;
+                    if !(1e-6..=1.0).contains(&s) {
+                        return Err(bad("poll", p, "1 µs to 1 s", "out of range".into()).into());
+                    }
+                    (s * 1e9).round() as u32
+                }
+                None => (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32,
+            };
+            let config =
+                host_check::fixture::settings(&sf, clock_hz.round() as u32, guard_ppm, poll_ns).map_err(BadInput)?;
+            let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
+            match what.as_str() {
+                "bin" => {
+                    let Some(out) = out else {
+                        return Err(BadInput("--emit bin writes a binary blob: give --out FILE".into()).into());
+                    };
+                    std::fs::write(&out, config.to_blob()).with_context(|| format!("writing {}", out.display()))?;
+                }
+                kind => {
+                    let e = match kind {
+                        "rust" => host_check::fixture::Emit::Rust,
+                        "json" => host_check::fixture::Emit::Json,
+                        _ => host_check::fixture::Emit::Text,
+                    };
+                    let text = host_check::fixture::render(&config, e, &name);
+                    match out {
+                        Some(path) => {
+                            std::fs::write(&path, text).with_context(|| format!("writing {}", path.display()))?
+                        }
+                        None => emit(&text)?,
+                    }
+                }
+            }
+            Ok(ExitCode::SUCCESS)
         }
         Command::Agree { points, seed, json, fail_above } => {
             let tty = std::io::IsTerminal::is_terminal(&std::io::stderr());

@@ -193,3 +193,35 @@ fn eval_writes_a_netlist_the_simulator_reads() {
     assert_eq!(bad.status.code(), Some(2));
     assert!(text(&bad.stderr).contains("writing the netlist to no/such/dir/x.cir"));
 }
+
+#[test]
+fn window_blob_round_trips_through_the_firmware_loader() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(
+        dir.path(),
+        &["window", "stage.toml", "--clock", "1MHz", "--poll", "100us", "--emit", "bin", "--out", "w.bin"],
+    );
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let blob = std::fs::read(dir.path().join("w.bin")).unwrap_or_default();
+    let loaded = hold_firmware::Config::from_blob(&blob).unwrap_or_else(|e| panic!("{e}"));
+    let json = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--poll", "100us", "--emit", "json"]);
+    let v: serde_json::Value = serde_json::from_slice(&json.stdout).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(v["hold_min_ticks"].as_u64(), Some(loaded.hold_min_ticks));
+    assert_eq!(v["hold_max_ticks"].as_u64(), Some(loaded.hold_max_ticks));
+    assert_eq!(loaded.clock_hz, 1_000_000);
+    assert_eq!(loaded.poll_ns, 100_000);
+    // The window (539.9 ms … 1.195 s, see eval above) widened by 2 %, one poll and one tick.
+    assert!(loaded.hold_min_ticks < 539_900 && loaded.hold_min_ticks > 520_000, "{loaded:?}");
+    assert!(loaded.hold_max_ticks > 1_195_400 && loaded.hold_max_ticks < 1_230_000, "{loaded:?}");
+    let mut bad = blob.clone();
+    if let Some(b) = bad.get_mut(40) {
+        *b ^= 0x10;
+    }
+    assert_eq!(hold_firmware::Config::from_blob(&bad), Err(hold_firmware::BlobError::Crc));
+    let no_out = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--emit", "bin"]);
+    assert_eq!(no_out.status.code(), Some(2));
+    let bad_clock = run(dir.path(), &["window", "stage.toml", "--clock", "fast"]);
+    assert_eq!(bad_clock.status.code(), Some(2));
+    assert!(text(&bad_clock.stderr).contains("--clock \"fast\""), "{}", text(&bad_clock.stderr));
+}

@@ -1,0 +1,99 @@
+//! `rchold window`: the firmware pass window in ticks, as text, a Rust
+//! constant, JSON, or the binary blob the firmware loads with
+//! `hold_firmware::Config::from_blob`.
+
+use std::fmt::Write as _;
+
+use hold_firmware::Config;
+use rc_model::Model;
+use serde_json::json;
+
+use crate::eval::si;
+use crate::stagefile::StageFile;
+
+/// How to write the window.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Emit {
+    /// A readable table.
+    Text,
+    /// A Rust `const` of `hold_firmware::Config`.
+    Rust,
+    /// JSON.
+    Json,
+    /// The 80-byte blob with its CRC.
+    Bin,
+}
+
+/// The firmware settings for a stage file: its window over every corner in
+/// the file (tolerances, temperature range, aging), widened by `guard_ppm`,
+/// one tick of quantisation and one poll of latency on each side.
+///
+/// # Errors
+/// A one-line message when the stage or a corner cannot be evaluated.
+pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Config, String> {
+    let model = Model::new(&sf.stage).map_err(|e| sf.model_error(e).to_string())?;
+    let window = sf.spread.window(&sf.stage).map_err(|f| {
+        format!("{}: the corner {} fails: {}", sf.path.display(), crate::eval::corner_text(f.corner), f.error)
+    })?;
+    Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns).map_err(|e| format!("{}: {e}", sf.path.display()))
+}
+
+/// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).
+#[must_use]
+pub fn render(c: &Config, emit: Emit, name: &str) -> String {
+    let secs = |t: u64| t as f64 / f64::from(c.clock_hz);
+    match emit {
+        Emit::Text => {
+            let mut o = String::new();
+            let _ = writeln!(o, "firmware window for {name} at {}", si(f64::from(c.clock_hz), "Hz"));
+            let row = |o: &mut String, label: &str, t: u64| {
+                let _ = writeln!(o, "  {label:<22} {t:>14} ticks  ({})", si(secs(t), "s"));
+            };
+            row(&mut o, "pass from", c.hold_min_ticks);
+            row(&mut o, "pass to", c.hold_max_ticks);
+            row(&mut o, "press", c.press_ticks);
+            row(&mut o, "turn-on timeout", c.on_timeout_ticks);
+            row(&mut o, "hold timeout", c.hold_timeout_ticks);
+            row(&mut o, "idle check", c.settle_ticks);
+            row(&mut o, "glitch filter", c.glitch_ticks);
+            let _ = writeln!(o, "  {:<22} {:>14} ns", "poll every", c.poll_ns);
+            let _ = writeln!(o, "  {:<22} {:>14} level changes", "chatter above", c.chatter_limit);
+            o
+        }
+        Emit::Rust => format!(
+            "/// Hold-stage test window for {name}, made by `rchold window`.\n\
+             pub const HOLD_WINDOW: hold_firmware::Config = hold_firmware::Config {{\n    \
+             clock_hz: {},\n    settle_ticks: {},\n    press_ticks: {},\n    glitch_ticks: {},\n    poll_ns: {},\n    \
+             on_timeout_ticks: {},\n    hold_min_ticks: {},\n    hold_max_ticks: {},\n    hold_timeout_ticks: {},\n    \
+             chatter_limit: {},\n}};\n",
+            c.clock_hz,
+            c.settle_ticks,
+            c.press_ticks,
+            c.glitch_ticks,
+            c.poll_ns,
+            c.on_timeout_ticks,
+            c.hold_min_ticks,
+            c.hold_max_ticks,
+            c.hold_timeout_ticks,
+            c.chatter_limit
+        ),
+        Emit::Json | Emit::Bin => {
+            let v = json!({
+                "stage": name,
+                "clock_hz": c.clock_hz,
+                "settle_ticks": c.settle_ticks,
+                "press_ticks": c.press_ticks,
+                "glitch_ticks": c.glitch_ticks,
+                "poll_ns": c.poll_ns,
+                "on_timeout_ticks": c.on_timeout_ticks,
+                "hold_min_ticks": c.hold_min_ticks,
+                "hold_max_ticks": c.hold_max_ticks,
+                "hold_timeout_ticks": c.hold_timeout_ticks,
+                "chatter_limit": c.chatter_limit,
+                "hold_min_s": secs(c.hold_min_ticks),
+                "hold_max_s": secs(c.hold_max_ticks),
+            });
+            format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default())
+        }
+    }
+}
