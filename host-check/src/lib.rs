@@ -6,6 +6,7 @@ pub mod eval;
 pub mod fixture;
 pub mod netlist;
 pub mod reference;
+pub mod spread;
 pub mod stagefile;
 pub mod stats;
 pub mod twin;

@@ -51,6 +51,35 @@ enum Command {
         #[arg(long)]
         out: Option<PathBuf>,
     },
+    /// How the hold spreads over the tolerances: worst case, root-sum-square and Monte Carlo.
+    Spread {
+        /// The stage file (TOML).
+        stage: PathBuf,
+        /// Monte Carlo samples.
+        #[arg(long, default_value_t = 100_000)]
+        samples: usize,
+        /// Seed of the draws (results do not depend on the thread count).
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// How a tolerance is read: uniform, or normal with the tolerance at --k-sigma.
+        #[arg(long, default_value = "uniform", value_parser = ["uniform", "normal"])]
+        dist: String,
+        /// Standard deviations a tolerance spans when --dist normal.
+        #[arg(long, default_value_t = 3.0)]
+        k_sigma: f64,
+        /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2").
+        #[arg(long)]
+        spec: Option<String>,
+        /// Age the capacitor this many years first (class 2 law from the stage file's [aging]).
+        #[arg(long)]
+        years: Option<f64>,
+        /// Write a histogram with the window and spec marked (SVG).
+        #[arg(long, value_name = "FILE")]
+        plot: Option<PathBuf>,
+        /// Print JSON instead of the text report.
+        #[arg(long)]
+        json: bool,
+    },
     /// Sweep the whole supported domain and report how far the fixed-point and f32 models stray from the f64 reference.
     Agree {
         /// Random points on top of the log-spaced grid.
@@ -188,6 +217,88 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     }
                 }
             }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Spread { stage, samples, seed, dist, k_sigma, spec, years, plot, json } => {
+            let mut sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
+            if !(1..=100_000_000).contains(&samples) {
+                return Err(BadInput(format!("--samples {samples}: out of range (accepted: 1 to 100000000)")).into());
+            }
+            let dist = if dist == "normal" {
+                if !(k_sigma > 0.0 && k_sigma <= 10.0) {
+                    return Err(
+                        BadInput(format!("--k-sigma {k_sigma}: out of range (accepted: above 0 up to 10)")).into()
+                    );
+                }
+                host_check::spread::Dist::Normal { k_sigma }
+            } else {
+                host_check::spread::Dist::Uniform
+            };
+            let spec = match &spec {
+                None => None,
+                Some(text) => {
+                    let bad = |why: String| {
+                        BadInput(format!("--spec {text:?}: {why} (accepted: LOW..HIGH in seconds, LOW < HIGH)"))
+                    };
+                    let (a, b) = text.split_once("..").ok_or_else(|| bad("no \"..\"".into()))?;
+                    let a = host_check::values::parse_value(a, &["s"]).map_err(|e| bad(e.to_string()))?;
+                    let b = host_check::values::parse_value(b, &["s"]).map_err(|e| bad(e.to_string()))?;
+                    if !(a >= 0.0 && a < b) {
+                        return Err(bad("LOW must be below HIGH".into()).into());
+                    }
+                    Some((a, b))
+                }
+            };
+            if let Some(y) = years {
+                if !(0.0..=50.0).contains(&y) {
+                    return Err(BadInput(format!("--years {y}: out of range (accepted: 0 to 50)")).into());
+                }
+                match sf.spread.aging {
+                    Some(rc_model::window::Aging::Class2 { k_milli_pct, ref_hours, .. }) => {
+                        let hours = (y * 8_766.0).round() as u32;
+                        let left = rc_model::window::Aging::Class2 { k_milli_pct, ref_hours, hours }
+                            .remaining_ppm()
+                            .map_err(|e| BadInput(format!("--years {y}: {e}")))?;
+                        sf.stage.c_ff = sf.stage.c_ff * u64::from(left) / 1_000_000;
+                        sf.spread.aging = None;
+                    }
+                    _ => {
+                        return Err(BadInput(format!(
+                            "--years needs [aging] kind = \"class2\" in {} (the law that gives capacitance at an age)",
+                            stage.display()
+                        ))
+                        .into())
+                    }
+                }
+            }
+            let window = sf.spread.window(&sf.stage).ok();
+            let rss = host_check::spread::rss(&sf.stage, &sf.spread, dist)
+                .map_err(|e| BadInput(sf.model_error(e).to_string()))?;
+            let tty = std::io::IsTerminal::is_terminal(&std::io::stderr());
+            let progress = move |done: usize, total: usize| {
+                if tty {
+                    let width = 30;
+                    let filled = done * width / total.max(1);
+                    eprint!("\r  [{}{}] {done}/{total}", "#".repeat(filled), ".".repeat(width - filled));
+                }
+            };
+            let mc = host_check::spread::monte_carlo(&sf.stage, &sf.spread, dist, samples, seed, &progress);
+            if tty {
+                eprintln!();
+            }
+            let cap = spec.map(|(a, b)| host_check::spread::capability(&mc, a, b));
+            let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
+            if let Some(path) = &plot {
+                let svg = host_check::spread::histogram_svg(
+                    &mc,
+                    window.as_ref(),
+                    spec,
+                    &format!("hold of {name}, {samples} boards"),
+                );
+                std::fs::write(path, svg).with_context(|| format!("writing {}", path.display()))?;
+            }
+            let text = host_check::spread::render(&name, &mc, rss, window.as_ref(), spec, cap.as_ref(), json);
+            emit(&text)?;
             Ok(ExitCode::SUCCESS)
         }
         Command::Agree { points, seed, json, fail_above } => {

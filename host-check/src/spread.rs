@@ -1,0 +1,379 @@
+//! `rchold spread`: how the hold spreads over the parts' tolerances —
+//! worst case over every corner, root-sum-square, and Monte Carlo with
+//! percentiles and process capability against a specification window.
+//!
+//! Monte Carlo draws every toleranced parameter independently: uniformly
+//! within its tolerance, or normally with the tolerance at `k_sigma`
+//! standard deviations (clipped to the tolerance). Thresholds are drawn
+//! inside their bands, temperature uniformly over the file's range. Sample
+//! `i` uses its own generator seeded from (seed, i), so a run is
+//! reproducible whatever the number of threads. Each sample is evaluated by
+//! the fixed-point model.
+
+use rand::{Rng, SeedableRng};
+use rand_xoshiro::Xoshiro256PlusPlus;
+use rayon::prelude::*;
+use rc_model::window::{Spread, ThresholdSpread, Tolerance, Window};
+use rc_model::{Diode, Model, Stage};
+use serde::Serialize;
+
+use crate::eval::secs;
+use crate::stats::{self, Capability};
+
+/// How each tolerance is read.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Dist {
+    /// Uniform over the tolerance.
+    Uniform,
+    /// Normal with the tolerance at `k_sigma` standard deviations, clipped there.
+    Normal {
+        /// How many σ the tolerance spans.
+        k_sigma: f64,
+    },
+}
+
+/// Monte Carlo result.
+#[derive(Debug, Clone, Serialize)]
+pub struct Monte {
+    /// Samples drawn.
+    pub samples: usize,
+    /// Samples the model refused (the stage does not work there).
+    pub refused: usize,
+    /// Mean hold, s.
+    pub mean_s: f64,
+    /// Sample standard deviation, s.
+    pub sd_s: f64,
+    /// Shortest and longest hold, s.
+    pub min_s: f64,
+    /// Longest hold, s.
+    pub max_s: f64,
+    /// (percent, hold in s) for 0.135, 1, 5, 50, 95, 99, 99.865 %.
+    pub percentiles: Vec<(f64, f64)>,
+    /// Sorted holds (kept for plots and tests; not serialised).
+    #[serde(skip)]
+    pub holds: Vec<f64>,
+}
+
+fn draw_factor<R: Rng>(rng: &mut R, t: Tolerance, dist: Dist) -> f64 {
+    let (lo, hi) = (-f64::from(t.minus_ppm) * 1e-6, f64::from(t.plus_ppm) * 1e-6);
+    if lo == 0.0 && hi == 0.0 {
+        return 1.0;
+    }
+    let x = match dist {
+        Dist::Uniform => rng.random_range(lo..=hi),
+        Dist::Normal { k_sigma } => {
+            // Box–Muller; the half-width of the side drawn sets σ.
+            let u1: f64 = rng.random_range(f64::EPSILON..1.0);
+            let u2: f64 = rng.random();
+            let z = (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos();
+            let half = if z < 0.0 { -lo } else { hi };
+            (z * half / k_sigma).clamp(lo, hi)
+        }
+    };
+    1.0 + x
+}
+
+fn draw_band<R: Rng>(rng: &mut R, band: (u32, u32), dist: Dist) -> u32 {
+    let (lo, hi) = (f64::from(band.0), f64::from(band.1));
+    let mid = 0.5 * (lo + hi);
+    let half = 0.5 * (hi - lo);
+    let f = draw_factor(rng, Tolerance::symmetric(1_000_000), dist) - 1.0;
+    (mid + f * half).round() as u32
+}
+
+/// One random board.
+#[must_use]
+pub fn draw(nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, index: u64) -> Stage {
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed ^ index.wrapping_mul(0x9E37_79B9_7F4A_7C15));
+    let mut s = *nominal;
+    s.r_mohm = (s.r_mohm as f64 * draw_factor(&mut rng, spread.r, dist)).round() as u64;
+    s.c_ff = (s.c_ff as f64 * draw_factor(&mut rng, spread.c, dist)).round() as u64;
+    let k = draw_factor(&mut rng, spread.vdd, dist);
+    s.vdd_uv = (f64::from(s.vdd_uv) * k).round() as u32;
+    s.driver_mohm = (s.driver_mohm as f64 * draw_factor(&mut rng, spread.driver, dist)).round() as u64;
+    let d = draw_factor(&mut rng, spread.diode, dist);
+    s.diode = match s.diode {
+        Diode::Drop { drop_uv } => Diode::Drop { drop_uv: (f64::from(drop_uv) * d).round() as u32 },
+        Diode::Junction { is_fa, n_milli, rs_mohm } => {
+            Diode::Junction { is_fa: ((is_fa as f64) * d).round().max(1.0) as u64, n_milli, rs_mohm }
+        }
+    };
+    // Thresholds are fractions of the supply: bands and the stage's own scale with it.
+    let scale = |v: u32| (f64::from(v) * k).round() as u32;
+    match spread.thresholds {
+        None => {
+            s.rise_uv = scale(s.rise_uv);
+            s.fall_uv = scale(s.fall_uv);
+        }
+        Some(ThresholdSpread::Single { min_uv, max_uv }) => {
+            s.rise_uv = scale(draw_band(&mut rng, (min_uv, max_uv), dist));
+            s.fall_uv = s.rise_uv;
+        }
+        Some(ThresholdSpread::Schmitt { rise_uv, fall_uv }) => {
+            s.rise_uv = scale(draw_band(&mut rng, rise_uv, dist));
+            s.fall_uv = scale(draw_band(&mut rng, fall_uv, dist)).min(s.rise_uv);
+        }
+    }
+    if let Some((lo, hi)) = spread.temp_mdeg_c {
+        let t = rng.random_range(lo..=hi);
+        if let Ok(at) = spread.at_temperature(&s, t) {
+            s = at;
+        }
+    }
+    s
+}
+
+/// Hold of one board, s (`None` where the model refuses).
+#[must_use]
+pub fn hold_s(s: &Stage) -> Option<f64> {
+    Model::new(s).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold))
+}
+
+/// Runs the Monte Carlo. `progress` is called with (done, total) now and then.
+#[must_use]
+pub fn monte_carlo(
+    nominal: &Stage,
+    spread: &Spread,
+    dist: Dist,
+    samples: usize,
+    seed: u64,
+    progress: &(dyn Fn(usize, usize) + Sync),
+) -> Monte {
+    let done = std::sync::atomic::AtomicUsize::new(0);
+    let chunk = 65_536usize;
+    let mut holds: Vec<Option<f64>> = (0..samples.div_ceil(chunk))
+        .into_par_iter()
+        .flat_map_iter(|c| {
+            let start = c * chunk;
+            let end = (start + chunk).min(samples);
+            let out: Vec<Option<f64>> =
+                (start..end).map(|i| hold_s(&draw(nominal, spread, dist, seed, i as u64))).collect();
+            let n = done.fetch_add(end - start, std::sync::atomic::Ordering::Relaxed) + (end - start);
+            progress(n, samples);
+            out
+        })
+        .collect();
+    let refused = holds.iter().filter(|h| h.is_none()).count();
+    let mut v: Vec<f64> = holds.drain(..).flatten().collect();
+    v.par_sort_unstable_by(f64::total_cmp);
+    let (mean, sd) = stats::mean_sd(&v);
+    let pct = |p: f64| {
+        if v.is_empty() {
+            return f64::NAN;
+        }
+        // Linear interpolation between order statistics (the common "type 7" rule).
+        let h = (v.len() - 1) as f64 * p / 100.0;
+        let (i, f) = (h.floor() as usize, h - h.floor());
+        let a = v.get(i).copied().unwrap_or(f64::NAN);
+        let b = v.get(i + 1).copied().unwrap_or(a);
+        a + f * (b - a)
+    };
+    let percentiles = [0.135, 1.0, 5.0, 50.0, 95.0, 99.0, 99.865].iter().map(|&p| (p, pct(p))).collect();
+    Monte {
+        samples,
+        refused,
+        mean_s: mean,
+        sd_s: sd,
+        min_s: v.first().copied().unwrap_or(f64::NAN),
+        max_s: v.last().copied().unwrap_or(f64::NAN),
+        percentiles,
+        holds: v,
+    }
+}
+
+/// Root-sum-square spread: each parameter moved alone to both ends of its
+/// tolerance (one-at-a-time corners of [`Spread::at_corner`]); its standard
+/// deviation is the half-range over √3 (uniform) or over k (normal at k σ).
+/// Returns (nominal hold, σ), s.
+///
+/// # Errors
+/// The model's error at the first corner it cannot evaluate.
+pub fn rss(nominal: &Stage, spread: &Spread, dist: Dist) -> Result<(f64, f64), rc_model::Error> {
+    let h0 = Model::new(nominal).and_then(|m| m.evaluate()).map(|e| secs(e.hold))?;
+    let active = spread.active();
+    let mut var = 0.0;
+    for bit in 0..16u16 {
+        if active & (1 << bit) == 0 {
+            continue;
+        }
+        let at = |high: bool| -> Result<f64, rc_model::Error> {
+            let corner = rc_model::window::Corner { high: if high { 1 << bit } else { 0 }, active: 1 << bit };
+            let s = spread.at_corner(nominal, corner)?;
+            Model::new(&s).and_then(|m| m.evaluate()).map(|e| secs(e.hold))
+        };
+        let half = 0.5 * (at(true)? - at(false)?).abs();
+        let sigma = match dist {
+            Dist::Uniform => half / 3f64.sqrt(),
+            Dist::Normal { k_sigma } => half / k_sigma,
+        };
+        var += sigma * sigma;
+    }
+    Ok((h0, var.sqrt()))
+}
+
+/// Process capability of the Monte Carlo holds against a spec (NIST/SEMATECH
+/// e-Handbook §6.1.6).
+#[must_use]
+pub fn capability(m: &Monte, lsl_s: f64, usl_s: f64) -> Capability {
+    stats::capability(lsl_s, usl_s, m.mean_s, m.sd_s)
+}
+
+/// A histogram of the holds as a self-contained SVG, with the worst-case
+/// window (dashed) and the spec limits (solid) marked.
+#[must_use]
+pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)>, title: &str) -> String {
+    use std::fmt::Write as _;
+    let (w, h, pad) = (720.0, 360.0, 48.0);
+    let mut lo = m.min_s;
+    let mut hi = m.max_s;
+    if let Some(win) = window {
+        lo = lo.min(secs(win.min));
+        hi = hi.max(secs(win.max));
+    }
+    if let Some((a, b)) = spec {
+        lo = lo.min(a);
+        hi = hi.max(b);
+    }
+    let span = (hi - lo).max(1e-30);
+    let (lo, hi) = (lo - 0.03 * span, hi + 0.03 * span);
+    let bins = 60usize;
+    let mut counts = vec![0u64; bins];
+    for &v in &m.holds {
+        let i = (((v - lo) / (hi - lo)) * bins as f64).floor().clamp(0.0, (bins - 1) as f64) as usize;
+        if let Some(c) = counts.get_mut(i) {
+            *c += 1;
+        }
+    }
+    let top = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
+    let x = |v: f64| pad + (v - lo) / (hi - lo) * (w - 2.0 * pad);
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" font-family="sans-serif" font-size="12">"#
+    );
+    let _ = writeln!(s, r##"<rect width="{w}" height="{h}" fill="#ffffff"/>"##);
+    let _ = writeln!(s, r#"<text x="{pad}" y="20" font-size="14">{}</text>"#, xml(title));
+    let bw = (w - 2.0 * pad) / bins as f64;
+    for (i, c) in counts.iter().enumerate() {
+        let bh = (*c as f64 / top) * (h - 2.0 * pad - 20.0);
+        let _ = writeln!(
+            s,
+            r##"<rect x="{:.2}" y="{:.2}" width="{:.2}" height="{:.2}" fill="#5b7fa6"/>"##,
+            pad + i as f64 * bw,
+            h - pad - bh,
+            (bw - 1.0).max(0.5),
+            bh
+        );
+    }
+    let _ = writeln!(s, r##"<line x1="{pad}" y1="{}" x2="{}" y2="{}" stroke="#333"/>"##, h - pad, w - pad, h - pad);
+    for k in 0..=4 {
+        let v = lo + (hi - lo) * f64::from(k) / 4.0;
+        let _ = writeln!(
+            s,
+            r#"<text x="{:.1}" y="{}" text-anchor="middle">{}</text>"#,
+            x(v),
+            h - pad + 16.0,
+            xml(&crate::eval::si(v, "s"))
+        );
+    }
+    let mut mark = |v: f64, label: &str, colour: &str, dash: &str| {
+        let _ = writeln!(
+            s,
+            r#"<line x1="{0:.2}" y1="{1}" x2="{0:.2}" y2="{2}" stroke="{colour}" stroke-width="2" {dash}/>"#,
+            x(v),
+            pad,
+            h - pad
+        );
+        let _ = writeln!(
+            s,
+            r#"<text x="{:.2}" y="{}" fill="{colour}" text-anchor="middle">{}</text>"#,
+            x(v),
+            pad - 4.0,
+            xml(label)
+        );
+    };
+    if let Some(win) = window {
+        mark(secs(win.min), "worst-case min", "#b35c00", r#"stroke-dasharray="6 4""#);
+        mark(secs(win.max), "worst-case max", "#b35c00", r#"stroke-dasharray="6 4""#);
+    }
+    if let Some((a, b)) = spec {
+        mark(a, "spec low", "#a01010", "");
+        mark(b, "spec high", "#a01010", "");
+    }
+    let _ = writeln!(s, "</svg>");
+    s
+}
+
+fn xml(t: &str) -> String {
+    t.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+}
+
+/// The report, as text or JSON.
+#[must_use]
+pub fn render(
+    name: &str,
+    m: &Monte,
+    (nominal_s, rss_sd_s): (f64, f64),
+    window: Option<&Window>,
+    spec: Option<(f64, f64)>,
+    cap: Option<&Capability>,
+    json: bool,
+) -> String {
+    use crate::eval::{corner_text, si};
+    use std::fmt::Write as _;
+    if json {
+        let v = serde_json::json!({
+            "stage": name,
+            "nominal_s": nominal_s,
+            "worst_case": window.map(|w| serde_json::json!({
+                "min_s": secs(w.min), "max_s": secs(w.max),
+                "min_corner": corner_text(w.min_corner), "max_corner": corner_text(w.max_corner), "corners": w.corners,
+            })),
+            "rss_sd_s": rss_sd_s,
+            "monte_carlo": m,
+            "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
+            "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
+        });
+        return format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default());
+    }
+    let mut o = String::new();
+    let _ = writeln!(o, "hold spread \u{b7} {name}");
+    let line = |o: &mut String, label: &str, value: String| {
+        let dots = 32usize.saturating_sub(label.chars().count());
+        let _ = writeln!(o, "  {label} {} {value}", ".".repeat(dots));
+    };
+    line(&mut o, "nominal", si(nominal_s, "s"));
+    if let Some(w) = window {
+        line(
+            &mut o,
+            &format!("worst case over {} corners", w.corners),
+            format!("{} to {}", si(secs(w.min), "s"), si(secs(w.max), "s")),
+        );
+        let _ = writeln!(o, "    shortest at {}", corner_text(w.min_corner));
+        let _ = writeln!(o, "    longest at  {}", corner_text(w.max_corner));
+    }
+    line(
+        &mut o,
+        "root-sum-square",
+        format!("σ {} ({:.2} % of nominal)", si(rss_sd_s, "s"), 100.0 * rss_sd_s / nominal_s),
+    );
+    line(
+        &mut o,
+        &format!("Monte Carlo, {} boards", m.samples),
+        format!("mean {} \u{b7} σ {} \u{b7} {} refused", si(m.mean_s, "s"), si(m.sd_s, "s"), m.refused),
+    );
+    for (p, v) in &m.percentiles {
+        let _ = writeln!(o, "    {:>7} % of boards hold less than {}", format!("{p}"), si(*v, "s"));
+    }
+    if let (Some((a, b)), Some(c)) = (spec, cap) {
+        line(
+            &mut o,
+            &format!("against {} to {}", si(a, "s"), si(b, "s")),
+            format!("Cp {:.3} \u{b7} Cpk {:.3} (NIST/SEMATECH e-Handbook §6.1.6)", c.cp, c.cpk),
+        );
+        let outside = m.holds.iter().filter(|&&v| v < a || v > b).count();
+        let _ = writeln!(o, "    {outside} of {} simulated boards fall outside", m.holds.len());
+    }
+    let _ = writeln!(o, "\n  note: {}", crate::eval::CAUTION);
+    o
+}

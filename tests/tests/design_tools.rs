@@ -1,0 +1,127 @@
+//! The design tools: worst case, root-sum-square and Monte Carlo against each
+//! other and against reference distributions (the `statrs` crate).
+
+use host_check::spread::{self, Dist};
+use rc_model::window::{Spread, Tempco, ThresholdSpread, Tolerance};
+use rc_model::{Diode, Model, Stage};
+use statrs::distribution::{ContinuousCDF, Normal, Uniform};
+
+fn stage() -> Stage {
+    Stage {
+        vdd_uv: 5_000_000,
+        r_mohm: 1_000_000_000,
+        c_ff: 1_000_000_000,
+        series_mohm: 0,
+        charge_mohm: 0,
+        driver_mohm: 50_000,
+        leak_mohm: None,
+        leak_fa: 0,
+        diode: Diode::Drop { drop_uv: 600_000 },
+        rise_uv: 2_900_000,
+        fall_uv: 2_100_000,
+        press_ns: 100_000_000,
+        temp_mdeg_c: 25_000,
+    }
+}
+
+fn nominal_hold() -> f64 {
+    spread::hold_s(&stage()).unwrap_or(f64::NAN)
+}
+
+/// Invariant: the worst case over every corner contains every Monte Carlo board.
+#[test]
+fn worst_case_contains_every_monte_carlo_sample() {
+    let sp = Spread {
+        r: Tolerance::symmetric(10_000),
+        c: Tolerance { minus_ppm: 200_000, plus_ppm: 800_000 },
+        vdd: Tolerance::symmetric(50_000),
+        diode: Tolerance::symmetric(80_000),
+        driver: Tolerance::symmetric(300_000),
+        thresholds: Some(ThresholdSpread::Schmitt { rise_uv: (2_600_000, 3_500_000), fall_uv: (1_500_000, 2_400_000) }),
+        temp_mdeg_c: Some((-20_000, 70_000)),
+        tempco: Tempco { r_ppm_per_c: 100, c_ppm_per_c: -750, ..Tempco::default() },
+        ..Spread::default()
+    };
+    let w = sp.window(&stage()).unwrap_or_else(|f| panic!("{f:?}"));
+    let (lo, hi) = (host_check::eval::secs(w.min), host_check::eval::secs(w.max));
+    for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+        let m = spread::monte_carlo(&stage(), &sp, dist, 50_000, 9, &|_, _| {});
+        assert_eq!(m.refused, 0);
+        assert!(
+            m.min_s >= lo * (1.0 - 1e-9) && m.max_s <= hi * (1.0 + 1e-9),
+            "{dist:?}: {} … {} outside {lo} … {hi}",
+            m.min_s,
+            m.max_s
+        );
+        // …and reaches well into it.
+        assert!(m.max_s - m.min_s > 0.5 * (hi - lo), "{dist:?}: {} … {}", m.min_s, m.max_s);
+    }
+}
+
+/// Invariant: for small tolerances the root-sum-square σ equals the Monte Carlo σ.
+#[test]
+fn rss_sigma_matches_monte_carlo_for_small_tolerances() {
+    let sp = Spread {
+        r: Tolerance::symmetric(10_000),
+        c: Tolerance::symmetric(20_000),
+        vdd: Tolerance::symmetric(10_000),
+        diode: Tolerance::symmetric(20_000),
+        ..Spread::default()
+    };
+    for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+        let (h0, sd) = spread::rss(&stage(), &sp, dist).unwrap_or_else(|e| panic!("{e}"));
+        let m = spread::monte_carlo(&stage(), &sp, dist, 200_000, 3, &|_, _| {});
+        assert!((h0 - nominal_hold()).abs() < 1e-12);
+        assert!((sd - m.sd_s).abs() < 0.02 * sd, "{dist:?}: RSS {sd} vs MC {}", m.sd_s);
+        assert!((m.mean_s - h0).abs() < 0.002 * h0, "{dist:?}: mean {} vs {h0}", m.mean_s);
+    }
+}
+
+/// Percentiles of a known distribution: with only R toleranced, the hold is
+/// R·C·ln(…) and so inherits R's distribution (the R-dependence of the ln
+/// term through the 50 Ω driver is 50 ppm). Compared with `statrs` quantiles
+/// of the uniform and normal distributions.
+#[test]
+fn percentiles_match_reference_quantiles() {
+    let h0 = nominal_hold();
+    let n = 400_000;
+    let sp = Spread { r: Tolerance::symmetric(100_000), ..Spread::default() };
+    let m = spread::monte_carlo(&stage(), &sp, Dist::Uniform, n, 21, &|_, _| {});
+    let u = Uniform::new(0.9 * h0, 1.1 * h0).unwrap_or_else(|e| panic!("{e}"));
+    for (p, v) in &m.percentiles {
+        let want = u.inverse_cdf(p / 100.0);
+        assert!((v - want).abs() < 0.002 * h0, "uniform {p} %: {v} vs {want}");
+    }
+    let m = spread::monte_carlo(&stage(), &sp, Dist::Normal { k_sigma: 3.0 }, n, 22, &|_, _| {});
+    let g = Normal::new(h0, 0.1 * h0 / 3.0).unwrap_or_else(|e| panic!("{e}"));
+    for (p, v) in m.percentiles.iter().filter(|(p, _)| (1.0..=99.0).contains(p)) {
+        let want = g.inverse_cdf(p / 100.0);
+        assert!((v - want).abs() < 0.002 * h0, "normal {p} %: {v} vs {want}");
+    }
+}
+
+/// Results do not depend on how the work is split across threads.
+#[test]
+fn monte_carlo_is_deterministic_for_a_seed() {
+    let sp = Spread { r: Tolerance::symmetric(10_000), c: Tolerance::symmetric(100_000), ..Spread::default() };
+    let a = spread::monte_carlo(&stage(), &sp, Dist::Uniform, 100_000, 5, &|_, _| {});
+    let pool = rayon::ThreadPoolBuilder::new().num_threads(1).build().unwrap_or_else(|e| panic!("{e}"));
+    let b = pool.install(|| spread::monte_carlo(&stage(), &sp, Dist::Uniform, 100_000, 5, &|_, _| {}));
+    assert_eq!(a.holds, b.holds);
+    let c = spread::monte_carlo(&stage(), &sp, Dist::Uniform, 100_000, 6, &|_, _| {});
+    assert_ne!(a.holds, c.holds);
+}
+
+/// The histogram is a well-formed SVG with the window and spec marked.
+#[test]
+fn histogram_marks_window_and_spec() {
+    let sp = Spread { r: Tolerance::symmetric(10_000), c: Tolerance::symmetric(100_000), ..Spread::default() };
+    let m = spread::monte_carlo(&stage(), &sp, Dist::Uniform, 10_000, 5, &|_, _| {});
+    let w = sp.window(&stage()).ok();
+    let svg = spread::histogram_svg(&m, w.as_ref(), Some((0.6, 0.9)), "test <stage>");
+    assert!(svg.starts_with("<svg") && svg.trim_end().ends_with("</svg>"));
+    assert_eq!(svg.matches("worst-case").count(), 2);
+    assert_eq!(svg.matches("spec ").count(), 2);
+    assert!(svg.contains("test &lt;stage&gt;"));
+    assert!(Model::new(&stage()).is_ok());
+}
