@@ -5,6 +5,7 @@ pub mod eseries;
 pub mod eval;
 pub mod fixture;
 pub mod netlist;
+pub mod pick;
 pub mod reference;
 pub mod spread;
 pub mod stagefile;

@@ -51,6 +51,45 @@ enum Command {
         #[arg(long)]
         out: Option<PathBuf>,
     },
+    /// Choose R and C from preferred-number series for a target hold and tolerance.
+    Pick {
+        /// Wanted hold ("30s", "850m").
+        #[arg(long)]
+        hold: String,
+        /// Allowed spread each way, worst case ("15%").
+        #[arg(long, default_value = "15%")]
+        within: String,
+        /// Series for R (E3 … E192).
+        #[arg(long, default_value = "E24")]
+        r_series: String,
+        /// Resistor tolerance ("1%").
+        #[arg(long, default_value = "1%")]
+        r_tol: String,
+        /// Series for C (E3 … E192).
+        #[arg(long, default_value = "E12")]
+        c_series: String,
+        /// Input family of the second inverter.
+        #[arg(long, default_value = "hc-schmitt")]
+        input: String,
+        /// Supply, V.
+        #[arg(long, default_value = "3.3")]
+        vdd: String,
+        /// Supply tolerance ("5%").
+        #[arg(long, default_value = "5%")]
+        vdd_tol: String,
+        /// Diode forward drop, V.
+        #[arg(long, default_value = "0.6")]
+        diode: String,
+        /// Driver output resistance, Ω.
+        #[arg(long, default_value = "50")]
+        driver: String,
+        /// How many candidates to show.
+        #[arg(long, default_value_t = 5)]
+        top: usize,
+        /// Print JSON instead of the text report.
+        #[arg(long)]
+        json: bool,
+    },
     /// How the hold spreads over the tolerances: worst case, root-sum-square and Monte Carlo.
     Spread {
         /// The stage file (TOML).
@@ -218,6 +257,54 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 }
             }
             Ok(ExitCode::SUCCESS)
+        }
+        Command::Pick { hold, within, r_series, r_tol, c_series, input, vdd, vdd_tol, diode, driver, top, json } => {
+            use host_check::values::{parse_tolerance, parse_value, Tol};
+            let bad = |opt: &str, v: &str, range: &str, why: String| {
+                BadInput(format!("--{opt} {v:?}: {why} (accepted: {range})"))
+            };
+            let value = |opt: &str, v: &str, unit: &[&str], lo: f64, hi: f64, range: &str| -> Result<f64, BadInput> {
+                let x = parse_value(v, unit).map_err(|e| bad(opt, v, range, e.to_string()))?;
+                if x.is_nan() || x < lo || x > hi {
+                    return Err(bad(opt, v, range, "out of range".into()));
+                }
+                Ok(x)
+            };
+            let pct = |opt: &str, v: &str, hi: f64| -> Result<f64, BadInput> {
+                match parse_tolerance(v, &[]) {
+                    Ok(Tol::Relative(f)) if f > 0.0 && f <= hi => Ok(f),
+                    Ok(_) => Err(bad(
+                        opt,
+                        v,
+                        &format!("above 0 % up to {} %", hi * 100.0),
+                        "give a percentage in range".into(),
+                    )),
+                    Err(e) => Err(bad(opt, v, &format!("above 0 % up to {} %", hi * 100.0), e.to_string())),
+                }
+            };
+            let series = |opt: &str, v: &str| {
+                host_check::eseries::Series::parse(v)
+                    .ok_or_else(|| bad(opt, v, "E3, E6, E12, E24, E48, E96, E192", "unknown series".into()))
+            };
+            let hold_s = value("hold", &hold, &["s"], 1e-6, 86_400.0, "1 µs to 24 h")?;
+            let vdd_v = value("vdd", &vdd, &["V"], 1.6, 18.0, "1.6 V to 18 V")?;
+            let drop_v = value("diode", &diode, &["V"], 0.0, 2.0, "0 V to 2 V")?;
+            let driver_ohm = value("driver", &driver, &["Ω", "ohm"], 0.0, 1e6, "0 Ω to 1 MΩ")?;
+            let (template, thresholds) =
+                host_check::pick::template(vdd_v, drop_v, driver_ohm, &input).map_err(BadInput)?;
+            let target = host_check::pick::Target {
+                hold_s,
+                within: pct("within", &within, 0.9)?,
+                r_series: series("r-series", &r_series)?,
+                r_tol_ppm: (pct("r-tol", &r_tol, 0.5)? * 1e6).round() as u32,
+                c_series: series("c-series", &c_series)?,
+                template,
+                vdd_tol_ppm: (pct("vdd-tol", &vdd_tol, 0.5)? * 1e6).round() as u32,
+                thresholds,
+            };
+            let found = host_check::pick::pick(&target);
+            emit(&host_check::pick::render(&target, &found, top, &input, json))?;
+            Ok(if found.is_empty() { ExitCode::from(1) } else { ExitCode::SUCCESS })
         }
         Command::Spread { stage, samples, seed, dist, k_sigma, spec, years, plot, json } => {
             let mut sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;

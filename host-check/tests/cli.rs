@@ -225,3 +225,59 @@ fn window_blob_round_trips_through_the_firmware_loader() {
     assert_eq!(bad_clock.status.code(), Some(2));
     assert!(text(&bad_clock.stderr).contains("--clock \"fast\""), "{}", text(&bad_clock.stderr));
 }
+
+#[test]
+fn spread_reports_worst_case_rss_monte_carlo_and_capability() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(dir.path(), &["spread", "stage.toml", "--samples", "5000", "--spec", "500m..1.3", "--plot", "h.svg"]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    for want in [
+        "hold spread \u{b7} Test stage",
+        "worst case over 16 corners",
+        "root-sum-square",
+        "Monte Carlo, 5000 boards",
+        "Cp ",
+        "note: timing only",
+    ] {
+        assert!(stdout.contains(want), "missing {want:?} in:\n{stdout}");
+    }
+    let svg = std::fs::read_to_string(dir.path().join("h.svg")).unwrap_or_default();
+    assert!(svg.starts_with("<svg") && svg.contains("worst-case min"));
+    let json = run(dir.path(), &["spread", "stage.toml", "--samples", "2000", "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&json.stdout).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(v["monte_carlo"]["samples"].as_u64(), Some(2000));
+    assert!(v["rss_sd_s"].as_f64().unwrap_or(0.0) > 0.0);
+    for (args, want) in [
+        (vec!["spread", "stage.toml", "--spec", "1.3..0.5"], "--spec \"1.3..0.5\": LOW must be below HIGH"),
+        (vec!["spread", "stage.toml", "--samples", "0"], "--samples 0: out of range"),
+        (vec!["spread", "stage.toml", "--years", "10"], "--years needs [aging] kind = \"class2\""),
+    ] {
+        let out = run(dir.path(), &args);
+        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        assert!(text(&out.stderr).contains(want), "{args:?}: {}", text(&out.stderr));
+    }
+}
+
+#[test]
+fn pick_lists_parts_or_says_none_fit() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let out = run(dir.path(), &["pick", "--hold", "2m", "--within", "45%", "--vdd", "5", "--top", "3"]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{stdout}{}", text(&out.stderr));
+    assert!(stdout.contains("parts for a 2.000 ms hold within ±45.0 %"), "{stdout}");
+    assert_eq!(
+        stdout.lines().filter(|l| l.contains("C0G") || l.contains("X7R") || l.contains("electrolytic")).count(),
+        3,
+        "{stdout}"
+    );
+    let none = run(dir.path(), &["pick", "--hold", "30s", "--within", "5%"]);
+    assert_eq!(none.status.code(), Some(1));
+    assert!(text(&none.stdout).contains("no pair of preferred values"));
+    let bad = run(dir.path(), &["pick", "--hold", "30 years"]);
+    assert_eq!(bad.status.code(), Some(2));
+    assert!(text(&bad.stderr).contains("--hold \"30 years\""), "{}", text(&bad.stderr));
+    let bad = run(dir.path(), &["pick", "--hold", "1s", "--r-series", "E7"]);
+    assert!(text(&bad.stderr).contains("E3, E6, E12, E24, E48, E96, E192"), "{}", text(&bad.stderr));
+}

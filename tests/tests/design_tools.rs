@@ -125,3 +125,51 @@ fn histogram_marks_window_and_spec() {
     assert!(svg.contains("test &lt;stage&gt;"));
     assert!(Model::new(&stage()).is_ok());
 }
+
+/// Every candidate `pick` reports, recomputed by the independent f64
+/// reference, holds within the asked tolerance, and its worst case does too.
+#[test]
+fn picked_parts_meet_the_target_by_the_reference() {
+    use host_check::eseries::Series;
+    use host_check::pick::{pick, template, Target};
+    use host_check::reference::{evaluate, StageF};
+    let targets = [
+        (2e-3, 0.45, 5.0, "hc-schmitt"),
+        (30.0, 0.5, 3.3, "hc-schmitt"),
+        (0.1, 0.5, 12.0, "4000b-schmitt"),
+        (5.0, 0.6, 5.0, "hc-schmitt"),
+    ];
+    let mut checked = 0;
+    for (hold, within, vdd, input) in targets {
+        let (tpl, thresholds) = template(vdd, 0.6, 50.0, input).unwrap_or_else(|e| panic!("{e}"));
+        let t = Target {
+            hold_s: hold,
+            within,
+            r_series: Series::E24,
+            r_tol_ppm: 10_000,
+            c_series: Series::E12,
+            template: tpl,
+            vdd_tol_ppm: 50_000,
+            thresholds,
+        };
+        let found = pick(&t);
+        assert!(!found.is_empty(), "no parts for {hold} s ±{within}");
+        let (lo, hi) = (hold * (1.0 - within), hold * (1.0 + within));
+        for c in found.iter().take(20) {
+            let mut s = tpl;
+            s.r_mohm = (c.r_ohm * 1e3).round() as u64;
+            s.c_ff = (c.c_f * 1e15).round() as u64;
+            let r = evaluate(&StageF::from(&s)).unwrap_or_else(|e| panic!("{e:?}"));
+            assert!((lo..=hi).contains(&r.hold), "{c:?}: reference hold {}", r.hold);
+            assert!((r.hold - c.hold_s).abs() < 1e-6 * r.hold, "{c:?}: {}", r.hold);
+            assert!(c.min_s >= lo && c.max_s <= hi && c.min_s <= r.hold && r.hold <= c.max_s, "{c:?}");
+            // Every value is a preferred number.
+            let m = c.r_ohm / 10f64.powf(c.r_ohm.log10().floor());
+            assert!(Series::E24.values().iter().any(|v| (v - m).abs() < 1e-9), "{c:?}");
+            checked += 1;
+        }
+        // Best first.
+        assert!(found.windows(2).all(|w| w.first().map(|a| a.margin) >= w.get(1).map(|b| b.margin)));
+    }
+    assert!(checked >= 20, "{checked}");
+}
