@@ -152,3 +152,29 @@ fn agree_sweep_meets_the_bound() {
     assert!(r.fixed.on_latency.max_rel_ppm < 0.1, "{:?}", r.fixed.on_latency);
     assert_eq!(r.fixed.verdict_mismatches, 0);
 }
+
+/// Regression: a 9.35 mF junction stage whose 80 s press ends in the slow
+/// charging tail; the partial-press solve used to give up (no convergence)
+/// because its time integral's truncation noise hid the last bisection steps.
+#[test]
+fn slow_tail_partial_press_settles() {
+    let stage = Stage {
+        vdd_uv: 3_370_099,
+        r_mohm: 861_899_395,
+        c_ff: 9_348_786_938_431,
+        series_mohm: 0,
+        charge_mohm: 0,
+        driver_mohm: 451_350,
+        leak_mohm: None,
+        leak_fa: 0,
+        diode: Diode::Junction { is_fa: 1_595, n_milli: 1_430, rs_mohm: 455 },
+        rise_uv: 168_505,
+        fall_uv: 168_505,
+        press_ns: 79_610_708_626,
+        temp_mdeg_c: 25_000,
+    };
+    let f = Model::new(&stage).and_then(|m| m.evaluate()).unwrap_or_else(|e| panic!("{e}"));
+    let r = reference::evaluate(&StageF::from(&stage)).unwrap_or_else(|e| panic!("{e:?}"));
+    let rel = (secs(f.hold) - r.hold).abs() / r.hold;
+    assert!(rel < 1e-7, "{} vs {} ({rel:e})", secs(f.hold), r.hold);
+}
