@@ -1,6 +1,7 @@
 #![doc = include_str!("../README.md")]
 
 pub mod agree;
+pub mod compare;
 pub mod eseries;
 pub mod eval;
 pub mod fixture;

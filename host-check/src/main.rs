@@ -90,6 +90,31 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Compare the stage's spread with a software timer on a crystal or an internal RC oscillator.
+    TimerVsRc {
+        /// The stage file (TOML).
+        stage: PathBuf,
+        /// The software timer's tick clock ("32.768k", "1MHz").
+        #[arg(long)]
+        clock: String,
+        /// Its frequency tolerance over temperature and life ("50ppm" for a crystal, "2%" for an internal RC oscillator).
+        #[arg(long)]
+        clock_tolerance: String,
+        /// Quiescent current of the stage's two gates, for the standby estimate ("2u").
+        #[arg(long)]
+        stage_current: Option<String>,
+        /// Current of the MCU asleep with one timer running ("1.5u").
+        #[arg(long)]
+        sleep_current: Option<String>,
+    },
+    /// Plot the node voltage through press and release, with thresholds and the extreme corners (SVG).
+    Curve {
+        /// The stage file (TOML).
+        stage: PathBuf,
+        /// Where to write the SVG.
+        #[arg(long, value_name = "FILE")]
+        plot: PathBuf,
+    },
     /// How the hold spreads over the tolerances: worst case, root-sum-square and Monte Carlo.
     Spread {
         /// The stage file (TOML).
@@ -256,6 +281,108 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     }
                 }
             }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::TimerVsRc { stage, clock, clock_tolerance, stage_current, sleep_current } => {
+            use host_check::values::parse_value;
+            let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
+            let bad = |opt: &str, v: &str, range: &str, why: String| {
+                BadInput(format!("--{opt} {v:?}: {why} (accepted: {range})"))
+            };
+            let hz = parse_value(&clock, &["Hz"]).map_err(|e| bad("clock", &clock, "1 Hz to 1 GHz", e.to_string()))?;
+            if !(1.0..=1e9).contains(&hz) {
+                return Err(bad("clock", &clock, "1 Hz to 1 GHz", "out of range".into()).into());
+            }
+            let tol_text = clock_tolerance.trim();
+            let tolerance = if let Some(ppm) = tol_text.strip_suffix("ppm") {
+                ppm.trim()
+                    .parse::<f64>()
+                    .map(|p| p * 1e-6)
+                    .map_err(|e| bad("clock-tolerance", tol_text, "0 ppm to 50 %", e.to_string()))?
+            } else {
+                match host_check::values::parse_tolerance(tol_text, &[]) {
+                    Ok(host_check::values::Tol::Relative(f)) => f,
+                    _ => return Err(bad("clock-tolerance", tol_text, "0 ppm to 50 %", "give ppm or %".into()).into()),
+                }
+            };
+            if !(0.0..=0.5).contains(&tolerance) {
+                return Err(bad("clock-tolerance", tol_text, "0 ppm to 50 %", "out of range".into()).into());
+            }
+            let amps = |opt: &str, v: &Option<String>| -> Result<Option<f64>, BadInput> {
+                v.as_ref()
+                    .map(|t| {
+                        let a = parse_value(t, &["A"]).map_err(|e| bad(opt, t, "0 A to 1 A", e.to_string()))?;
+                        if (0.0..=1.0).contains(&a) {
+                            Ok(a)
+                        } else {
+                            Err(bad(opt, t, "0 A to 1 A", "out of range".into()))
+                        }
+                    })
+                    .transpose()
+            };
+            let currents = match (amps("stage-current", &stage_current)?, amps("sleep-current", &sleep_current)?) {
+                (Some(stage_quiescent_a), Some(timer_sleep_a)) => {
+                    Some(host_check::compare::Currents { stage_quiescent_a, timer_sleep_a })
+                }
+                (None, None) => None,
+                _ => {
+                    return Err(BadInput(
+                        "give both --stage-current and --sleep-current for the standby estimate".into(),
+                    )
+                    .into())
+                }
+            };
+            let nominal = rc_model::Model::new(&sf.stage)
+                .and_then(|m| m.evaluate())
+                .map_err(|e| BadInput(sf.model_error(e).to_string()))?;
+            let window = sf.spread.window(&sf.stage).map_err(|f| {
+                BadInput(format!(
+                    "{}: the corner {} fails: {}",
+                    stage.display(),
+                    host_check::eval::corner_text(f.corner),
+                    f.error
+                ))
+            })?;
+            let clock = host_check::compare::TimerClock { hz, tolerance };
+            let c = host_check::compare::compare(host_check::eval::secs(nominal.hold), &window, clock);
+            let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
+            emit(&host_check::compare::render_comparison(
+                &name,
+                &c,
+                clock,
+                currents,
+                f64::from(sf.stage.vdd_uv) * 1e-6,
+                &window,
+            ))?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Curve { stage, plot } => {
+            let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
+            rc_model::Model::new(&sf.stage)
+                .and_then(|m| m.evaluate())
+                .map_err(|e| BadInput(sf.model_error(e).to_string()))?;
+            let mut corners = Vec::new();
+            if let Ok(w) = sf.spread.window(&sf.stage) {
+                for (label, corner) in [("shortest", w.min_corner), ("longest", w.max_corner)] {
+                    if let Ok(s) = sf.spread.at_corner(&sf.stage, corner) {
+                        corners.push((format!("{label} ({})", host_check::eval::corner_text(corner)), s));
+                    }
+                }
+            }
+            let band = match sf.spread.thresholds {
+                Some(rc_model::window::ThresholdSpread::Schmitt { rise_uv, fall_uv }) => Some((
+                    (f64::from(rise_uv.0) * 1e-6, f64::from(rise_uv.1) * 1e-6),
+                    (f64::from(fall_uv.0) * 1e-6, f64::from(fall_uv.1) * 1e-6),
+                )),
+                Some(rc_model::window::ThresholdSpread::Single { min_uv, max_uv }) => {
+                    let b = (f64::from(min_uv) * 1e-6, f64::from(max_uv) * 1e-6);
+                    Some((b, b))
+                }
+                None => None,
+            };
+            let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
+            let svg = host_check::compare::curve_svg(&name, &sf.stage, &corners, band);
+            std::fs::write(&plot, svg).with_context(|| format!("writing {}", plot.display()))?;
             Ok(ExitCode::SUCCESS)
         }
         Command::Pick { hold, within, r_series, r_tol, c_series, input, vdd, vdd_tol, diode, driver, top, json } => {

@@ -304,7 +304,8 @@ pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)
     s
 }
 
-fn xml(t: &str) -> String {
+/// Escapes text for SVG/XML.
+pub(crate) fn xml(t: &str) -> String {
     t.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
 }
 

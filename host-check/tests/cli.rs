@@ -281,3 +281,28 @@ fn pick_lists_parts_or_says_none_fit() {
     let bad = run(dir.path(), &["pick", "--hold", "1s", "--r-series", "E7"]);
     assert!(text(&bad.stderr).contains("E3, E6, E12, E24, E48, E96, E192"), "{}", text(&bad.stderr));
 }
+
+#[test]
+fn timer_vs_rc_and_curve() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "stage.toml", GOOD);
+    let out = run(dir.path(), &["timer-vs-rc", "stage.toml", "--clock", "32.768k", "--clock-tolerance", "2%"]);
+    let stdout = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    // 0.739517 s at 32.768 kHz = 24232.49 → 24232 ticks; (T/1.02 − tick, T/0.98 + tick) → −1.97 %, +2.04 % (math).
+    assert!(stdout.contains("timer settings: count 24232 ticks at 32.77 kHz"), "{stdout}");
+    assert!(stdout.contains("software timer") && stdout.contains("-1.97 % / +2.04 %"), "{stdout}");
+    let bad = run(
+        dir.path(),
+        &["timer-vs-rc", "stage.toml", "--clock", "1M", "--clock-tolerance", "2%", "--stage-current", "2u"],
+    );
+    assert_eq!(bad.status.code(), Some(2));
+    let out = run(dir.path(), &["curve", "stage.toml", "--plot", "c.svg"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let svg = std::fs::read_to_string(dir.path().join("c.svg")).unwrap_or_default();
+    assert!(
+        svg.contains("<polyline") && svg.contains("rising threshold") && svg.contains("hold ends (739.5 ms)"),
+        "{svg}"
+    );
+    assert_eq!(svg.matches("<polyline").count(), 3);
+}
