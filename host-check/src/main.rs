@@ -134,7 +134,7 @@ enum Command {
         /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2").
         #[arg(long)]
         spec: Option<String>,
-        /// Age the capacitor this many years first (class 2 law from the stage file's [aging]).
+        /// Age the capacitor this many years first (class 2 law from the stage file's `[aging]` table).
         #[arg(long)]
         years: Option<f64>,
         /// Write a histogram with the window and spec marked (SVG).

@@ -1,0 +1,68 @@
+#!/usr/bin/env python3
+"""Monte Carlo of a hold stage's spread: `rchold spread` against a
+straightforward vectorised numpy version of the same draws and closed form,
+on the same machine. Prints samples/s of each, their ratio and the
+percentiles of both (they must agree within Monte Carlo error).
+
+The stage: examples/bench-spread.toml (fixed 0.6 V drop, 50 Ω driver, a
+custom input with ±5 % threshold bands, R ±1 %, C ±10 %, Vdd ±5 %, drop
+±50 mV, uniform draws). Usage: python3 benches/spread_vs_numpy.py [SAMPLES]
+"""
+import json
+import os
+import subprocess
+import sys
+import time
+
+import numpy as np
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+STAGE = os.path.join(ROOT, "examples", "bench-spread.toml")
+N = int(sys.argv[1]) if len(sys.argv) > 1 else 10_000_000
+
+# The same stage as the TOML file.
+R, C, VDD, VF, RO = 1e6, 1e-6, 5.0, 0.6, 50.0
+RISE, FALL = 0.6, 0.4          # fractions of Vdd
+TOL = dict(r=0.01, c=0.10, vdd=0.05, vf=0.05 / 0.6, rise=0.05, fall=0.05)
+
+
+def numpy_spread(n, seed=1):
+    rng = np.random.default_rng(seed)
+    u = lambda t: 1.0 + rng.uniform(-t, t, n)
+    r = R * u(TOL["r"])
+    c = C * u(TOL["c"])
+    k = u(TOL["vdd"])
+    vdd = VDD * k
+    vf = VF * u(TOL["vf"])
+    fall = FALL * VDD * u(TOL["fall"]) * k
+    rise = RISE * VDD * u(TOL["rise"]) * k
+    v_inf = (vdd - vf) * r / (r + RO)
+    ok = v_inf > rise
+    hold = r * c * np.log(v_inf / fall)
+    hold = np.sort(hold[ok])
+    return hold
+
+
+def main():
+    subprocess.run(["cargo", "build", "-q", "--release", "-p", "host-check", "--bin", "rchold"], cwd=ROOT, check=True)
+    exe = os.path.join(ROOT, "target", "release", "rchold")
+    t0 = time.perf_counter()
+    out = subprocess.run([exe, "spread", STAGE, "--samples", str(N), "--json"], capture_output=True, check=True, text=True)
+    t_rchold = time.perf_counter() - t0
+    rc = json.loads(out.stdout)["monte_carlo"]
+    t0 = time.perf_counter()
+    h = numpy_spread(N)
+    t_numpy = time.perf_counter() - t0
+    print(f"samples: {N}")
+    print(f"rchold spread (whole command, fixed-point model per sample, all cores): {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
+    print(f"numpy (vectorised closed form, one core):                                {t_numpy:.2f} s, {N / t_numpy:,.0f} samples/s")
+    print(f"ratio rchold/numpy samples/s: {t_numpy / t_rchold:.2f}")
+    print("percentile   rchold (s)      numpy (s)")
+    for p, v in rc["percentiles"]:
+        print(f"{p:>9} %  {v:.6f}  {np.percentile(h, p):.6f}")
+    print(f"mean         {rc['mean_s']:.6f}  {h.mean():.6f}")
+    print(f"sd           {rc['sd_s']:.6f}  {h.std(ddof=1):.6f}")
+
+
+if __name__ == "__main__":
+    main()
