@@ -54,7 +54,7 @@ def main():
     h = numpy_spread(N)
     t_numpy = time.perf_counter() - t0
     print(f"samples: {N}")
-    print(f"rchold spread (whole command, fixed-point model per sample, all cores): {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
+    print(f"rchold spread (whole command, f32 hold path per sample, all cores):     {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
     print(f"numpy (vectorised closed form, one core):                                {t_numpy:.2f} s, {N / t_numpy:,.0f} samples/s")
     print(f"ratio rchold/numpy samples/s: {t_numpy / t_rchold:.2f}")
     print("percentile   rchold (s)      numpy (s)")

@@ -123,10 +123,27 @@ pub fn draw(nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, index: u64)
     s
 }
 
-/// Hold of one board, s (`None` where the model refuses).
+/// Hold of one board by the fixed-point model, s (`None` where it refuses).
 #[must_use]
 pub fn hold_s(s: &Stage) -> Option<f64> {
     Model::new(s).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold))
+}
+
+/// Which model evaluates the Monte Carlo samples.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Eval {
+    /// The fixed-point model, every path (as the firmware computes it).
+    Exact,
+    /// The f32 backend's hold-only path: about 20 ppm from the fixed-point
+    /// model, far below Monte Carlo error, and several times faster.
+    Fast,
+}
+
+fn sample_hold(s: &Stage, how: Eval) -> f64 {
+    match how {
+        Eval::Exact => hold_s(s).unwrap_or(f64::NAN),
+        Eval::Fast => rc_model::float::Model::new(s).and_then(|m| m.hold_seconds()).map_or(f64::NAN, f64::from),
+    }
 }
 
 /// Runs the Monte Carlo. `progress` is called with (done, total) now and then.
@@ -139,22 +156,34 @@ pub fn monte_carlo(
     seed: u64,
     progress: &(dyn Fn(usize, usize) + Sync),
 ) -> Monte {
+    monte_carlo_with(nominal, spread, dist, samples, seed, Eval::Exact, progress)
+}
+
+/// [`monte_carlo`] with the choice of model for the samples.
+#[must_use]
+pub fn monte_carlo_with(
+    nominal: &Stage,
+    spread: &Spread,
+    dist: Dist,
+    samples: usize,
+    seed: u64,
+    how: Eval,
+    progress: &(dyn Fn(usize, usize) + Sync),
+) -> Monte {
     let done = std::sync::atomic::AtomicUsize::new(0);
     let chunk = 65_536usize;
-    let mut holds: Vec<Option<f64>> = (0..samples.div_ceil(chunk))
-        .into_par_iter()
-        .flat_map_iter(|c| {
-            let start = c * chunk;
-            let end = (start + chunk).min(samples);
-            let out: Vec<Option<f64>> =
-                (start..end).map(|i| hold_s(&draw(nominal, spread, dist, seed, i as u64))).collect();
-            let n = done.fetch_add(end - start, std::sync::atomic::Ordering::Relaxed) + (end - start);
-            progress(n, samples);
-            out
-        })
-        .collect();
-    let refused = holds.iter().filter(|h| h.is_none()).count();
-    let mut v: Vec<f64> = holds.drain(..).flatten().collect();
+    let mut v = vec![f64::NAN; samples];
+    v.par_chunks_mut(chunk).enumerate().for_each(|(c, out)| {
+        let start = c * chunk;
+        for (k, slot) in out.iter_mut().enumerate() {
+            *slot = sample_hold(&draw(nominal, spread, dist, seed, (start + k) as u64), how);
+        }
+        let n = done.fetch_add(out.len(), std::sync::atomic::Ordering::Relaxed) + out.len();
+        progress(n, samples);
+    });
+    let before = v.len();
+    v.retain(|h| !h.is_nan());
+    let refused = before - v.len();
     v.par_sort_unstable_by(f64::total_cmp);
     let (mean, sd) = stats::mean_sd(&v);
     let pct = |p: f64| {

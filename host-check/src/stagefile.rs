@@ -146,6 +146,8 @@ struct RawAging {
     ref_hours: Option<Sv>,
     hours: Option<Sv>,
     loss: Option<Sv>,
+    rated_hours: Option<Sv>,
+    rated_temp: Option<Sv>,
 }
 
 /// Where each model quantity came from, for error messages.
@@ -179,6 +181,9 @@ pub struct StageFile {
     pub spread: Spread,
     /// Where each quantity was set.
     pub origins: Origins,
+    /// An electrolytic's rated life: hours at a temperature in m°C (`[aging]`
+    /// `rated_hours`, `rated_temp`), for aging horizons by the 10 °C rule.
+    pub rated_life: Option<(u32, i32)>,
 }
 
 struct Ctx<'a> {
@@ -510,7 +515,13 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         }
         spread.tempco = tc;
     }
+    let mut rated_life = None;
     if let Some(a) = &raw.aging {
+        if let (Some(h), Some(t)) = (&a.rated_hours, &a.rated_temp) {
+            let h = cx.si(h, "aging.rated_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?;
+            let t = cx.si(t, "aging.rated_temp", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+            rated_life = Some((h.round() as u32, (t * 1e3).round() as i32));
+        }
         let pct = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<f64, StageFileError> {
             let v = v.as_ref().ok_or_else(|| cx.err(Some(a.kind.span().start), key, "missing"))?;
             let t = cx.tol(v, key, &[], 1.0)?;
@@ -551,6 +562,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         schmitt,
         spread,
         origins: cx.origins,
+        rated_life,
     })
 }
 

@@ -252,7 +252,7 @@ fn spread_reports_worst_case_rss_monte_carlo_and_capability() {
     for (args, want) in [
         (vec!["spread", "stage.toml", "--spec", "1.3..0.5"], "--spec \"1.3..0.5\": LOW must be below HIGH"),
         (vec!["spread", "stage.toml", "--samples", "0"], "--samples 0: out of range"),
-        (vec!["spread", "stage.toml", "--years", "10"], "--years needs [aging] kind = \"class2\""),
+        (vec!["spread", "stage.toml", "--years", "10"], "--years needs an [aging] table"),
     ] {
         let out = run(dir.path(), &args);
         assert_eq!(out.status.code(), Some(2), "{args:?}");
@@ -305,4 +305,36 @@ fn timer_vs_rc_and_curve() {
         "{svg}"
     );
     assert_eq!(svg.matches("<polyline").count(), 3);
+}
+
+#[test]
+fn spread_ages_an_electrolytic_by_the_ten_degree_rule() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    // A 2 s press (133 charge time constants) so the hold is proportional to C.
+    let body = GOOD.replace("c = \"1u\"", "c = \"100u\"").replace("duration = \"100m\"", "duration = \"2\"")
+        + "\n[aging]\nkind = \"end-of-life\"\nloss = \"20%\"\nrated_hours = \"2000\"\nrated_temp = \"105\"\n";
+    write(dir.path(), "e.toml", &body);
+    let json = |args: &[&str]| -> f64 {
+        let out = run(dir.path(), args);
+        assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}"));
+        v["nominal_s"].as_f64().unwrap_or(f64::NAN)
+    };
+    let new = json(&["spread", "e.toml", "--samples", "100", "--json"]);
+    // 2,000 h at 105 °C → 8,000 h at 85 °C (10 °C rule, common practice): a year and
+    // a half uses it all, so C is down the full 20 %; half of it costs 10 %.
+    let worn = json(&["spread", "e.toml", "--samples", "100", "--json", "--years", "1.5", "--at-temp", "85"]);
+    let half = json(&[
+        "spread",
+        "e.toml",
+        "--samples",
+        "100",
+        "--json",
+        "--years",
+        &format!("{}", 4_000.0 / 8_766.0),
+        "--at-temp",
+        "85",
+    ]);
+    assert!((worn / new - 0.8).abs() < 1e-4, "{worn} vs {new}");
+    assert!((half / new - 0.9).abs() < 1e-4, "{half} vs {new}");
 }

@@ -308,6 +308,43 @@ impl Model {
         })
     }
 
+    /// The hold alone, in seconds, after a press of the stage's length from an
+    /// empty capacitor (fixed-drop diode): the fast path for statistics, with
+    /// no turn-on latency, no time conversions and no domain check of the
+    /// result. A junction diode takes the full [`Model::evaluate`].
+    ///
+    /// # Errors
+    /// [`Error::NoHold`], [`Error::PressTooShort`], and [`Model::evaluate`]'s for a junction.
+    pub fn hold_seconds(&self) -> Result<f32, Error> {
+        let DiodeF::Drop(_) = self.diode else {
+            return self.evaluate().map(|e| (e.hold.ns_q32() as f64 / 4_294_967_296.0 * 1e-9) as f32);
+        };
+        let press = self.stage.press_ns as f32 * 1e-9;
+        let r_th = if self.r_ser == 0.0 { 0.0 } else { self.r_ser * self.r_eff / (self.r_ser + self.r_eff) };
+        let tau = self.c * (self.rs + r_th);
+        let vc0 = if tau == 0.0 || press > 40.0 * tau {
+            self.v_inf
+        } else {
+            // A press shorter than the turn-on latency is refused, as by evaluate.
+            if r_th > 0.0 {
+                let vc1 = self.v_inf - (self.v_inf - self.rise) * (self.rs + r_th) / r_th;
+                if vc1 > 0.0 {
+                    let latency = tau * ln(self.v_inf / (self.v_inf - vc1));
+                    if press < latency {
+                        return Err(Error::PressTooShort { latency_ns: (latency * 1e9) as u64 });
+                    }
+                }
+            }
+            self.v_inf * (1.0 - exp(-press / tau))
+        };
+        let lk = self.r_eff * self.i_lk;
+        let end = (self.fall + lk) * (self.r_eff + self.rs) / self.r_eff;
+        if vc0 + lk <= end {
+            return Err(Error::NoHold);
+        }
+        Ok((self.r_eff + self.rs) * self.c * ln((vc0 + lk) / end))
+    }
+
     /// The capacitance that explains a measured hold. See [`crate::Model::inverse_c`].
     ///
     /// # Errors

@@ -173,3 +173,34 @@ fn picked_parts_meet_the_target_by_the_reference() {
     }
     assert!(checked >= 20, "{checked}");
 }
+
+/// The fast f32 hold path gives the fixed-point model's statistics: every
+/// sample within 1e-4 relative, so percentiles agree far inside Monte Carlo error.
+#[test]
+fn fast_and_exact_monte_carlo_agree() {
+    use host_check::spread::{monte_carlo_with, Eval};
+    let sp = Spread {
+        r: Tolerance::symmetric(10_000),
+        c: Tolerance::symmetric(100_000),
+        vdd: Tolerance::symmetric(50_000),
+        diode: Tolerance::symmetric(80_000),
+        thresholds: Some(ThresholdSpread::Schmitt { rise_uv: (2_600_000, 3_500_000), fall_uv: (1_500_000, 2_400_000) }),
+        ..Spread::default()
+    };
+    let mut short_press = stage();
+    short_press.press_ns = 120_000; // 2.4 charge time constants: the partial-press path too
+    let mut too_short = stage();
+    too_short.press_ns = 60_000; // shorter than the turn-on latency on part of the boards
+    for s in [stage(), short_press, too_short] {
+        let exact = monte_carlo_with(&s, &sp, Dist::Uniform, 20_000, 4, Eval::Exact, &|_, _| {});
+        let fast = monte_carlo_with(&s, &sp, Dist::Uniform, 20_000, 4, Eval::Fast, &|_, _| {});
+        assert_eq!(exact.refused, fast.refused);
+        if s.press_ns == 60_000 {
+            assert!(exact.refused > 1_000 && exact.refused < 19_000, "{}", exact.refused);
+        }
+        assert_eq!(exact.holds.len(), fast.holds.len());
+        for (a, b) in exact.holds.iter().zip(&fast.holds) {
+            assert!((a - b).abs() <= 1e-4 * a, "{a} vs {b}");
+        }
+    }
+}
