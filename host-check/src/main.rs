@@ -139,7 +139,7 @@ enum Command {
         /// scaled to --at-temp by the 10 °C rule.
         #[arg(long)]
         years: Option<f64>,
-        /// Operating temperature for an electrolytic's aging, °C (needs rated_hours and rated_temp in [aging]).
+        /// Operating temperature for an electrolytic's aging, °C (needs `rated_hours` and `rated_temp` in `[aging]`).
         #[arg(long)]
         at_temp: Option<f64>,
         /// Write a histogram with the window and spec marked (SVG).
