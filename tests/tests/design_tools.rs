@@ -3,25 +3,11 @@
 
 use host_check::spread::{self, Dist};
 use rc_model::window::{Spread, Tempco, ThresholdSpread, Tolerance};
-use rc_model::{Diode, Model, Stage};
+use rc_model::{Model, Stage};
 use statrs::distribution::{ContinuousCDF, Normal, Uniform};
 
 fn stage() -> Stage {
-    Stage {
-        vdd_uv: 5_000_000,
-        r_mohm: 1_000_000_000,
-        c_ff: 1_000_000_000,
-        series_mohm: 0,
-        charge_mohm: 0,
-        driver_mohm: 50_000,
-        leak_mohm: None,
-        leak_fa: 0,
-        diode: Diode::Drop { drop_uv: 600_000 },
-        rise_uv: 2_900_000,
-        fall_uv: 2_100_000,
-        press_ns: 100_000_000,
-        temp_mdeg_c: 25_000,
-    }
+    rchold_tests::backlight_stage(1_000_000_000, 100_000_000)
 }
 
 fn nominal_hold() -> f64 {

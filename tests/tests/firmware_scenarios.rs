@@ -17,21 +17,7 @@ const POLL_NS: u32 = 50_000;
 /// Our own example: the "Lumen-3" keypad backlight scaled to a 74 ms hold
 /// (100 nF) to keep the simulation short.
 fn stage() -> Stage {
-    Stage {
-        vdd_uv: 5_000_000,
-        r_mohm: 1_000_000_000,
-        c_ff: 100_000_000,
-        series_mohm: 0,
-        charge_mohm: 0,
-        driver_mohm: 50_000,
-        leak_mohm: None,
-        leak_fa: 0,
-        diode: Diode::Drop { drop_uv: 600_000 },
-        rise_uv: 2_900_000,
-        fall_uv: 2_100_000,
-        press_ns: 5_000_000,
-        temp_mdeg_c: 25_000,
-    }
+    rchold_tests::backlight_stage(100_000_000, 5_000_000)
 }
 
 fn spread() -> Spread {
