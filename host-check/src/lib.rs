@@ -5,6 +5,7 @@ pub mod compare;
 pub mod eseries;
 pub mod eval;
 pub mod fixture;
+pub mod frames;
 pub mod netlist;
 pub mod pick;
 pub mod reference;
