@@ -49,7 +49,7 @@ pub struct Monte {
     pub max_s: f64,
     /// (percent, hold in s) for 0.135, 1, 5, 50, 95, 99, 99.865 %.
     pub percentiles: Vec<(f64, f64)>,
-    /// Sorted holds (kept for plots and tests; not serialised).
+    /// The holds in sample order, refused samples left out (kept for plots and tests; not serialised).
     #[serde(skip)]
     pub holds: Vec<f64>,
 }
@@ -184,30 +184,130 @@ pub fn monte_carlo_with(
     let before = v.len();
     v.retain(|h| !h.is_nan());
     let refused = before - v.len();
-    v.par_sort_unstable_by(f64::total_cmp);
     let (mean, sd) = stats::mean_sd(&v);
-    let pct = |p: f64| {
-        if v.is_empty() {
-            return f64::NAN;
+    let (min_s, max_s) = v
+        .par_iter()
+        .fold(|| (f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)))
+        .reduce(|| (f64::INFINITY, f64::NEG_INFINITY), |(a, b), (c, d)| (a.min(c), b.max(d)));
+    let levels = [0.135, 1.0, 5.0, 50.0, 95.0, 99.0, 99.865];
+    // Linear interpolation between order statistics (the common "type 7" rule).
+    let mut ranks = Vec::new();
+    for p in levels {
+        if let Some(last) = v.len().checked_sub(1) {
+            let h = last as f64 * p / 100.0;
+            ranks.push(h.floor() as usize);
+            ranks.push((h.floor() as usize + 1).min(last));
         }
-        // Linear interpolation between order statistics (the common "type 7" rule).
-        let h = (v.len() - 1) as f64 * p / 100.0;
-        let (i, f) = (h.floor() as usize, h - h.floor());
-        let a = v.get(i).copied().unwrap_or(f64::NAN);
-        let b = v.get(i + 1).copied().unwrap_or(a);
-        a + f * (b - a)
-    };
-    let percentiles = [0.135, 1.0, 5.0, 50.0, 95.0, 99.0, 99.865].iter().map(|&p| (p, pct(p))).collect();
-    Monte {
-        samples,
-        refused,
-        mean_s: mean,
-        sd_s: sd,
-        min_s: v.first().copied().unwrap_or(f64::NAN),
-        max_s: v.last().copied().unwrap_or(f64::NAN),
-        percentiles,
-        holds: v,
     }
+    let stat = order_statistics(&v, &ranks, min_s, max_s);
+    let at = |r: usize| ranks.iter().position(|&x| x == r).and_then(|i| stat.get(i)).copied().unwrap_or(f64::NAN);
+    let percentiles = levels
+        .iter()
+        .map(|&p| {
+            let h = (v.len().saturating_sub(1)) as f64 * p / 100.0;
+            let i = h.floor() as usize;
+            let (a, b) = (at(i), at((i + 1).min(v.len().saturating_sub(1))));
+            (p, a + (h - h.floor()) * (b - a))
+        })
+        .collect();
+    Monte { samples, refused, mean_s: mean, sd_s: sd, min_s, max_s, percentiles, holds: v }
+}
+
+/// The `ranks`-th smallest values of `v` (0-based), exactly, without sorting
+/// `v`: a parallel histogram pass finds the bin each rank falls in, a second
+/// pass collects only those bins' values, which are sorted.
+fn order_statistics(v: &[f64], ranks: &[usize], min: f64, max: f64) -> Vec<f64> {
+    const BINS: usize = 1 << 16;
+    if v.is_empty() || ranks.is_empty() {
+        return vec![f64::NAN; ranks.len()];
+    }
+    let span = max - min;
+    let bin =
+        |x: f64| if span > 0.0 { (((x - min) / span) * BINS as f64).clamp(0.0, (BINS - 1) as f64) as usize } else { 0 };
+    let counts = v
+        .par_chunks(1 << 16)
+        .fold(
+            || vec![0u32; BINS],
+            |mut h, chunk| {
+                for &x in chunk {
+                    if let Some(c) = h.get_mut(bin(x)) {
+                        *c += 1;
+                    }
+                }
+                h
+            },
+        )
+        .reduce(
+            || vec![0u32; BINS],
+            |mut a, b| {
+                for (x, y) in a.iter_mut().zip(b) {
+                    *x += y;
+                }
+                a
+            },
+        );
+    // For each rank: its bin and its position among that bin's values.
+    let mut starts = Vec::with_capacity(BINS);
+    let mut acc = 0usize;
+    for &c in &counts {
+        starts.push(acc);
+        acc += c as usize;
+    }
+    let wanted: Vec<(usize, usize)> = ranks
+        .iter()
+        .map(|&r| {
+            let b = starts.partition_point(|&s| s <= r).saturating_sub(1);
+            (b, r - starts.get(b).copied().unwrap_or(0))
+        })
+        .collect();
+    let mut bins: Vec<usize> = wanted.iter().map(|w| w.0).collect();
+    bins.sort_unstable();
+    bins.dedup();
+    // One pass collects the values of every wanted bin.
+    let mut slot = vec![u8::MAX; BINS];
+    for (i, &b) in bins.iter().enumerate() {
+        if let Some(s) = slot.get_mut(b) {
+            *s = u8::try_from(i).unwrap_or(u8::MAX);
+        }
+    }
+    let mut members: Vec<Vec<f64>> = v
+        .par_chunks(1 << 16)
+        .fold(
+            || vec![Vec::new(); bins.len()],
+            |mut m, chunk| {
+                for &x in chunk {
+                    if let Some(&s) = slot.get(bin(x)) {
+                        if let Some(list) = m.get_mut(usize::from(s)) {
+                            list.push(x);
+                        }
+                    }
+                }
+                m
+            },
+        )
+        .reduce(
+            || vec![Vec::new(); bins.len()],
+            |mut a, b| {
+                for (x, y) in a.iter_mut().zip(b) {
+                    x.extend(y);
+                }
+                a
+            },
+        );
+    for m in &mut members {
+        m.sort_unstable_by(f64::total_cmp);
+    }
+    wanted
+        .iter()
+        .map(|&(b, k)| {
+            bins.iter()
+                .position(|&x| x == b)
+                .and_then(|i| members.get(i))
+                .and_then(|m| m.get(k))
+                .copied()
+                .unwrap_or(f64::NAN)
+        })
+        .collect()
 }
 
 /// Root-sum-square spread: each parameter moved alone to both ends of its

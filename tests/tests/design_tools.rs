@@ -190,3 +190,20 @@ fn fast_and_exact_monte_carlo_agree() {
         }
     }
 }
+
+/// The percentiles come from exact order statistics without a full sort:
+/// they equal those of the sorted holds, to the bit.
+#[test]
+fn percentiles_are_exact_order_statistics() {
+    let sp = Spread { r: Tolerance::symmetric(10_000), c: Tolerance::symmetric(100_000), ..Spread::default() };
+    let m = spread::monte_carlo(&stage(), &sp, Dist::Uniform, 123_457, 8, &|_, _| {});
+    let mut sorted = m.holds.clone();
+    sorted.sort_by(f64::total_cmp);
+    for (p, v) in &m.percentiles {
+        let h = (sorted.len() - 1) as f64 * p / 100.0;
+        let i = h.floor() as usize;
+        let want = sorted[i] + (h - h.floor()) * (sorted[(i + 1).min(sorted.len() - 1)] - sorted[i]);
+        assert_eq!(v.to_bits(), want.to_bits(), "{p} %");
+    }
+    assert_eq!((m.min_s, m.max_s), (sorted[0], sorted[sorted.len() - 1]));
+}
