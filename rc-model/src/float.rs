@@ -222,22 +222,7 @@ impl Model {
         }
         let press = self.stage.press_ns as f32 * 1e-9;
         let (latency, vc0, tau_c) = match self.diode {
-            DiodeF::Drop(_) => {
-                let r_th = if self.r_ser == 0.0 { 0.0 } else { self.r_ser * self.r_eff / (self.r_ser + self.r_eff) };
-                let tau = self.c * (self.rs + r_th);
-                let latency = if r_th == 0.0 {
-                    0.0
-                } else {
-                    let vc1 = self.v_inf - (self.v_inf - self.rise) * (self.rs + r_th) / r_th;
-                    if vc1 <= vs {
-                        0.0
-                    } else {
-                        tau * ln((self.v_inf - vs) / (self.v_inf - vc1))
-                    }
-                };
-                let vc0 = if tau == 0.0 { self.v_inf } else { self.v_inf - (self.v_inf - vs) * exp(-press / tau) };
-                (latency, vc0, tau)
-            }
+            DiodeF::Drop(_) => self.charge_drop(vs, press, false),
             DiodeF::Junction { is, nvt } => {
                 let rd = nvt / (self.i_inf + is);
                 let rp = self.r_ser + rd;
@@ -284,13 +269,7 @@ impl Model {
         if latency > press {
             return Err(Error::PressTooShort { latency_ns: (latency * 1e9) as u64 });
         }
-        let tau_d = (self.r_eff + self.rs) * self.c;
-        let start_w = vc0 + self.r_eff * self.i_lk;
-        let end_w = (self.fall + self.r_eff * self.i_lk) * (self.r_eff + self.rs) / self.r_eff;
-        if start_w <= end_w {
-            return Err(Error::NoHold);
-        }
-        let hold = tau_d * ln(start_w / end_w);
+        let (hold, tau_d) = self.discharge(vc0)?;
         let hold_span = span(hold)?;
         let hold_ns = hold_span.ns();
         if !(limits::HOLD_NS_MIN..=limits::DAY_NS).contains(&hold_ns) {
@@ -320,29 +299,47 @@ impl Model {
             return self.evaluate().map(|e| (e.hold.ns_q32() as f64 / 4_294_967_296.0 * 1e-9) as f32);
         };
         let press = self.stage.press_ns as f32 * 1e-9;
+        let (latency, vc0, _) = self.charge_drop(0.0, press, true);
+        if latency > press {
+            return Err(Error::PressTooShort { latency_ns: (latency * 1e9) as u64 });
+        }
+        Ok(self.discharge(vc0)?.0)
+    }
+
+    /// Fixed-drop charge from capacitor voltage `vs` for `press` s: (turn-on
+    /// latency, capacitor voltage at release, τc), all in s and V. With
+    /// `quick`, a press longer than 40 τc counts as full and its latency —
+    /// then certainly shorter than the press — is not computed.
+    fn charge_drop(&self, vs: f32, press: f32, quick: bool) -> (f32, f32, f32) {
         let r_th = if self.r_ser == 0.0 { 0.0 } else { self.r_ser * self.r_eff / (self.r_ser + self.r_eff) };
         let tau = self.c * (self.rs + r_th);
-        let vc0 = if tau == 0.0 || press > 40.0 * tau {
-            self.v_inf
+        if quick && (tau == 0.0 || press > 40.0 * tau) {
+            return (0.0, self.v_inf, tau);
+        }
+        let latency = if r_th == 0.0 {
+            0.0
         } else {
-            // A press shorter than the turn-on latency is refused, as by evaluate.
-            if r_th > 0.0 {
-                let vc1 = self.v_inf - (self.v_inf - self.rise) * (self.rs + r_th) / r_th;
-                if vc1 > 0.0 {
-                    let latency = tau * ln(self.v_inf / (self.v_inf - vc1));
-                    if press < latency {
-                        return Err(Error::PressTooShort { latency_ns: (latency * 1e9) as u64 });
-                    }
-                }
+            let vc1 = self.v_inf - (self.v_inf - self.rise) * (self.rs + r_th) / r_th;
+            if vc1 <= vs {
+                0.0
+            } else {
+                tau * ln((self.v_inf - vs) / (self.v_inf - vc1))
             }
-            self.v_inf * (1.0 - exp(-press / tau))
         };
+        let vc0 = if tau == 0.0 { self.v_inf } else { self.v_inf - (self.v_inf - vs) * exp(-press / tau) };
+        (latency, vc0, tau)
+    }
+
+    /// Discharge from capacitor voltage `vc0`: (hold, τd) in s.
+    fn discharge(&self, vc0: f32) -> Result<(f32, f32), Error> {
+        let tau_d = (self.r_eff + self.rs) * self.c;
         let lk = self.r_eff * self.i_lk;
+        let start = vc0 + lk;
         let end = (self.fall + lk) * (self.r_eff + self.rs) / self.r_eff;
-        if vc0 + lk <= end {
+        if start <= end {
             return Err(Error::NoHold);
         }
-        Ok((self.r_eff + self.rs) * self.c * ln((vc0 + lk) / end))
+        Ok((tau_d * ln(start / end), tau_d))
     }
 
     /// The capacitance that explains a measured hold. See [`crate::Model::inverse_c`].
