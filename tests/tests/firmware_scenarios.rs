@@ -236,14 +236,8 @@ fn an_aging_capacitor_is_caught_and_forecast() {
 /// 47.4115 … 52.5884 and the EWMA series to 2 dp (data scaled by 10^4 to integers).
 #[test]
 fn nist_ewma_in_fixed_point() {
-    let x = [
-        52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5, 49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4,
-        53.6, 52.1,
-    ];
-    let want = [
-        50.60, 49.52, 50.56, 50.18, 50.16, 49.21, 49.75, 49.85, 50.26, 50.33, 50.11, 49.36, 49.52, 50.05, 49.38, 49.92,
-        50.73, 51.23, 51.94, 51.99,
-    ];
+    let x = rchold_tests::nist::EWMA_DATA;
+    let want = rchold_tests::nist::EWMA_SERIES;
     let scaled: Vec<i32> = x.iter().map(|v| (v * 1e4_f64).round() as i32).collect();
     let cfg = DriftConfig {
         baseline_count: 2,
@@ -269,14 +263,8 @@ fn nist_ewma_in_fixed_point() {
 /// target 325, k = 0.3175, h = 4.1959; S_hi to 2 dp; signals at points 14–20.
 #[test]
 fn nist_cusum_in_fixed_point() {
-    let x = [
-        324.925, 324.675, 324.725, 324.350, 325.350, 325.225, 324.125, 324.525, 325.225, 324.600, 324.625, 325.150,
-        328.325, 327.250, 327.825, 328.500, 326.675, 327.775, 326.875, 328.350,
-    ];
-    let want = [
-        0.0, 0.0, 0.0, 0.0, 0.03, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 3.01, 4.94, 7.45, 10.63, 11.99, 14.44, 16.00,
-        19.04,
-    ];
+    let x = rchold_tests::nist::CUSUM_DATA;
+    let want = rchold_tests::nist::CUSUM_HI;
     let scaled: Vec<i32> = x.iter().map(|v| (v * 1e4_f64).round() as i32).collect();
     let cfg = DriftConfig {
         baseline_count: 2,

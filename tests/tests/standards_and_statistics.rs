@@ -77,14 +77,8 @@ fn nist_6_1_6_capability() {
 /// s = 2.0539 → UCL 52.5884, LCL 47.4115, the EWMA series to 2 dp, no point out.
 #[test]
 fn nist_6_3_2_4_ewma() {
-    let x = [
-        52.0, 47.0, 53.0, 49.3, 50.1, 47.0, 51.0, 50.1, 51.2, 50.5, 49.6, 47.6, 49.9, 51.3, 47.8, 51.2, 52.6, 52.4,
-        53.6, 52.1,
-    ];
-    let want = [
-        50.60, 49.52, 50.56, 50.18, 50.16, 49.21, 49.75, 49.85, 50.26, 50.33, 50.11, 49.36, 49.52, 50.05, 49.38, 49.92,
-        50.73, 51.23, 51.94, 51.99,
-    ];
+    let x = rchold_tests::nist::EWMA_DATA;
+    let want = rchold_tests::nist::EWMA_SERIES;
     let e = stats::ewma(&x, 0.3, 50.0, 2.0539, 3.0);
     assert_abs_diff_eq!(e.ucl, 52.5884, epsilon = 1e-4);
     assert_abs_diff_eq!(e.lcl, 47.4115, epsilon = 1e-4);
@@ -98,14 +92,8 @@ fn nist_6_3_2_4_ewma() {
 /// k = 0.3175, h = 4.1959; S_hi to 2 dp; first signal at point 14, points 14–20.
 #[test]
 fn nist_6_3_2_3_cusum() {
-    let x = [
-        324.925, 324.675, 324.725, 324.350, 325.350, 325.225, 324.125, 324.525, 325.225, 324.600, 324.625, 325.150,
-        328.325, 327.250, 327.825, 328.500, 326.675, 327.775, 326.875, 328.350,
-    ];
-    let want = [
-        0.0, 0.0, 0.0, 0.0, 0.03, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 3.01, 4.94, 7.45, 10.63, 11.99, 14.44, 16.00,
-        19.04,
-    ];
+    let x = rchold_tests::nist::CUSUM_DATA;
+    let want = rchold_tests::nist::CUSUM_HI;
     let c = stats::cusum(&x, 325.0, 0.3175, 4.1959);
     for (got, want) in c.hi.iter().zip(want) {
         assert_abs_diff_eq!(*got, want, epsilon = 0.005);
