@@ -1,16 +1,21 @@
 #![doc = include_str!("../README.md")]
 
 pub mod agree;
+pub mod codes;
+pub mod collect;
 pub mod compare;
 pub mod eseries;
 pub mod eval;
 pub mod fixture;
 pub mod frames;
+pub mod log;
 pub mod netlist;
 pub mod pick;
 pub mod reference;
 pub mod spread;
 pub mod stagefile;
 pub mod stats;
+pub mod store;
+pub mod timestamp;
 pub mod twin;
 pub mod values;
