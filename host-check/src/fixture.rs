@@ -38,6 +38,43 @@ pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> 
     Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns).map_err(|e| format!("{}: {e}", sf.path.display()))
 }
 
+/// The firmware settings from the text of `--clock`, `--guard` and `--poll`
+/// options; `poll` defaults to 1/1000 of the nominal hold (1 µs … 1 s).
+/// Returns the settings and the poll period, ns.
+///
+/// # Errors
+/// A one-line message naming the option and its accepted range.
+pub fn settings_from_text(
+    sf: &StageFile,
+    clock: &str,
+    guard: &str,
+    poll: Option<&str>,
+) -> Result<(Config, u32), String> {
+    use crate::values::{parse_tolerance, parse_value, Tol};
+    let bad = |opt: &str, v: &str, range: &str, why: String| format!("--{opt} {v:?}: {why} (accepted: {range})");
+    let clock_hz = parse_value(clock, &["Hz"]).map_err(|e| bad("clock", clock, "1 kHz to 200 MHz", e.to_string()))?;
+    if !(1e3..=200e6).contains(&clock_hz) {
+        return Err(bad("clock", clock, "1 kHz to 200 MHz", "out of range".into()));
+    }
+    let guard_ppm = match parse_tolerance(guard, &[]) {
+        Ok(Tol::Relative(f)) if f <= 0.5 => (f * 1e6).round() as u32,
+        Ok(_) => return Err(bad("guard", guard, "0% to 50%", "give a percentage".into())),
+        Err(e) => return Err(bad("guard", guard, "0% to 50%", e.to_string())),
+    };
+    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e).to_string())?;
+    let poll_ns = match poll {
+        Some(p) => {
+            let s = parse_value(p, &["s"]).map_err(|e| bad("poll", p, "1 µs to 1 s", e.to_string()))?;
+            if !(1e-6..=1.0).contains(&s) {
+                return Err(bad("poll", p, "1 µs to 1 s", "out of range".into()));
+            }
+            (s * 1e9).round() as u32
+        }
+        None => (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32,
+    };
+    Ok((settings(sf, clock_hz.round() as u32, guard_ppm, poll_ns)?, poll_ns))
+}
+
 /// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).
 #[must_use]
 pub fn render(c: &Config, emit: Emit, name: &str) -> String {

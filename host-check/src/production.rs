@@ -1,0 +1,704 @@
+//! `rchold yield`: what a fixture's measurements say about production —
+//! counts per verdict, yield per station, batch and day, the capability of
+//! the hold against its pass window (Cp/Cpk, NIST/SEMATECH e-Handbook
+//! §6.1.6), a histogram, the rejects with their cause hints, and the `f64`
+//! re-check: every verdict the firmware gave in fixed point, recomputed from
+//! the stage file with the independent `f64` reference.
+//!
+//! Everything is accumulated in one pass (memory grows with the number of
+//! stations, batches and days, not with the number of records).
+
+use std::collections::{BTreeMap, HashMap};
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::Path;
+
+use hold_firmware::record::Record;
+use hold_firmware::{Hint, Verdict};
+use rc_model::window::Corner;
+use serde::Serialize;
+
+use crate::codes::VERDICTS;
+use crate::eval::si;
+use crate::reference::{self, StageF};
+use crate::stats;
+use crate::store::Setup;
+use crate::{chart, codes, log, stagefile, timestamp};
+
+/// Bins of the hold histogram.
+pub const BINS: usize = 60;
+
+/// The window recomputed with the `f64` reference.
+#[derive(Debug, Clone, Serialize)]
+pub struct RecheckWindow {
+    /// Setup name.
+    pub setup: String,
+    /// Shortest corner hold, s (reference).
+    pub min_s: f64,
+    /// Longest corner hold, s (reference).
+    pub max_s: f64,
+    /// Passing holds from, ticks (reference, widened as the firmware widens).
+    pub hold_min_ticks: u64,
+    /// Passing holds to, ticks.
+    pub hold_max_ticks: u64,
+    /// The firmware window stored with the setup, ticks.
+    pub stored_ticks: (u64, u64),
+}
+
+struct Checker {
+    window: RecheckWindow,
+    stage: StageF,
+    clock_hz: f64,
+}
+
+impl Checker {
+    /// Builds the `f64` window of a setup: the same corners (the spread's
+    /// parameter extremes), each evaluated by the reference; widened by the
+    /// guard, one poll and one tick on each side as `Config::from_window` does.
+    fn new(setup: &Setup) -> Result<Checker, String> {
+        let sf = stagefile::parse(Path::new(&setup.name), &setup.stage_toml).map_err(|e| e.to_string())?;
+        let active = sf.spread.active();
+        let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+        let mut high: u16 = 0;
+        loop {
+            let s = sf.spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
+            let h = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?.hold;
+            lo = lo.min(h);
+            hi = hi.max(h);
+            if high == active {
+                break;
+            }
+            high = high.wrapping_sub(active) & active;
+        }
+        let clock = f64::from(setup.clock_hz);
+        let guard = |t: u64| {
+            t / 1_000_000 * u64::from(setup.guard_ppm) + t % 1_000_000 * u64::from(setup.guard_ppm) / 1_000_000
+        };
+        let poll = u64::from(setup.poll_ns) * u64::from(setup.clock_hz) / 1_000_000_000;
+        let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
+        Ok(Checker {
+            window: RecheckWindow {
+                setup: setup.name.clone(),
+                min_s: lo,
+                max_s: hi,
+                hold_min_ticks: min_t.saturating_sub(guard(min_t)).saturating_sub(poll + 1),
+                hold_max_ticks: max_t.saturating_add(guard(max_t)).saturating_add(poll + 1),
+                stored_ticks: (setup.hold_min_ticks, setup.hold_max_ticks),
+            },
+            stage: StageF::from(&sf.stage),
+            clock_hz: clock,
+        })
+    }
+
+    /// The verdict and hint the reference gives a hold, for the verdicts a
+    /// hold alone decides (within window, short, long).
+    fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
+        let w = &self.window;
+        let v = if hold_ticks < w.hold_min_ticks {
+            Verdict::Short
+        } else if hold_ticks > w.hold_max_ticks {
+            Verdict::Long
+        } else {
+            return (Verdict::WithinWindow, Hint::None);
+        };
+        if hold_ticks.saturating_mul(20) < w.hold_min_ticks {
+            return (v, Hint::OpenCapacitorOrDiode);
+        }
+        let hint = match reference::inverse_c(&self.stage, hold_ticks as f64 / self.clock_hz) {
+            Ok(c) => Hint::from_deviation_ppm(((c / self.stage.c - 1.0) * 1e6).round() as i64),
+            Err(_) => Hint::WrongPart,
+        };
+        (v, hint)
+    }
+}
+
+/// Running mean and variance (Welford).
+#[derive(Debug, Clone, Copy, Default, Serialize)]
+pub struct Moments {
+    /// Samples.
+    pub n: u64,
+    /// Mean.
+    pub mean: f64,
+    m2: f64,
+}
+
+impl Moments {
+    /// Adds a sample.
+    pub fn add(&mut self, x: f64) {
+        self.n += 1;
+        let d = x - self.mean;
+        self.mean += d / self.n as f64;
+        self.m2 += d * (x - self.mean);
+    }
+
+    /// Sample standard deviation (n − 1).
+    #[must_use]
+    pub fn sd(&self) -> f64 {
+        if self.n > 1 {
+            (self.m2 / (self.n - 1) as f64).sqrt()
+        } else {
+            f64::NAN
+        }
+    }
+}
+
+/// Figures of one station (or of all).
+#[derive(Debug, Clone, Serialize)]
+pub struct Group {
+    /// Station name, or "all".
+    pub name: String,
+    /// Measurements.
+    pub total: u64,
+    /// Count per verdict, in the order of [`codes::VERDICTS`].
+    pub verdicts: [u64; 7],
+    /// Hold, s, of the boards without a gross fault (verdict within window,
+    /// short or long, hint not wrong part or open capacitor).
+    pub hold_s: Moments,
+    /// Gross faults left out of the capability.
+    pub gross: u64,
+    /// Pass window, s (from the setup), when known.
+    pub window_s: Option<(f64, f64)>,
+    /// Cp, Cpk … of the hold against the window.
+    #[serde(skip)]
+    pub capability: Option<stats::Capability>,
+    /// Cp.
+    pub cp: Option<f64>,
+    /// Cpk.
+    pub cpk: Option<f64>,
+    /// Histogram of the hold over [`Group::hist_range_s`].
+    pub bins: Vec<u64>,
+    /// Range of the histogram, s.
+    pub hist_range_s: (f64, f64),
+    /// Holds below and above the histogram's range.
+    pub outside_hist: (u64, u64),
+}
+
+impl Group {
+    fn new(name: &str) -> Group {
+        Group {
+            name: name.to_owned(),
+            total: 0,
+            verdicts: [0; 7],
+            hold_s: Moments::default(),
+            gross: 0,
+            window_s: None,
+            capability: None,
+            cp: None,
+            cpk: None,
+            bins: Vec::new(),
+            hist_range_s: (0.0, 0.0),
+            outside_hist: (0, 0),
+        }
+    }
+
+    /// Passing measurements.
+    #[must_use]
+    pub fn passed(&self) -> u64 {
+        self.verdicts.first().copied().unwrap_or(0)
+    }
+
+    /// Yield, %.
+    #[must_use]
+    pub fn yield_pct(&self) -> f64 {
+        if self.total == 0 {
+            f64::NAN
+        } else {
+            100.0 * self.passed() as f64 / self.total as f64
+        }
+    }
+
+    fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>) {
+        self.total += 1;
+        if let Some(c) = self.verdicts.get_mut(usize::from(codes::verdict_code(r.verdict))) {
+            *c += 1;
+        }
+        let Some(hold) = r.hold_ticks else { return };
+        if !matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) {
+            return;
+        }
+        if matches!(r.hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode) {
+            self.gross += 1;
+            return;
+        }
+        let s = hold as f64 / f64::from(r.clock_hz.max(1));
+        self.hold_s.add(s);
+        if self.window_s.is_none() {
+            if let Some((lo, hi)) = window_s {
+                self.window_s = Some((lo, hi));
+                let w = hi - lo;
+                self.hist_range_s = (lo - 0.5 * w, hi + 0.5 * w);
+                self.bins = vec![0; BINS];
+            }
+        }
+        if !self.bins.is_empty() {
+            let (a, b) = self.hist_range_s;
+            let k = ((s - a) / (b - a) * BINS as f64).floor();
+            if k < 0.0 {
+                self.outside_hist.0 += 1;
+            } else if k >= BINS as f64 {
+                self.outside_hist.1 += 1;
+            } else if let Some(c) = self.bins.get_mut(k as usize) {
+                *c += 1;
+            }
+        }
+    }
+
+    fn finish(&mut self) {
+        if let Some((lo, hi)) = self.window_s {
+            let sd = self.hold_s.sd();
+            if self.hold_s.n > 1 && sd > 0.0 {
+                let c = stats::capability(lo, hi, self.hold_s.mean, sd);
+                self.cp = Some(c.cp);
+                self.cpk = Some(c.cpk);
+                self.capability = Some(c);
+            }
+        }
+    }
+}
+
+/// A failing measurement.
+#[derive(Debug, Clone, Serialize)]
+pub struct Reject {
+    /// Station.
+    pub station: String,
+    /// Batch.
+    pub batch: String,
+    /// When, ms since the epoch.
+    pub measured_ms: i64,
+    /// The record.
+    #[serde(skip)]
+    pub record: Record,
+    /// Unit.
+    pub unit: u32,
+    /// Verdict name.
+    pub verdict: &'static str,
+    /// Hint name.
+    pub hint: &'static str,
+    /// Hold, s.
+    pub hold_s: Option<f64>,
+    /// Implied capacitance deviation, %.
+    pub c_dev_pct: Option<f64>,
+}
+
+/// A verdict the reference does not confirm.
+#[derive(Debug, Clone, Serialize)]
+pub struct Disagreement {
+    /// Station.
+    pub station: String,
+    /// Unit.
+    pub unit: u32,
+    /// Seq.
+    pub seq: u32,
+    /// Hold, ticks.
+    pub hold_ticks: u64,
+    /// Firmware verdict and hint.
+    pub firmware: (&'static str, &'static str),
+    /// Reference verdict and hint.
+    pub reference: (&'static str, &'static str),
+}
+
+/// The re-check's summary.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct Recheck {
+    /// Windows the reference computed, per setup.
+    pub windows: Vec<RecheckWindow>,
+    /// Setups that could not be re-checked, and why.
+    pub setup_errors: Vec<String>,
+    /// Verdicts re-checked.
+    pub checked: u64,
+    /// Verdicts and hints the reference confirms.
+    pub agreed: u64,
+    /// Records without a setup or a hold-decided verdict (not re-checked).
+    pub not_checkable: u64,
+    /// Disagreements (the first [`Tally::keep`]).
+    pub disagreements: Vec<Disagreement>,
+    /// Disagreements in all.
+    pub disagreements_total: u64,
+}
+
+/// Yield per batch or per day.
+#[derive(Debug, Clone, Serialize)]
+pub struct Part {
+    /// Station.
+    pub station: String,
+    /// Batch or date.
+    pub key: String,
+    /// Measurements.
+    pub total: u64,
+    /// Passing.
+    pub passed: u64,
+}
+
+/// The report.
+#[derive(Debug, Clone, Serialize)]
+pub struct YieldReport {
+    /// Per station.
+    pub stations: Vec<Group>,
+    /// All stations.
+    pub all: Group,
+    /// Per station and batch.
+    pub batches: Vec<Part>,
+    /// Per station and day (UTC).
+    pub days: Vec<Part>,
+    /// The first rejects.
+    pub rejects: Vec<Reject>,
+    /// Rejects in all.
+    pub rejects_total: u64,
+    /// The `f64` re-check (`None` when switched off).
+    pub recheck: Option<Recheck>,
+    /// First and last measurement, ms.
+    pub span_ms: Option<(i64, i64)>,
+}
+
+/// One-pass accumulator of the yield report.
+pub struct Tally {
+    stations: Vec<Group>,
+    index: HashMap<String, usize>,
+    last_station: Option<(String, usize)>,
+    all: Group,
+    batches: Vec<HashMap<String, (u64, u64)>>,
+    days: BTreeMap<(usize, i64), (u64, u64)>,
+    windows: HashMap<i64, (f64, f64)>,
+    checkers: HashMap<i64, Checker>,
+    recheck: Option<Recheck>,
+    rejects: Vec<Reject>,
+    rejects_total: u64,
+    reject_log: Option<Box<dyn Write>>,
+    reject_error: Option<std::io::Error>,
+    span: Option<(i64, i64)>,
+    /// How many rejects and disagreements to keep for the report.
+    pub keep: usize,
+}
+
+impl Tally {
+    /// A tally over records measured against `setups` (by id); `recheck`
+    /// switches on the `f64` re-check; `reject_log` receives every reject
+    /// as a measurement log line.
+    #[must_use]
+    pub fn new(setups: &HashMap<i64, Setup>, recheck: bool, reject_log: Option<Box<dyn Write>>) -> Tally {
+        let windows = setups
+            .iter()
+            .map(|(&id, s)| {
+                let c = f64::from(s.clock_hz);
+                (id, (s.hold_min_ticks as f64 / c, s.hold_max_ticks as f64 / c))
+            })
+            .collect();
+        let mut checkers = HashMap::new();
+        let mut rc = Recheck::default();
+        if recheck {
+            let mut ids: Vec<&i64> = setups.keys().collect();
+            ids.sort();
+            for id in ids {
+                let Some(s) = setups.get(id) else { continue };
+                match Checker::new(s) {
+                    Ok(c) => {
+                        rc.windows.push(c.window.clone());
+                        checkers.insert(*id, c);
+                    }
+                    Err(e) => rc.setup_errors.push(format!("setup {} ({}): {e}", id, s.name)),
+                }
+            }
+        }
+        let mut reject_log = reject_log;
+        let reject_error = reject_log.as_mut().and_then(|w| log::write_header(w).err());
+        Tally {
+            stations: Vec::new(),
+            index: HashMap::new(),
+            last_station: None,
+            all: Group::new("all"),
+            batches: Vec::new(),
+            days: BTreeMap::new(),
+            windows,
+            checkers,
+            recheck: recheck.then_some(rc),
+            rejects: Vec::new(),
+            rejects_total: 0,
+            reject_log,
+            reject_error,
+            span: None,
+            keep: 50,
+        }
+    }
+
+    fn station(&mut self, name: &str) -> usize {
+        if let Some((n, i)) = &self.last_station {
+            if n == name {
+                return *i;
+            }
+        }
+        let i = match self.index.get(name) {
+            Some(&i) => i,
+            None => {
+                self.stations.push(Group::new(name));
+                self.index.insert(name.to_owned(), self.stations.len() - 1);
+                self.stations.len() - 1
+            }
+        };
+        self.last_station = Some((name.to_owned(), i));
+        i
+    }
+
+    /// Adds one measurement.
+    pub fn add(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
+        let si = self.station(station);
+        let window = setup_id.and_then(|id| self.windows.get(&id)).copied();
+        if let Some(g) = self.stations.get_mut(si) {
+            g.add(r, window);
+        }
+        self.all.add(r, window);
+        let pass = u64::from(r.verdict.passes());
+        if self.batches.len() <= si {
+            self.batches.resize_with(si + 1, HashMap::new);
+        }
+        if let Some(m) = self.batches.get_mut(si) {
+            let e = match m.get_mut(batch) {
+                Some(e) => e,
+                None => m.entry(batch.to_owned()).or_insert((0, 0)),
+            };
+            e.0 += 1;
+            e.1 += pass;
+        }
+        let d = self.days.entry((si, measured_ms.div_euclid(86_400_000))).or_insert((0, 0));
+        d.0 += 1;
+        d.1 += pass;
+        self.span =
+            Some(self.span.map_or((measured_ms, measured_ms), |(a, b)| (a.min(measured_ms), b.max(measured_ms))));
+        if !r.verdict.passes() {
+            self.rejects_total += 1;
+            if self.rejects.len() < self.keep {
+                self.rejects.push(Reject {
+                    station: station.to_owned(),
+                    batch: batch.to_owned(),
+                    measured_ms,
+                    record: *r,
+                    unit: r.unit_id,
+                    verdict: r.verdict.name(),
+                    hint: r.hint.name(),
+                    hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
+                    c_dev_pct: r.c_deviation_ppm.map(|d| f64::from(d) / 1e4),
+                });
+            }
+            if let (Some(w), None) = (self.reject_log.as_mut(), &self.reject_error) {
+                self.reject_error = log::write_line(w, measured_ms, station, batch, r).err();
+            }
+        }
+        if let Some(rc) = self.recheck.as_mut() {
+            let checker = setup_id.and_then(|id| self.checkers.get(&id));
+            match (checker, r.hold_ticks) {
+                (Some(c), Some(h)) if matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) => {
+                    rc.checked += 1;
+                    let (v, hint) = c.judge(h);
+                    if v == r.verdict && hint == r.hint {
+                        rc.agreed += 1;
+                    } else {
+                        rc.disagreements_total += 1;
+                        if rc.disagreements.len() < self.keep {
+                            rc.disagreements.push(Disagreement {
+                                station: station.to_owned(),
+                                unit: r.unit_id,
+                                seq: r.seq,
+                                hold_ticks: h,
+                                firmware: (r.verdict.name(), r.hint.name()),
+                                reference: (v.name(), hint.name()),
+                            });
+                        }
+                    }
+                }
+                _ => rc.not_checkable += 1,
+            }
+        }
+    }
+
+    /// The report.
+    ///
+    /// # Errors
+    /// Writing the reject log failed.
+    pub fn finish(mut self) -> std::io::Result<YieldReport> {
+        if let Some(e) = self.reject_error.take() {
+            return Err(e);
+        }
+        if let Some(w) = self.reject_log.as_mut() {
+            w.flush()?;
+        }
+        for g in &mut self.stations {
+            g.finish();
+        }
+        self.all.finish();
+        let name = |i: usize| self.stations.get(i).map_or_else(String::new, |g| g.name.clone());
+        let mut batches: Vec<Part> = self
+            .batches
+            .iter()
+            .enumerate()
+            .flat_map(|(s, m)| {
+                m.iter().map(move |(b, &(total, passed))| Part { station: name(s), key: b.clone(), total, passed })
+            })
+            .collect();
+        batches.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
+        let days = self
+            .days
+            .iter()
+            .map(|((s, d), &(total, passed))| Part {
+                station: name(*s),
+                key: timestamp::date_of(d * 86_400_000),
+                total,
+                passed,
+            })
+            .collect();
+        Ok(YieldReport {
+            stations: self.stations,
+            all: self.all,
+            batches,
+            days,
+            rejects: self.rejects,
+            rejects_total: self.rejects_total,
+            recheck: self.recheck,
+            span_ms: self.span,
+        })
+    }
+}
+
+fn pct(part: u64, total: u64) -> String {
+    if total == 0 {
+        "–".to_owned()
+    } else {
+        format!("{:.2} %", 100.0 * part as f64 / total as f64)
+    }
+}
+
+fn opt2(v: Option<f64>) -> String {
+    v.map_or_else(|| "–".to_owned(), |x| format!("{x:.2}"))
+}
+
+/// The report as text.
+#[must_use]
+pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
+    let mut o = String::new();
+    let _ = writeln!(o, "Fixture yield");
+    if let Some((a, b)) = r.span_ms {
+        let _ = writeln!(o, "  measured {} … {}", timestamp::format_ms(a), timestamp::format_ms(b));
+    }
+    let _ = writeln!(o);
+    let _ = writeln!(
+        o,
+        "  {:<16} {:>9} {:>9} {:>9}  {:>10} {:>10} {:>6} {:>6}",
+        "station", "measured", "passed", "yield", "hold mean", "hold σ", "Cp", "Cpk"
+    );
+    for g in r.stations.iter().chain(std::iter::once(&r.all)) {
+        let _ = writeln!(
+            o,
+            "  {:<16} {:>9} {:>9} {:>9}  {:>10} {:>10} {:>6} {:>6}",
+            g.name,
+            g.total,
+            g.passed(),
+            pct(g.passed(), g.total),
+            if g.hold_s.n > 0 { si(g.hold_s.mean, "s") } else { "–".into() },
+            if g.hold_s.n > 1 { si(g.hold_s.sd(), "s") } else { "–".into() },
+            opt2(g.cp),
+            opt2(g.cpk),
+        );
+    }
+    let _ = writeln!(o, "\n  verdicts (all stations)");
+    for (v, n) in VERDICTS.iter().zip(r.all.verdicts) {
+        if n > 0 {
+            let _ = writeln!(o, "    {:<14} {:>9}  {:>8}", v.name(), n, pct(n, r.all.total));
+        }
+    }
+    if let Some((lo, hi)) = r.all.window_s {
+        let _ = writeln!(
+            o,
+            "\n  capability against the pass window {} … {} (NIST/SEMATECH e-Handbook §6.1.6);\n  \
+             {} gross faults (wrong part, open capacitor) left out",
+            si(lo, "s"),
+            si(hi, "s"),
+            r.all.gross
+        );
+    }
+    let _ = writeln!(o, "\n  per batch");
+    for b in r.batches.iter().take(max_rows) {
+        let _ = writeln!(o, "    {:<16} {:<14} {:>9} {:>9}", b.station, b.key, b.total, pct(b.passed, b.total));
+    }
+    if r.batches.len() > max_rows {
+        let _ = writeln!(o, "    … {} more", r.batches.len() - max_rows);
+    }
+    if r.days.len() > 1 {
+        let _ = writeln!(o, "\n  per day (UTC)");
+        for d in r.days.iter().take(max_rows) {
+            let _ = writeln!(o, "    {:<16} {:<14} {:>9} {:>9}", d.station, d.key, d.total, pct(d.passed, d.total));
+        }
+        if r.days.len() > max_rows {
+            let _ = writeln!(o, "    … {} more", r.days.len() - max_rows);
+        }
+    }
+    let _ = writeln!(o, "\n  rejects: {}", r.rejects_total);
+    for x in r.rejects.iter().take(max_rows) {
+        let _ = writeln!(
+            o,
+            "    {:<12} {:<10} unit {:>8}  {:<13} {:<30} hold {:>10}  C {}",
+            x.station,
+            x.batch,
+            x.unit,
+            x.verdict,
+            x.hint,
+            x.hold_s.map_or_else(|| "–".into(), |h| si(h, "s")),
+            x.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %")),
+        );
+    }
+    if r.rejects_total as usize > r.rejects.len().min(max_rows) {
+        let _ = writeln!(o, "    … {} more", r.rejects_total as usize - r.rejects.len().min(max_rows));
+    }
+    match &r.recheck {
+        None => {
+            let _ = writeln!(o, "\n  f64 re-check: switched off");
+        }
+        Some(rc) => {
+            let _ = writeln!(
+                o,
+                "\n  f64 re-check: {} of {} verdicts confirmed by the independent f64 reference; {} disagree; \
+                 {} not re-checkable (no setup, or a verdict a hold does not decide)",
+                rc.agreed, rc.checked, rc.disagreements_total, rc.not_checkable
+            );
+            for w in &rc.windows {
+                let _ = writeln!(
+                    o,
+                    "    {}: reference window {} … {} ticks, firmware window {} … {} ticks",
+                    w.setup, w.hold_min_ticks, w.hold_max_ticks, w.stored_ticks.0, w.stored_ticks.1
+                );
+            }
+            for e in &rc.setup_errors {
+                let _ = writeln!(o, "    not re-checked: {e}");
+            }
+            for d in rc.disagreements.iter().take(max_rows) {
+                let _ = writeln!(
+                    o,
+                    "    {} unit {} seq {} hold {} ticks: firmware {}/{}, reference {}/{}",
+                    d.station, d.unit, d.seq, d.hold_ticks, d.firmware.0, d.firmware.1, d.reference.0, d.reference.1
+                );
+            }
+        }
+    }
+    o
+}
+
+/// The hold histogram of a group, with its window.
+#[must_use]
+pub fn histogram_svg(g: &Group) -> Option<String> {
+    let (lo, hi) = g.window_s?;
+    let (a, b) = g.hist_range_s;
+    let marks = [
+        (lo, format!("pass from {}", si(lo, "s")), "#b03030"),
+        (hi, format!("pass to {}", si(hi, "s")), "#b03030"),
+        (g.hold_s.mean, "mean".to_owned(), "#207020"),
+    ];
+    let title = format!(
+        "{}: hold of {} boards, Cpk {}{}",
+        g.name,
+        g.hold_s.n,
+        opt2(g.cpk),
+        if g.outside_hist.0 + g.outside_hist.1 > 0 {
+            format!(" ({} outside the plot)", g.outside_hist.0 + g.outside_hist.1)
+        } else {
+            String::new()
+        }
+    );
+    Some(chart::histogram(&g.bins, a, b, &marks, &title, "hold", &|v| si(v, "s")))
+}
