@@ -11,6 +11,8 @@ use anyhow::Context as _;
 use clap::{Parser, Subcommand};
 use host_check::{agree, eval, stagefile};
 
+mod data_cmds;
+
 #[derive(Parser)]
 #[command(name = "rchold", version, about = "Design and check RC hold stages", max_term_width = 100)]
 struct Cli {
@@ -167,11 +169,143 @@ enum Command {
         #[arg(long, value_name = "PPM")]
         fail_above: Option<f64>,
     },
+    /// Store the firmware's framed records from a serial port, a file or standard input.
+    Listen {
+        /// File of frames, or "-" for standard input (the default); ignored with --port.
+        input: Option<PathBuf>,
+        /// Serial port to read ("/dev/ttyUSB0", "COM3").
+        #[arg(long)]
+        port: Option<String>,
+        /// Serial baud rate.
+        #[arg(long, default_value_t = 115_200)]
+        baud: u32,
+        /// Station the records come from (1 … 64 bytes).
+        #[arg(long)]
+        station: String,
+        /// Batch label (0 … 64 bytes).
+        #[arg(long, default_value = "")]
+        batch: String,
+        #[command(flatten)]
+        setup: data_cmds::SetupArgs,
+        /// Time of seq 0, for a unit replaying its stored history ("2027-01-01T06:00:00Z"); with --seq-period.
+        #[arg(long)]
+        seq_start: Option<String>,
+        /// Period between two seq numbers ("1d", "6h"); with --seq-start. Default: time of arrival.
+        #[arg(long)]
+        seq_period: Option<String>,
+        /// The measurement store (SQLite).
+        #[arg(long, default_value = "rchold.db")]
+        db: PathBuf,
+        /// No live status line.
+        #[arg(long)]
+        quiet: bool,
+    },
+    /// Store measurement logs (CSV, schema in the README); each file all or nothing, each file once.
+    Ingest {
+        /// Log files.
+        #[arg(required = true)]
+        files: Vec<PathBuf>,
+        #[command(flatten)]
+        setup: data_cmds::SetupArgs,
+        /// The measurement store (SQLite).
+        #[arg(long, default_value = "rchold.db")]
+        db: PathBuf,
+    },
+    /// Fixture yield: verdicts, yield per station, batch and day, Cp/Cpk, rejects and the f64 re-check.
+    Yield {
+        /// The measurement store (SQLite).
+        #[arg(long, default_value = "rchold.db")]
+        db: PathBuf,
+        /// Read these measurement logs directly instead of the store.
+        #[arg(long, value_name = "FILE", num_args = 1..)]
+        csv: Vec<PathBuf>,
+        #[command(flatten)]
+        select: data_cmds::Select,
+        #[command(flatten)]
+        setup: data_cmds::SetupArgs,
+        /// Write yield.txt, the hold histograms and rejects.csv into this folder.
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+        /// Skip the f64 re-check of every verdict.
+        #[arg(long)]
+        skip_recheck: bool,
+        /// Print JSON instead of the text report.
+        #[arg(long)]
+        json: bool,
+        /// Rows per table in the text report.
+        #[arg(long, default_value_t = 20)]
+        rows: usize,
+    },
+    /// Fleet aging: each unit's capacitance trend, rate per year and forecast end of life.
+    Aging {
+        /// The measurement store (SQLite).
+        #[arg(long, default_value = "rchold.db")]
+        db: PathBuf,
+        #[command(flatten)]
+        select: data_cmds::Select,
+        /// Only this unit.
+        #[arg(long)]
+        unit: Option<u32>,
+        /// End of life: this loss of capacitance from nominal ("-20%").
+        #[arg(long, default_value = "-20%", allow_hyphen_values = true)]
+        limit: String,
+        /// Flag units whose forecast falls within this many months after the last measurement.
+        #[arg(long, default_value_t = 12)]
+        months: u32,
+        /// Write aging.txt and the trend SVGs into this folder.
+        #[arg(long, value_name = "DIR")]
+        out: Option<PathBuf>,
+        /// Print JSON instead of the text report.
+        #[arg(long)]
+        json: bool,
+        /// Rows in the text report.
+        #[arg(long, default_value_t = 30)]
+        rows: usize,
+    },
+    /// What the store holds: each stream and log with its counts.
+    Sources {
+        /// The measurement store (SQLite).
+        #[arg(long, default_value = "rchold.db")]
+        db: PathBuf,
+    },
+    /// The whole data path on simulated boards and field units, end to end, with an HTML report.
+    Demo {
+        /// Folder for the database, the logs and the reports.
+        #[arg(long, default_value = "rchold-demo")]
+        out: PathBuf,
+        /// Boards through the fixture.
+        #[arg(long, default_value_t = 2_000, value_parser = clap::value_parser!(u32).range(10..=1_000_000))]
+        boards: u32,
+        /// Field units.
+        #[arg(long, default_value_t = 200, value_parser = clap::value_parser!(u32).range(1..=100_000))]
+        units: u32,
+        /// Days each field unit measures.
+        #[arg(long, default_value_t = 1_096, value_parser = clap::value_parser!(u32).range(10..=36_500))]
+        days: u32,
+        /// Seed.
+        #[arg(long, default_value_t = 2_026)]
+        seed: u64,
+    },
+    /// Write a synthetic measurement log (for trying the tools and for benchmarks; not real data).
+    SynthLog {
+        /// Where to write it.
+        #[arg(long)]
+        out: PathBuf,
+        /// Measurements.
+        #[arg(long, default_value_t = 1_000_000)]
+        records: u64,
+        /// Stations.
+        #[arg(long, default_value_t = 4)]
+        stations: u32,
+        /// Seed.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+    },
 }
 
 /// A failure that maps to exit code 2 (bad input), printed on one line.
 #[derive(Debug)]
-struct BadInput(String);
+pub(crate) struct BadInput(pub(crate) String);
 
 impl std::fmt::Display for BadInput {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
@@ -206,7 +340,7 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
     e.chain().any(|c| c.downcast_ref::<std::io::Error>().is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe))
 }
 
-fn emit(text: &str) -> anyhow::Result<()> {
+pub(crate) fn emit(text: &str) -> anyhow::Result<()> {
     let mut out = std::io::stdout().lock();
     out.write_all(text.as_bytes()).context("writing the report")?;
     out.flush().context("writing the report")?;
@@ -237,35 +371,8 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
         Command::Window { stage, clock, guard, poll, emit: what, out } => {
             let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
-            let bad = |opt: &str, v: &str, range: &str, why: String| {
-                BadInput(format!("--{opt} {v:?}: {why} (accepted: {range})"))
-            };
-            let clock_hz = host_check::values::parse_value(&clock, &["Hz"])
-                .map_err(|e| bad("clock", &clock, "1 kHz to 200 MHz", e.to_string()))?;
-            if !(1e3..=200e6).contains(&clock_hz) {
-                return Err(bad("clock", &clock, "1 kHz to 200 MHz", "out of range".into()).into());
-            }
-            let guard_ppm = match host_check::values::parse_tolerance(&guard, &[]) {
-                Ok(host_check::values::Tol::Relative(f)) if f <= 0.5 => (f * 1e6).round() as u32,
-                Ok(_) => return Err(bad("guard", &guard, "0% to 50%", "give a percentage".into()).into()),
-                Err(e) => return Err(bad("guard", &guard, "0% to 50%", e.to_string()).into()),
-            };
-            let nominal = rc_model::Model::new(&sf.stage)
-                .and_then(|m| m.evaluate())
-                .map_err(|e| BadInput(sf.model_error(e).to_string()))?;
-            let poll_ns = match &poll {
-                Some(p) => {
-                    let s = host_check::values::parse_value(p, &["s"])
-                        .map_err(|e| bad("poll", p, "1 µs to 1 s", e.to_string()))?;
-                    if !(1e-6..=1.0).contains(&s) {
-                        return Err(bad("poll", p, "1 µs to 1 s", "out of range".into()).into());
-                    }
-                    (s * 1e9).round() as u32
-                }
-                None => (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32,
-            };
-            let config =
-                host_check::fixture::settings(&sf, clock_hz.round() as u32, guard_ppm, poll_ns).map_err(BadInput)?;
+            let (config, _) =
+                host_check::fixture::settings_from_text(&sf, &clock, &guard, poll.as_deref()).map_err(BadInput)?;
             let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
             match what.as_str() {
                 "bin" => {
@@ -543,6 +650,21 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             emit(&text)?;
             Ok(ExitCode::SUCCESS)
         }
+        Command::Listen { input, port, baud, station, batch, setup, seq_start, seq_period, db, quiet } => {
+            data_cmds::listen(input, port, baud, station, batch, &setup, seq_start, seq_period, &db, quiet)
+        }
+        Command::Ingest { files, setup, db } => data_cmds::ingest(&files, &setup, &db),
+        Command::Yield { db, csv, select, setup, out, skip_recheck, json, rows } => {
+            data_cmds::yields(&db, &csv, &select, &setup, out, skip_recheck, json, rows)
+        }
+        Command::Aging { db, select, unit, limit, months, out, json, rows } => {
+            data_cmds::aging(&db, &select, unit, &limit, months, out, json, rows)
+        }
+        Command::Sources { db } => data_cmds::sources(&db),
+        Command::Demo { out, boards, units, days, seed } => {
+            data_cmds::run_demo(&out, host_check::demo::Scenario { boards, units, days, seed })
+        }
+        Command::SynthLog { out, records, stations, seed } => data_cmds::synth_log(&out, records, stations, seed),
         Command::Agree { points, seed, json, fail_above } => {
             let tty = std::io::IsTerminal::is_terminal(&std::io::stderr());
             let progress = move |done: usize, total: usize| {

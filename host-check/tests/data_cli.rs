@@ -1,0 +1,203 @@
+//! The data commands of the real `rchold` binary: bad input, idempotent
+//! ingest, a killed ingest, two writing processes, listen from a file, and
+//! the reports.
+
+use std::path::Path;
+use std::process::{Command, Output, Stdio};
+use std::time::{Duration, Instant};
+
+fn rchold(dir: &Path, args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_rchold"))
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .unwrap_or_else(|e| panic!("cannot run rchold: {e}"))
+}
+
+fn text(b: &[u8]) -> String {
+    String::from_utf8_lossy(b).into_owned()
+}
+
+fn count(db: &Path) -> u64 {
+    host_check::store::Store::open(db).and_then(|s| s.count()).unwrap_or_else(|e| panic!("{e}"))
+}
+
+fn synth(dir: &Path, name: &str, records: u64, seed: u64) {
+    let out =
+        rchold(dir, &["synth-log", "--out", name, "--records", &records.to_string(), "--seed", &seed.to_string()]);
+    assert!(out.status.success(), "{}", text(&out.stderr));
+}
+
+/// Unit ids and seq repeat between synthetic logs: move one to other stations.
+fn rename_stations(dir: &Path, name: &str, prefix: &str) {
+    let t = std::fs::read_to_string(dir.join(name)).unwrap_or_default().replace(",line-", &format!(",{prefix}"));
+    std::fs::write(dir.join(name), t).unwrap_or_else(|e| panic!("{e}"));
+}
+
+#[test]
+fn a_bad_log_is_refused_in_one_line_and_stores_nothing() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "a.csv", 50, 1);
+    let good = std::fs::read_to_string(dir.path().join("a.csv")).unwrap_or_default();
+    let mut lines: Vec<String> = good.lines().map(str::to_owned).collect();
+    if let Some(l) = lines.get_mut(7) {
+        *l = l.replacen(",1000000,", ",5,", 1);
+    }
+    std::fs::write(dir.path().join("bad.csv"), lines.join("\n") + "\n").unwrap_or_else(|e| panic!("{e}"));
+    let out = rchold(dir.path(), &["ingest", "bad.csv", "a.csv"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.starts_with("rchold: bad.csv:8: clock_hz: \"5\" is out of range (accepted: 1000 … 200000000) (nothing of this file was stored)"),
+        "{err}"
+    );
+    // The good file in the same call was stored; the bad one not at all.
+    assert_eq!(count(&dir.path().join("rchold.db")), 50);
+    let again = rchold(dir.path(), &["ingest", "a.csv"]);
+    assert!(again.status.success());
+    assert!(text(&again.stdout).contains("already stored as source 1; nothing to do"), "{}", text(&again.stdout));
+    assert_eq!(count(&dir.path().join("rchold.db")), 50);
+    // Direct reading reports the same line.
+    let y = rchold(dir.path(), &["yield", "--csv", "bad.csv"]);
+    assert_eq!(y.status.code(), Some(2));
+    assert!(text(&y.stderr).contains("bad.csv:8: clock_hz:"), "{}", text(&y.stderr));
+    // Options out of range.
+    for (args, want) in [
+        (
+            vec!["listen", "--station", "x", "--seq-start", "2027-01-01", "--seq-period", "3 weeks"],
+            "--seq-period \"3 weeks\"",
+        ),
+        (vec!["aging", "--limit", "-120%"], "--limit \"-120%\""),
+        (vec!["yield", "--from", "yesterday"], "--from \"yesterday\""),
+        (vec!["synth-log", "--out", "x.csv", "--stations", "0"], "--stations 0"),
+    ] {
+        let o = rchold(dir.path(), &args);
+        assert_eq!(o.status.code(), Some(2), "{args:?}");
+        assert!(
+            text(&o.stderr).contains(want) && text(&o.stderr).contains("accepted"),
+            "{args:?}: {}",
+            text(&o.stderr)
+        );
+    }
+}
+
+/// Kill the ingest mid-file: the database is consistent and holds none of that file.
+#[test]
+fn a_killed_ingest_leaves_nothing_behind() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "big.csv", 600_000, 2);
+    synth(dir.path(), "small.csv", 1_000, 3);
+    rename_stations(dir.path(), "small.csv", "pilot-");
+    assert!(rchold(dir.path(), &["ingest", "small.csv"]).status.success());
+    let mut child = Command::new(env!("CARGO_BIN_EXE_rchold"))
+        .args(["ingest", "big.csv"])
+        .current_dir(dir.path())
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap_or_else(|e| panic!("{e}"));
+    // Wait until the transaction is well under way (its pages spill into the WAL).
+    let wal = dir.path().join("rchold.db-wal");
+    let t = Instant::now();
+    while std::fs::metadata(&wal).map_or(0, |m| m.len()) < 4 << 20 {
+        assert!(t.elapsed() < Duration::from_secs(120), "ingest never got going");
+        if let Ok(Some(s)) = child.try_wait() {
+            panic!("ingest finished before it could be killed ({s}); make the file bigger");
+        }
+        std::thread::sleep(Duration::from_millis(5));
+    }
+    child.kill().unwrap_or_else(|e| panic!("{e}"));
+    let _ = child.wait();
+    let store = host_check::store::Store::open(&dir.path().join("rchold.db")).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(store.integrity().ok().as_deref(), Some("ok"));
+    assert_eq!(store.count().ok(), Some(1_000));
+    assert_eq!(store.sources().map(|s| s.len()).ok(), Some(1), "the killed file left a source row");
+    drop(store);
+    // The file can be ingested afterwards, whole.
+    let again = rchold(dir.path(), &["ingest", "big.csv"]);
+    assert!(again.status.success(), "{}", text(&again.stderr));
+    assert_eq!(count(&dir.path().join("rchold.db")), 601_000);
+}
+
+/// Two processes writing at once into one store lose nothing.
+#[test]
+fn two_processes_write_at_once() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "one.csv", 150_000, 4);
+    synth(dir.path(), "two.csv", 150_000, 5);
+    rename_stations(dir.path(), "two.csv", "other-");
+    let spawn =
+        |f: &str| Command::new(env!("CARGO_BIN_EXE_rchold")).args(["ingest", f]).current_dir(dir.path()).output();
+    let (a, b) = std::thread::scope(|s| {
+        let a = s.spawn(|| spawn("one.csv"));
+        let b = s.spawn(|| spawn("two.csv"));
+        (a.join(), b.join())
+    });
+    for o in [a, b] {
+        let o = o.unwrap_or_else(|_| panic!("thread")).unwrap_or_else(|e| panic!("{e}"));
+        assert!(o.status.success(), "{}", text(&o.stderr));
+    }
+    assert_eq!(count(&dir.path().join("rchold.db")), 300_000);
+}
+
+/// Frames from a file through listen, then the reports.
+#[test]
+fn listen_from_a_file_then_report() {
+    use hold_firmware::record;
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let mut bytes = Vec::new();
+    for i in 0..300u32 {
+        let r = record::Record {
+            seq: i,
+            unit_id: 77,
+            press_ticks: 200_000,
+            on_ticks: Some(2_600),
+            hold_ticks: Some(15_770_000 - u64::from(i) * 2_000),
+            clock_hz: 1_000_000,
+            temp_mdeg_c: Some(20_000),
+            verdict: hold_firmware::Verdict::WithinWindow,
+            hint: hold_firmware::Hint::None,
+            drift: hold_firmware::drift::DriftState::Steady,
+            c_deviation_ppm: None,
+        };
+        bytes.extend_from_slice(&record::encode(&r).unwrap_or_default());
+    }
+    bytes.extend_from_slice(&[7, 7, 7, 0]); // line noise: one bad frame
+    std::fs::write(dir.path().join("frames.bin"), &bytes).unwrap_or_else(|e| panic!("{e}"));
+    let stage = Path::new(env!("CARGO_MANIFEST_DIR")).join("../examples/kestrel-meter.toml");
+    let stage = stage.to_string_lossy();
+    let out = rchold(
+        dir.path(),
+        &[
+            "listen",
+            "frames.bin",
+            "--station",
+            "meters",
+            "--stage",
+            &stage,
+            "--seq-start",
+            "2027-01-01",
+            "--seq-period",
+            "1d",
+        ],
+    );
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    assert!(text(&out.stdout).contains("300 records stored, 0 already stored, 1 bad frames"), "{}", text(&out.stdout));
+    let src = rchold(dir.path(), &["sources"]);
+    assert!(text(&src.stdout).contains("300 measurements"), "{}", text(&src.stdout));
+    // Aging: the deviation is computed from hold, temperature and the stored stage file.
+    let aging = rchold(dir.path(), &["aging", "--json"]);
+    assert!(aging.status.success(), "{}", text(&aging.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&aging.stdout).unwrap_or_default();
+    let rate = v["units"][0]["rate_pct_per_year"].as_f64().unwrap_or(f64::NAN);
+    // 2,000 ticks of 15.77 s a day is 0.01268 % a day: about −4.6 % a year.
+    assert!((rate + 4.63).abs() < 0.3, "rate {rate}");
+    assert_eq!(v["units"][0]["status"], "aging");
+    // Yield with the re-check: every record is within the window and confirmed.
+    let y = rchold(dir.path(), &["yield", "--json"]);
+    assert!(y.status.success(), "{}", text(&y.stderr));
+    let v: serde_json::Value = serde_json::from_slice(&y.stdout).unwrap_or_default();
+    assert_eq!(v["all"]["total"], 300);
+    assert_eq!(v["recheck"]["agreed"], 300);
+}
