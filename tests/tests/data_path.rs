@@ -1,0 +1,261 @@
+//! The data side end to end: the demo scenario's records through listen and
+//! ingest into the store, the yield and fleet reports out of it; corrupted
+//! streams; idempotent and atomic ingest; two writers at once.
+
+use std::collections::HashSet;
+use std::io::Cursor;
+
+use hold_firmware::drift::DriftState;
+use hold_firmware::record::{self, Record};
+use hold_firmware::{Hint, Verdict};
+use host_check::collect::{self, Ingested, Labels, TimeRule};
+use host_check::demo::{self, Scenario};
+use host_check::store::{Filter, Store};
+use host_check::{log, timestamp};
+use proptest::prelude::*;
+
+fn tmp() -> tempfile::TempDir {
+    tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"))
+}
+
+/// The demo scenario, smaller: every record sent is stored or reported as a
+/// bad frame; the reports see exactly what was stored; every injected fault
+/// that reached the store is rejected with a hint; the firmware's verdicts
+/// all survive the f64 re-check; the fleet forecasts land within ±20 % of
+/// the simulated truth.
+#[test]
+fn demo_scenario_end_to_end() {
+    let dir = tmp();
+    let sc = Scenario { boards: 400, units: 24, days: 500, seed: 7 };
+    let out = demo::run(&sc, &dir.path().join("d.db"), dir.path(), |_| {}).unwrap_or_else(|e| panic!("{e}"));
+    let l = &out.ledger;
+    assert_eq!(l.bay_a_sent + l.bay_b_lines, u64::from(sc.boards));
+    assert_eq!(l.bay_a_sent, l.bay_a_stored + l.bay_a_bad, "{l:?}");
+    assert_eq!(l.bay_a_bad, l.bay_a_damaged);
+    assert!(l.bay_a_bad > 0, "the line noise must cost something");
+    assert_eq!(l.bay_b_lines, l.bay_b_stored);
+    assert_eq!(l.fleet_sent, u64::from(sc.units) * u64::from(sc.days));
+    assert_eq!(l.fleet_sent, l.fleet_stored + l.fleet_bad);
+    let store = Store::open(&dir.path().join("d.db")).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(store.count().ok(), Some(l.bay_a_stored + l.bay_b_stored + l.fleet_stored));
+    assert_eq!(store.integrity().ok().as_deref(), Some("ok"));
+    // What the store's sources say matches what the demo counted.
+    let sources = store.sources().unwrap_or_else(|e| panic!("{e}"));
+    let (stored, bad): (u64, u64) = sources.iter().fold((0, 0), |a, s| (a.0 + s.3, a.1 + s.5));
+    assert_eq!(stored, l.bay_a_stored + l.bay_b_stored + l.fleet_stored);
+    assert_eq!(bad, l.bay_a_bad + l.fleet_bad);
+
+    let y = &out.yields;
+    assert_eq!(y.all.total, l.bay_a_stored + l.bay_b_stored);
+    let rc = y.recheck.as_ref().unwrap_or_else(|| panic!("re-check off"));
+    assert_eq!(rc.disagreements_total, 0, "{:?}", rc.disagreements);
+    assert!(rc.checked > u64::from(sc.boards) * 9 / 10);
+    // Every injected fault that reached the store is a reject, with a cause.
+    let mut stored_units = HashSet::new();
+    store
+        .for_each(&Filter::default(), |s| {
+            stored_units.insert(s.record.unit_id);
+        })
+        .unwrap_or_else(|e| panic!("{e}"));
+    let rejected: HashSet<u32> = y.rejects.iter().map(|r| r.unit).collect();
+    assert!(y.rejects_total as usize <= y.rejects.len() + 1_000);
+    for (unit, what) in &l.faults {
+        if stored_units.contains(unit) {
+            assert!(rejected.contains(unit), "fault {what} on {unit} passed");
+        }
+    }
+    for r in &y.rejects {
+        assert_ne!(r.record.hint, Hint::None, "{r:?}");
+    }
+    // Healthy boards pass: rejects are only the injected faults.
+    let faulty: HashSet<u32> = l.faults.iter().map(|f| f.0).collect();
+    for r in &y.rejects {
+        assert!(faulty.contains(&r.unit), "healthy board {} rejected: {:?}", r.unit, r.record);
+    }
+    assert!(y.all.cpk.is_some_and(|c| c > 1.0), "Cpk {:?}", y.all.cpk);
+
+    // Fleet: forecasts against the simulated truth (crossing of 80 % of the commissioning value).
+    let f = &out.fleet;
+    assert_eq!(f.units.len(), sc.units as usize);
+    let start = timestamp::parse_ms(demo::FLEET_START.as_bytes()).unwrap_or(0);
+    let mut compared = 0;
+    for u in &f.units {
+        let truth = l.truth_ms.iter().find(|t| t.0 == u.unit).and_then(|t| t.1);
+        let (Some(truth), Some(fc)) = (truth, u.forecast_ms) else { continue };
+        let (t, p) = ((truth - start) as f64, (fc - start) as f64);
+        let err = (p - t).abs() / t;
+        assert!(
+            err <= 0.2,
+            "unit {}: forecast {} vs truth {} ({:.1} %)",
+            u.unit,
+            timestamp::date_of(fc),
+            timestamp::date_of(truth),
+            err * 100.0
+        );
+        compared += 1;
+    }
+    assert!(compared >= 15, "only {compared} units had a forecast to compare");
+    // The files of the report exist and the page is self-contained.
+    let html = std::fs::read_to_string(dir.path().join("report.html")).unwrap_or_default();
+    assert!(
+        html.contains("<svg")
+            && html.contains("Fleet aging")
+            && !html.contains("<script")
+            && !html.contains("http://www.w3.org/1999/xlink")
+    );
+}
+
+fn rec(i: u32) -> Record {
+    Record {
+        seq: i,
+        unit_id: 40_000 + i % 17,
+        press_ticks: 100_000 + u64::from(i),
+        on_ticks: (!i.is_multiple_of(5)).then_some(54),
+        hold_ticks: Some(740_000 + u64::from(i) * 13),
+        clock_hz: 1_000_000,
+        temp_mdeg_c: Some(-5_000 + i as i32),
+        verdict: if i.is_multiple_of(11) { Verdict::Short } else { Verdict::WithinWindow },
+        hint: if i.is_multiple_of(11) { Hint::NearTheEdge } else { Hint::None },
+        drift: DriftState::Steady,
+        c_deviation_ppm: i.is_multiple_of(3).then_some(-(i as i32)),
+    }
+}
+
+fn labels() -> Labels {
+    Labels {
+        station: "s".into(),
+        batch: "b".into(),
+        setup_id: None,
+        time: TimeRule::Sequence { start_ms: 0, period_ms: 1_000 },
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 48, ..ProptestConfig::default() })]
+    /// Bit flips, dropped bytes, inserted bytes and a truncated end never
+    /// store a record that was not sent, and never store one twice.
+    #[test]
+    fn corrupted_streams_store_only_true_records(
+        n in 1u32..300,
+        flips in proptest::collection::vec((any::<usize>(), 0u8..8), 0..20),
+        drops in proptest::collection::vec(any::<usize>(), 0..10),
+        inserts in proptest::collection::vec((any::<usize>(), any::<u8>()), 0..10),
+        cut in any::<usize>(),
+    ) {
+        let sent: Vec<Record> = (0..n).map(rec).collect();
+        let mut bytes: Vec<u8> = sent.iter().flat_map(|r| record::encode(r).map(|f| f.to_vec()).unwrap_or_default()).collect();
+        for (at, bit) in flips {
+            let i = at % bytes.len();
+            if let Some(b) = bytes.get_mut(i) { *b ^= 1 << bit; }
+        }
+        for at in drops {
+            if !bytes.is_empty() { bytes.remove(at % bytes.len()); }
+        }
+        for (at, v) in inserts {
+            bytes.insert(at % (bytes.len() + 1), v);
+        }
+        let keep = bytes.len() - cut % (bytes.len() / 4 + 1);
+        bytes.truncate(keep);
+        let dir = tmp();
+        let mut store = Store::open(&dir.path().join("c.db")).map_err(|e| TestCaseError::fail(e.to_string()))?;
+        let got = collect::listen(&mut store, "noisy", Cursor::new(bytes), &labels(), |_| {}, || false)
+            .map_err(|e| TestCaseError::fail(e.to_string()))?;
+        let mut seen = HashSet::new();
+        let mut wrong = 0;
+        store.for_each(&Filter::default(), |s| {
+            let ok = sent.get(s.record.seq as usize) == Some(&s.record) && s.measured_ms == i64::from(s.record.seq) * 1_000;
+            wrong += u32::from(!ok || !seen.insert(s.record.seq));
+        }).map_err(|e| TestCaseError::fail(e.to_string()))?;
+        prop_assert_eq!(wrong, 0);
+        prop_assert_eq!(got.stored as usize, seen.len());
+        prop_assert!(got.stored <= u64::from(n));
+    }
+}
+
+/// A clean stream: records in = records stored, and listening to the same
+/// stream again stores nothing new (each record is keyed by station, unit, seq).
+#[test]
+fn a_clean_stream_is_stored_whole_and_once() {
+    let dir = tmp();
+    let mut store = Store::open(&dir.path().join("s.db")).unwrap_or_else(|e| panic!("{e}"));
+    let sent: Vec<Record> = (0..10_000).map(rec).collect();
+    let bytes: Vec<u8> = sent.iter().flat_map(|r| record::encode(r).map(|f| f.to_vec()).unwrap_or_default()).collect();
+    let a = collect::listen(&mut store, "first", Cursor::new(bytes.clone()), &labels(), |_| {}, || false)
+        .unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!((a.stored, a.counts.bad_frames, a.duplicates), (10_000, 0, 0));
+    let b = collect::listen(&mut store, "again", Cursor::new(bytes), &labels(), |_| {}, || false)
+        .unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!((b.stored, b.duplicates), (0, 10_000));
+    let mut back = Vec::new();
+    store.for_each(&Filter::default(), |s| back.push(s.record)).unwrap_or_else(|e| panic!("{e}"));
+    back.sort_by_key(|r| r.seq);
+    assert_eq!(back, sent);
+}
+
+fn write_log(path: &std::path::Path, station: &str, from: u32, n: u32) {
+    let mut out = Vec::new();
+    log::write_header(&mut out).unwrap_or_else(|e| panic!("{e}"));
+    for i in from..from + n {
+        log::write_line(&mut out, 1_800_000_000_000 + i64::from(i), station, "B1", &rec(i))
+            .unwrap_or_else(|e| panic!("{e}"));
+    }
+    std::fs::write(path, out).unwrap_or_else(|e| panic!("{e}"));
+}
+
+/// A log with a bad line stores nothing; the same file again is a no-op;
+/// a good file is stored whole.
+#[test]
+fn ingest_is_atomic_and_idempotent() {
+    let dir = tmp();
+    let db = dir.path().join("i.db");
+    let mut store = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));
+    let good = dir.path().join("good.csv");
+    write_log(&good, "bay-9", 0, 500);
+    let bad = dir.path().join("bad.csv");
+    let mut text = std::fs::read_to_string(&good).unwrap_or_default();
+    text = text.replacen(",within-window,", ",within-windw,", 1);
+    text.push_str("2027-01-01T00:00:00Z,bay-9,B1,1,99999,1000000,5,,1,20,within-window,none,steady,\n");
+    std::fs::write(&bad, text).unwrap_or_else(|e| panic!("{e}"));
+    let e = collect::ingest(&mut store, &bad, None).err().map(|e| e.to_string()).unwrap_or_default();
+    assert!(e.contains("bad.csv:3: verdict: \"within-windw\" is not a verdict (accepted: within-window"), "{e}");
+    assert_eq!(store.count().ok(), Some(0));
+    assert!(store.sources().unwrap_or_default().is_empty());
+    match collect::ingest(&mut store, &good, None) {
+        Ok(Ingested::Stored { written, lines }) => assert_eq!((written.stored, lines), (500, 500)),
+        other => panic!("{other:?}"),
+    }
+    match collect::ingest(&mut store, &good, None) {
+        Ok(Ingested::AlreadyStored { .. }) => {}
+        other => panic!("{other:?}"),
+    }
+    assert_eq!(store.count().ok(), Some(500));
+}
+
+/// Two writers at once — one listening, one ingesting — into the same file: nothing is lost.
+#[test]
+fn two_writers_lose_nothing() {
+    let dir = tmp();
+    let db = dir.path().join("w.db");
+    drop(Store::open(&db).unwrap_or_else(|e| panic!("{e}")));
+    let log_path = dir.path().join("w.csv");
+    write_log(&log_path, "bay-log", 0, 30_000);
+    let sent: Vec<Record> = (0..30_000).map(rec).collect();
+    let bytes: Vec<u8> = sent.iter().flat_map(|r| record::encode(r).map(|f| f.to_vec()).unwrap_or_default()).collect();
+    std::thread::scope(|s| {
+        let a = s.spawn(|| {
+            let mut st = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));
+            collect::listen(&mut st, "stream", Cursor::new(bytes), &labels(), |_| {}, || false).map(|l| l.stored)
+        });
+        let b = s.spawn(|| {
+            let mut st = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));
+            collect::ingest(&mut st, &log_path, None)
+        });
+        let a = a.join().unwrap_or_else(|_| panic!("listener panicked"));
+        let b = b.join().unwrap_or_else(|_| panic!("ingester panicked"));
+        assert_eq!(a.ok(), Some(30_000));
+        assert!(matches!(b, Ok(Ingested::Stored { written, .. }) if written.stored == 30_000), "{b:?}");
+    });
+    let st = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(st.count().ok(), Some(60_000));
+    assert_eq!(st.integrity().ok().as_deref(), Some("ok"));
+}
