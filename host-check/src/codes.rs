@@ -82,19 +82,44 @@ pub fn drift_of(code: i64) -> Option<DriftState> {
 /// The verdict of a name (`within-window`, `short` …).
 #[must_use]
 pub fn verdict_named(name: &[u8]) -> Option<Verdict> {
-    VERDICTS.iter().copied().find(|v| v.name().as_bytes() == name)
+    Some(match name {
+        b"within-window" => Verdict::WithinWindow,
+        b"short" => Verdict::Short,
+        b"long" => Verdict::Long,
+        b"no-response" => Verdict::NoResponse,
+        b"stuck-active" => Verdict::StuckActive,
+        b"not-idle" => Verdict::NotIdle,
+        b"chatter" => Verdict::Chatter,
+        _ => return None,
+    })
 }
 
 /// The hint of a name (`none`, `wrong-part` …).
 #[must_use]
 pub fn hint_named(name: &[u8]) -> Option<Hint> {
-    HINTS.iter().copied().find(|h| h.name().as_bytes() == name)
+    Some(match name {
+        b"none" => Hint::None,
+        b"wrong-part" => Hint::WrongPart,
+        b"aged-or-wrong-tolerance" => Hint::AgedOrWrongTolerance,
+        b"near-the-edge" => Hint::NearTheEdge,
+        b"open-capacitor" => Hint::OpenCapacitorOrDiode,
+        b"no-charge-path" => Hint::NoChargePath,
+        b"open-resistor-or-shorted-node" => Hint::OpenResistorOrShortedNode,
+        b"noisy-output" => Hint::NoisyOutput,
+        _ => return None,
+    })
 }
 
 /// The drift state of a name (`settling`, `steady`, `drifting`, `beyond-limit`).
 #[must_use]
 pub fn drift_named(name: &[u8]) -> Option<DriftState> {
-    DRIFTS.iter().copied().find(|&d| drift_name(d).as_bytes() == name)
+    Some(match name {
+        b"settling" => DriftState::Settling,
+        b"steady" => DriftState::Steady,
+        b"drifting" => DriftState::Drifting,
+        b"beyond-limit" => DriftState::BeyondLimit,
+        _ => return None,
+    })
 }
 
 /// The accepted verdict names, for error messages.

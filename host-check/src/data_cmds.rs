@@ -260,7 +260,7 @@ pub fn yields(
     if let Some(dir) = &out {
         std::fs::create_dir_all(dir).with_context(|| format!("creating {}", dir.display()))?;
     }
-    let reject_log: Option<Box<dyn std::io::Write>> = match &out {
+    let reject_log: Option<Box<dyn std::io::Write + Send>> = match &out {
         Some(dir) => {
             let p = dir.join("rejects.csv");
             Some(Box::new(std::io::BufWriter::new(
@@ -290,22 +290,14 @@ pub fn yields(
     } else {
         let setups: HashMap<i64, Setup> = given.map(|s| HashMap::from([(0, s)])).unwrap_or_default();
         let id = (!setups.is_empty()).then_some(0);
-        let mut tally = Tally::new(&setups, !skip_recheck, reject_log);
-        for path in csv {
-            let f = std::fs::File::open(path).map_err(|e| BadInput(format!("{}: {e}", path.display())))?;
-            log::read(path, f, |_, l| {
-                let keep = filter.station.as_deref().is_none_or(|s| s == l.station)
-                    && filter.batch.as_deref().is_none_or(|b| b == l.batch)
-                    && filter.from_ms.is_none_or(|t| l.measured_ms >= t)
-                    && filter.to_ms.is_none_or(|t| l.measured_ms < t);
-                if keep {
-                    tally.add(l.station, l.batch, l.measured_ms, &l.record, id);
-                }
-                Ok(())
-            })
-            .map_err(|e| BadInput(e.to_string()))?;
-        }
-        tally.finish()?
+        let keep = |l: &log::Line<'_>| {
+            filter.station.as_deref().is_none_or(|s| s == l.station)
+                && filter.batch.as_deref().is_none_or(|b| b == l.batch)
+                && filter.from_ms.is_none_or(|t| l.measured_ms >= t)
+                && filter.to_ms.is_none_or(|t| l.measured_ms < t)
+        };
+        let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
+        production::tally_logs(csv, &setups, id, !skip_recheck, reject_log, &keep, threads).map_err(BadInput)?
     };
     if let Some(dir) = &out {
         write_file(&dir.join("yield.txt"), &production::render_text(&report, rows))?;

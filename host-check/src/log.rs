@@ -6,8 +6,8 @@
 //! | field | meaning | accepted |
 //! |---|---|---|
 //! | `measured_at` | when, UTC | `YYYY-MM-DDTHH:MM:SS[.fff]Z`, 1970 … 9999 |
-//! | `station` | fixture or fleet name | 1 … 64 bytes of UTF-8 |
-//! | `batch` | production batch or fleet group | 0 … 64 bytes |
+//! | `station` | fixture or fleet name | 1 … 64 bytes of UTF-8, no control characters |
+//! | `batch` | production batch or fleet group | 0 … 64 bytes, as `station` |
 //! | `unit` | board or unit serial | 0 … 4 294 967 295 |
 //! | `seq` | the unit's measurement number | 0 … 4 294 967 295 |
 //! | `clock_hz` | tick clock of the tester | 1 000 … 200 000 000 |
@@ -20,7 +20,9 @@
 //! | `drift` | drift state | `settling`, `steady`, `drifting`, `beyond-limit` |
 //! | `c_dev_ppm` | capacitance deviation from nominal, ppm | −1 000 000 … 2 147 483 647 or empty |
 //!
-//! Fields follow RFC 4180 quoting (a station name with a comma is quoted).
+//! Fields follow RFC 4180 quoting (a station name with a comma is quoted);
+//! since no field may hold a line break, every line is one record, which lets
+//! large logs be read in parallel pieces.
 
 use std::fmt;
 use std::io::{Read, Write};
@@ -101,15 +103,25 @@ fn text(b: &[u8]) -> String {
 }
 
 /// Parses an unsigned whole number of at most 19 digits (no sign, no spaces).
+#[inline(always)]
 fn whole(b: &[u8]) -> Option<u64> {
     if b.is_empty() || b.len() > 19 {
         return None;
     }
-    b.iter().try_fold(0u64, |acc, &c| c.is_ascii_digit().then(|| acc * 10 + u64::from(c - b'0')))
+    let mut v = 0u64;
+    for &c in b {
+        let d = c.wrapping_sub(b'0');
+        if d > 9 {
+            return None;
+        }
+        v = v * 10 + u64::from(d);
+    }
+    Some(v)
 }
 
 type FieldResult<T> = Result<T, (&'static str, String)>;
 
+#[inline(always)]
 fn number(field: &'static str, b: &[u8], max: u64, range: &str) -> FieldResult<u64> {
     match whole(b) {
         Some(v) if v <= max => Ok(v),
@@ -125,6 +137,33 @@ fn ticks(field: &'static str, b: &[u8]) -> FieldResult<u64> {
     number(field, b, i64::MAX as u64, TICKS)
 }
 
+/// `[-]digits[.d[d[d]]]` as thousandths, exactly; `None` for anything else
+/// (which then goes through the general number parser).
+fn milli(b: &[u8]) -> Option<i64> {
+    let (neg, b) = match b.split_first() {
+        Some((b'-', rest)) => (true, rest),
+        _ => (false, b),
+    };
+    let (int, frac) = match memchr::memchr(b'.', b) {
+        Some(i) => (b.get(..i)?, b.get(i + 1..)?),
+        None => (b, &b""[..]),
+    };
+    if int.is_empty() || int.len() > 6 || frac.len() > 3 || (frac.is_empty() && b.last() == Some(&b'.')) {
+        return None;
+    }
+    let mut v = i64::try_from(whole(int)?).ok()?;
+    for i in 0..3 {
+        let d = match frac.get(i) {
+            Some(c) if c.is_ascii_digit() => i64::from(c - b'0'),
+            Some(_) => return None,
+            None => 0,
+        };
+        v = v * 10 + d;
+    }
+    Some(if neg { -v } else { v })
+}
+
+#[inline(always)]
 fn optional<T>(b: &[u8], f: impl FnOnce(&[u8]) -> FieldResult<T>) -> FieldResult<Option<T>> {
     if b.is_empty() {
         Ok(None)
@@ -133,10 +172,20 @@ fn optional<T>(b: &[u8], f: impl FnOnce(&[u8]) -> FieldResult<T>) -> FieldResult
     }
 }
 
+#[inline]
 fn label<'a>(field: &'static str, b: &'a [u8], min: usize) -> FieldResult<&'a str> {
+    if b.len() >= min && b.len() <= 64 && b.iter().fold(true, |ok, &c| ok & (0x20..0x7f).contains(&c)) {
+        // Printable ASCII: valid UTF-8 without control characters.
+        if let Ok(s) = std::str::from_utf8(b) {
+            return Ok(s);
+        }
+    }
     let s = std::str::from_utf8(b).map_err(|_| (field, format!("{} is not UTF-8 text", text(b))))?;
     if s.len() < min || s.len() > 64 {
         return Err((field, format!("{} has {} bytes (accepted: {min} … 64 bytes)", text(b), s.len())));
+    }
+    if s.chars().any(char::is_control) {
+        return Err((field, format!("{} holds a control character (accepted: text without them)", text(b))));
     }
     Ok(s)
 }
@@ -146,8 +195,19 @@ fn label<'a>(field: &'static str, b: &'a [u8], min: usize) -> FieldResult<&'a st
 /// # Errors
 /// The field at fault and a message with the accepted range.
 pub fn parse_fields<'a>(f: &[&'a [u8]; 14]) -> Result<Line<'a>, (&'static str, String)> {
+    parse_fields_cached(f, &mut timestamp::DayCache::default())
+}
+
+/// As [`parse_fields`], reusing the previous line's date when it is the same.
+///
+/// # Errors
+/// The field at fault and a message with the accepted range.
+pub fn parse_fields_cached<'a>(
+    f: &[&'a [u8]; 14],
+    days: &mut timestamp::DayCache,
+) -> Result<Line<'a>, (&'static str, String)> {
     let [at, station, batch, unit, seq, clock, press, on, hold, temp, verdict, hint, drift, dev] = *f;
-    let measured_ms = timestamp::parse_ms(at)
+    let measured_ms = timestamp::parse_ms_cached(at, days)
         .ok_or_else(|| ("measured_at", format!("{} is not a UTC time (accepted: {})", text(at), timestamp::FORM)))?;
     let station = label("station", station, 1)?;
     let batch = label("batch", batch, 0)?;
@@ -163,6 +223,12 @@ pub fn parse_fields<'a>(f: &[&'a [u8]; 14]) -> Result<Line<'a>, (&'static str, S
     let (tlo, thi) = rc_model::limits::TEMP_MDEG_C;
     let temp_mdeg_c = optional(temp, |b| {
         let range = "-55 … 150 °C, or empty";
+        if let Some(m) = milli(b) {
+            if m < i64::from(tlo) || m > i64::from(thi) {
+                return Err(("temp_c", format!("{} is out of range (accepted: {range})", text(b))));
+            }
+            return Ok(m as i32);
+        }
         let v: f64 = std::str::from_utf8(b)
             .ok()
             .and_then(|s| s.parse().ok())
@@ -216,14 +282,133 @@ pub fn parse_fields<'a>(f: &[&'a [u8]; 14]) -> Result<Line<'a>, (&'static str, S
     })
 }
 
-/// Reads a log line by line, calling `each` with every parsed line; stops at
-/// the first bad line. Returns the number of data lines.
+/// Splits a line without quotes at its commas, eight bytes at a time: a byte
+/// of `x ^ ",,,,,,,,"` is zero where a comma is, and of `x ^ "\"\"…"` where a
+/// quote is (the exact zero-byte test of S. E. Anderson's "Bit Twiddling
+/// Hacks"). `Ok(None)` when the line holds a quote; `Err(count)` for a field
+/// count other than 14.
+#[inline]
+fn split_plain(line: &[u8]) -> Result<Option<[&[u8]; 14]>, usize> {
+    const LOW7: u64 = 0x7F7F_7F7F_7F7F_7F7F;
+    let zero_bytes = |x: u64| !(((x & LOW7) + LOW7) | x | LOW7);
+    let mut cuts = [0usize; 15];
+    let mut n = 0usize;
+    let words = line.chunks_exact(8);
+    let tail = words.remainder();
+    for (w, word) in words.enumerate() {
+        let x = u64::from_le_bytes(word.try_into().unwrap_or([0; 8]));
+        if zero_bytes(x ^ 0x2222_2222_2222_2222) != 0 {
+            return Ok(None);
+        }
+        let mut hits = zero_bytes(x ^ 0x2C2C_2C2C_2C2C_2C2C);
+        while hits != 0 {
+            let slot = cuts.get_mut(n).ok_or_else(|| memchr::memchr_iter(b',', line).count() + 1)?;
+            *slot = w * 8 + (hits.trailing_zeros() / 8) as usize;
+            n += 1;
+            hits &= hits - 1;
+        }
+    }
+    let base = line.len() - tail.len();
+    for (i, &c) in tail.iter().enumerate() {
+        if c == b'"' {
+            return Ok(None);
+        }
+        if c == b',' {
+            let slot = cuts.get_mut(n).ok_or_else(|| memchr::memchr_iter(b',', line).count() + 1)?;
+            *slot = base + i;
+            n += 1;
+        }
+    }
+    if n != 13 {
+        return Err(n + 1);
+    }
+    if let Some(last) = cuts.get_mut(13) {
+        *last = line.len();
+    }
+    let mut f: [&[u8]; 14] = [&[]; 14];
+    let mut start = 0;
+    for (slot, &end) in f.iter_mut().zip(&cuts) {
+        *slot = line.get(start..end).unwrap_or(&[]);
+        start = end + 1;
+    }
+    Ok(Some(f))
+}
+
+/// Splits one line (without its line break) into its 14 fields; lines with
+/// quotes go through the csv crate. `Err` with a message for a wrong count.
+fn fields<'a>(line: &'a [u8], quoted: &'a mut csv::ByteRecord) -> Result<[&'a [u8]; 14], String> {
+    let mut f: [&[u8]; 14] = [&[]; 14];
+    let wrong = |n: usize| format!("{n} fields (accepted: exactly {}: {HEADER})", FIELDS.len());
+    if let Some(f) = split_plain(line).map_err(&wrong)? {
+        return Ok(f);
+    }
+    let mut rdr = csv::ReaderBuilder::new().has_headers(false).flexible(true).from_reader(line);
+    match rdr.read_byte_record(quoted) {
+        Ok(true) => {}
+        Ok(false) => return Err(wrong(0)),
+        Err(e) => return Err(format!("unreadable CSV: {e}")),
+    }
+    if quoted.len() != 14 {
+        return Err(wrong(quoted.len()));
+    }
+    for (slot, v) in f.iter_mut().zip(quoted.iter()) {
+        *slot = v;
+    }
+    Ok(f)
+}
+
+/// Checks the header line.
+///
+/// # Errors
+/// A message when it is not [`HEADER`].
+pub fn check_header(line: &[u8]) -> Result<(), String> {
+    let line = line.strip_suffix(b"\r").unwrap_or(line);
+    if line == HEADER.as_bytes() {
+        Ok(())
+    } else {
+        Err(format!("not an rchold log: the first line must be exactly {HEADER:?}"))
+    }
+}
+
+/// Parses the data lines of `chunk` (whole lines; the last may lack its line
+/// break), calling `each` with the line's index within the chunk (0-based)
+/// and the parsed line. Stops at the first bad line: `Err((index, field, message))`.
+///
+/// # Errors
+/// The first bad line's offset, field and message, or `each`'s error.
+pub fn parse_chunk(
+    chunk: &[u8],
+    mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
+) -> Result<u64, (u64, Option<&'static str>, String)> {
+    let mut quoted = csv::ByteRecord::new();
+    let mut days = timestamp::DayCache::default();
+    let mut at = 0usize;
+    let mut n = 0u64;
+    while at < chunk.len() {
+        let end = memchr::memchr(b'\n', chunk.get(at..).unwrap_or(&[])).map_or(chunk.len(), |i| at + i);
+        let raw = chunk.get(at..end).unwrap_or(&[]);
+        let line = raw.strip_suffix(b"\r").unwrap_or(raw);
+        let f = fields(line, &mut quoted).map_err(|m| (n, None, m))?;
+        let parsed = parse_fields_cached(&f, &mut days).map_err(|(field, m)| (n, Some(field), m))?;
+        each(n, &parsed).map_err(|m| (n, None, m))?;
+        n += 1;
+        at = end + 1;
+    }
+    Ok(n)
+}
+
+/// Block size of the streaming reader, bytes.
+const BLOCK: usize = 4 << 20;
+
+/// Reads a log from `input` in blocks (memory stays at a few MiB whatever
+/// the file's size), calling `each` with every parsed line and its 1-based
+/// line number; stops at the first bad line. Returns the number of data lines.
 ///
 /// # Errors
 /// A [`LogError`] naming the file, the line and the field.
 pub fn read<R: Read>(
     file: &Path,
-    input: R,
+    mut input: R,
     mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
 ) -> Result<u64, LogError> {
     let at = |line: u64, field: Option<&'static str>, message: String| LogError {
@@ -232,45 +417,177 @@ pub fn read<R: Read>(
         field,
         message,
     };
-    let mut rdr =
-        csv::ReaderBuilder::new().has_headers(false).flexible(true).buffer_capacity(1 << 20).from_reader(input);
-    let mut rec = csv::ByteRecord::new();
+    let mut buf: Vec<u8> = Vec::with_capacity(BLOCK);
+    let mut line_no = 0u64; // lines before the buffer's start
+    let mut header_done = false;
     let mut n = 0u64;
-    let mut first = true;
-    loop {
-        match rdr.read_byte_record(&mut rec) {
-            Ok(true) => {}
-            Ok(false) => break,
-            Err(e) => {
-                let line = e.position().map_or(n + 1, csv::Position::line);
-                return Err(at(line, None, format!("unreadable CSV: {e}")));
+    let mut eof = false;
+    while !eof {
+        let old = buf.len();
+        buf.resize(old + BLOCK, 0);
+        let got = loop {
+            match input.read(buf.get_mut(old..).unwrap_or(&mut [])) {
+                Ok(g) => break g,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => return Err(at(line_no + 1, None, format!("cannot read: {e}"))),
             }
-        }
-        let line = rec.position().map_or(n + 1, csv::Position::line);
-        if first {
-            first = false;
-            let got: Vec<&[u8]> = rec.iter().collect();
-            let want: Vec<&[u8]> = FIELDS.iter().map(|f| f.as_bytes()).collect();
-            if got != want {
-                return Err(at(line, None, format!("not an rchold log: the first line must be exactly {HEADER:?}")));
+        };
+        buf.truncate(old + got);
+        eof = got == 0;
+        // Whole lines only, unless at the end.
+        let usable = if eof { buf.len() } else { memchr::memrchr(b'\n', &buf).map_or(0, |i| i + 1) };
+        let mut start = 0;
+        if !header_done && (usable > 0 || eof) {
+            let end = memchr::memchr(b'\n', buf.get(..usable).unwrap_or(&[])).unwrap_or(usable);
+            if buf.is_empty() {
+                return Err(at(1, None, format!("empty file: an rchold log starts with {HEADER:?}")));
             }
-            continue;
+            check_header(buf.get(..end).unwrap_or(&[])).map_err(|m| at(1, None, m))?;
+            header_done = true;
+            line_no = 1;
+            start = (end + 1).min(usable);
         }
-        if rec.len() != FIELDS.len() {
-            return Err(at(line, None, format!("{} fields (accepted: exactly {}: {HEADER})", rec.len(), FIELDS.len())));
+        let chunk = buf.get(start..usable).unwrap_or(&[]);
+        match parse_chunk(chunk, |i, l| each(line_no + i + 1, l)) {
+            Ok(c) => {
+                n += c;
+                line_no += c;
+            }
+            Err((i, field, m)) => return Err(at(line_no + i + 1, field, m)),
         }
-        let mut f: [&[u8]; 14] = [&[]; 14];
-        for (slot, v) in f.iter_mut().zip(rec.iter()) {
-            *slot = v;
-        }
-        let parsed = parse_fields(&f).map_err(|(field, m)| at(line, Some(field), m))?;
-        n += 1;
-        each(line, &parsed).map_err(|m| at(line, None, m))?;
+        buf.drain(..usable);
     }
-    if first {
+    if !header_done {
         return Err(at(1, None, format!("empty file: an rchold log starts with {HEADER:?}")));
     }
     Ok(n)
+}
+
+/// A problem reading part of a log.
+#[derive(Debug)]
+pub enum RangeError {
+    /// Reading failed.
+    Io(std::io::Error),
+    /// A bad line: its index within the range, the field and the message.
+    Line(u64, Option<&'static str>, String),
+}
+
+/// Reads the data lines in bytes `start .. end` of the log at `path` (both
+/// at line starts), in blocks, calling `each` with the line's index within
+/// the range. Memory: one block.
+///
+/// # Errors
+/// Read errors and the first bad line.
+pub fn read_range(
+    path: &Path,
+    start: u64,
+    end: u64,
+    mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
+) -> Result<u64, RangeError> {
+    use std::io::{Seek, SeekFrom};
+    let mut f = std::fs::File::open(path).map_err(RangeError::Io)?;
+    f.seek(SeekFrom::Start(start)).map_err(RangeError::Io)?;
+    let mut input = f.take(end.saturating_sub(start));
+    let mut buf = vec![0u8; BLOCK];
+    let mut filled = 0usize;
+    let mut n = 0u64;
+    loop {
+        if filled == buf.len() {
+            // One line longer than the buffer: grow (a valid line is far shorter; the parser will say why).
+            buf.resize(buf.len() * 2, 0);
+        }
+        let got = loop {
+            match input.read(buf.get_mut(filled..).unwrap_or(&mut [])) {
+                Ok(g) => break g,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => return Err(RangeError::Io(e)),
+            }
+        };
+        filled += got;
+        let eof = got == 0;
+        let data = buf.get(..filled).unwrap_or(&[]);
+        let usable = if eof { filled } else { memchr::memrchr(b'\n', data).map_or(0, |i| i + 1) };
+        match parse_chunk(data.get(..usable).unwrap_or(&[]), |i, l| each(n + i, l)) {
+            Ok(c) => n += c,
+            Err((i, field, m)) => return Err(RangeError::Line(n + i, field, m)),
+        }
+        buf.copy_within(usable..filled, 0);
+        filled -= usable;
+        if eof {
+            return Ok(n);
+        }
+    }
+}
+
+/// Checks a log's header and splits its data into up to `parts` byte ranges
+/// that start and end at line starts.
+///
+/// # Errors
+/// A [`LogError`] for a missing or wrong header, or a read error.
+pub fn split(path: &Path, parts: usize) -> Result<Vec<(u64, u64)>, LogError> {
+    use std::io::{Seek, SeekFrom};
+    let at = |line: u64, message: String| LogError { file: path.to_path_buf(), line, field: None, message };
+    let mut f = std::fs::File::open(path).map_err(|e| at(1, format!("cannot read: {e}")))?;
+    let size = f.metadata().map_err(|e| at(1, format!("cannot read: {e}")))?.len();
+    let mut head = vec![0u8; 4096];
+    let n = f.read(&mut head).map_err(|e| at(1, format!("cannot read: {e}")))?;
+    head.truncate(n);
+    if head.is_empty() {
+        return Err(at(1, format!("empty file: an rchold log starts with {HEADER:?}")));
+    }
+    let header_end = memchr::memchr(b'\n', &head).map_or(head.len(), |i| i + 1);
+    check_header(head.get(..header_end).map_or(&[][..], |h| h.strip_suffix(b"\n").unwrap_or(h)))
+        .map_err(|m| at(1, m))?;
+    let data = size.saturating_sub(header_end as u64);
+    let parts = parts.clamp(1, 64) as u64;
+    let mut cuts = vec![header_end as u64];
+    let mut probe = vec![0u8; 1024];
+    for k in 1..parts {
+        let mut p = header_end as u64 + data * k / parts;
+        // Move to the next line start at or after p.
+        loop {
+            f.seek(SeekFrom::Start(p.saturating_sub(1))).map_err(|e| at(1, format!("cannot read: {e}")))?;
+            let got = f.read(&mut probe).map_err(|e| at(1, format!("cannot read: {e}")))?;
+            if got == 0 {
+                p = size;
+                break;
+            }
+            match memchr::memchr(b'\n', probe.get(..got).unwrap_or(&[])) {
+                Some(i) => {
+                    p = p.saturating_sub(1) + i as u64 + 1;
+                    break;
+                }
+                None => p = p.saturating_sub(1) + got as u64 + 1,
+            }
+        }
+        let last = cuts.last().copied().unwrap_or(0);
+        cuts.push(p.clamp(last, size));
+    }
+    cuts.push(size);
+    Ok(cuts
+        .windows(2)
+        .filter_map(|w| match w {
+            [a, b] if b > a => Some((*a, *b)),
+            _ => None,
+        })
+        .collect())
+}
+
+/// Lines (1-based number of the first line) that start at byte `offset`.
+///
+/// # Errors
+/// Read errors.
+pub fn line_at(path: &Path, offset: u64) -> std::io::Result<u64> {
+    let mut f = std::fs::File::open(path)?.take(offset);
+    let mut buf = vec![0u8; 1 << 20];
+    let mut lines = 1u64;
+    loop {
+        let n = f.read(&mut buf)?;
+        if n == 0 {
+            return Ok(lines);
+        }
+        lines += memchr::memchr_iter(b'\n', buf.get(..n).unwrap_or(&[])).count() as u64;
+    }
 }
 
 /// Writes the header line.

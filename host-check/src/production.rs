@@ -8,7 +8,7 @@
 //! Everything is accumulated in one pass (memory grows with the number of
 //! stations, batches and days, not with the number of records).
 
-use std::collections::{BTreeMap, HashMap};
+use std::collections::HashMap;
 use std::fmt::Write as _;
 use std::io::Write;
 use std::path::Path;
@@ -112,26 +112,75 @@ impl Checker {
     }
 }
 
-/// Running mean and variance (Welford).
+/// Running mean and variance: sums of the samples' differences from the
+/// first sample (no division per sample; the shift keeps the sums small, so
+/// nothing cancels), turned into mean and M2 by [`Moments::settle`];
+/// partial results merge by Chan et al.'s pairwise update.
 #[derive(Debug, Clone, Copy, Default, Serialize)]
 pub struct Moments {
     /// Samples.
     pub n: u64,
-    /// Mean.
+    /// Mean (valid after [`Moments::settle`]).
     pub mean: f64,
+    #[serde(skip)]
     m2: f64,
+    #[serde(skip)]
+    shift: f64,
+    #[serde(skip)]
+    s1: f64,
+    #[serde(skip)]
+    s2: f64,
 }
 
 impl Moments {
     /// Adds a sample.
+    #[inline]
     pub fn add(&mut self, x: f64) {
+        if self.n == 0 {
+            self.shift = x;
+        }
+        let d = x - self.shift;
         self.n += 1;
-        let d = x - self.mean;
-        self.mean += d / self.n as f64;
-        self.m2 += d * (x - self.mean);
+        self.s1 += d;
+        self.s2 += d * d;
     }
 
-    /// Sample standard deviation (n − 1).
+    /// Computes the mean and M2 from the sums.
+    pub fn settle(&mut self) {
+        if self.n > 0 {
+            let n = self.n as f64;
+            self.mean = self.shift + self.s1 / n;
+            self.m2 = (self.s2 - self.s1 * self.s1 / n).max(0.0);
+            // Re-base the sums on the mean so that adding more stays consistent.
+            self.shift = self.mean;
+            self.s1 = 0.0;
+            self.s2 = self.m2;
+        }
+    }
+
+    /// Adds another set of samples (Chan et al.'s pairwise update).
+    pub fn merge(&mut self, o: &Moments) {
+        let mut o = *o;
+        o.settle();
+        self.settle();
+        if o.n == 0 {
+            return;
+        }
+        if self.n == 0 {
+            *self = o;
+            return;
+        }
+        let n = self.n + o.n;
+        let d = o.mean - self.mean;
+        self.mean += d * o.n as f64 / n as f64;
+        self.m2 += o.m2 + d * d * self.n as f64 * o.n as f64 / n as f64;
+        self.n = n;
+        self.shift = self.mean;
+        self.s1 = 0.0;
+        self.s2 = self.m2;
+    }
+
+    /// Sample standard deviation (n − 1), after [`Moments::settle`].
     #[must_use]
     pub fn sd(&self) -> f64 {
         if self.n > 1 {
@@ -243,7 +292,29 @@ impl Group {
         }
     }
 
+    fn merge(&mut self, o: Group) {
+        self.total += o.total;
+        for (a, b) in self.verdicts.iter_mut().zip(o.verdicts) {
+            *a += b;
+        }
+        self.hold_s.merge(&o.hold_s);
+        self.gross += o.gross;
+        if self.window_s.is_none() {
+            self.window_s = o.window_s;
+            self.hist_range_s = o.hist_range_s;
+            self.bins = vec![0; o.bins.len()];
+        }
+        if self.bins.len() == o.bins.len() && self.hist_range_s == o.hist_range_s {
+            for (a, b) in self.bins.iter_mut().zip(o.bins) {
+                *a += b;
+            }
+            self.outside_hist.0 += o.outside_hist.0;
+            self.outside_hist.1 += o.outside_hist.1;
+        }
+    }
+
     fn finish(&mut self) {
+        self.hold_s.settle();
         if let Some((lo, hi)) = self.window_s {
             let sd = self.hold_s.sd();
             if self.hold_s.n > 1 && sd > 0.0 {
@@ -350,20 +421,35 @@ pub struct YieldReport {
     pub span_ms: Option<(i64, i64)>,
 }
 
+/// Where rejects go as log lines.
+enum RejectLog {
+    None,
+    Writer(Box<dyn Write + Send>),
+    Buffer(Vec<u8>),
+}
+
 /// One-pass accumulator of the yield report.
 pub struct Tally {
     stations: Vec<Group>,
     index: HashMap<String, usize>,
-    last_station: Option<(String, usize)>,
+    last_station: usize,
+    /// Per station: the batch and the day entry it used last.
+    station_batch: Vec<usize>,
+    station_day: Vec<usize>,
     all: Group,
-    batches: Vec<HashMap<String, (u64, u64)>>,
-    days: BTreeMap<(usize, i64), (u64, u64)>,
+    /// (station, batch, total, passed), with an index and the last one used.
+    batches: Vec<(usize, String, u64, u64)>,
+    batch_index: HashMap<(usize, String), usize>,
+    /// (station, day, total, passed), likewise.
+    days: Vec<(usize, i64, u64, u64)>,
+    day_index: HashMap<(usize, i64), usize>,
     windows: HashMap<i64, (f64, f64)>,
+    last_window: (Option<i64>, Option<(f64, f64)>),
     checkers: HashMap<i64, Checker>,
     recheck: Option<Recheck>,
     rejects: Vec<Reject>,
     rejects_total: u64,
-    reject_log: Option<Box<dyn Write>>,
+    reject_log: RejectLog,
     reject_error: Option<std::io::Error>,
     span: Option<(i64, i64)>,
     /// How many rejects and disagreements to keep for the report.
@@ -375,7 +461,7 @@ impl Tally {
     /// switches on the `f64` re-check; `reject_log` receives every reject
     /// as a measurement log line.
     #[must_use]
-    pub fn new(setups: &HashMap<i64, Setup>, recheck: bool, reject_log: Option<Box<dyn Write>>) -> Tally {
+    pub fn new(setups: &HashMap<i64, Setup>, recheck: bool, reject_log: Option<Box<dyn Write + Send>>) -> Tally {
         let windows = setups
             .iter()
             .map(|(&id, s)| {
@@ -399,15 +485,23 @@ impl Tally {
                 }
             }
         }
-        let mut reject_log = reject_log;
-        let reject_error = reject_log.as_mut().and_then(|w| log::write_header(w).err());
+        let mut reject_log = reject_log.map_or(RejectLog::None, RejectLog::Writer);
+        let reject_error = match &mut reject_log {
+            RejectLog::Writer(w) => log::write_header(w).err(),
+            _ => None,
+        };
         Tally {
             stations: Vec::new(),
             index: HashMap::new(),
-            last_station: None,
+            last_station: usize::MAX,
+            station_batch: Vec::new(),
+            station_day: Vec::new(),
             all: Group::new("all"),
             batches: Vec::new(),
-            days: BTreeMap::new(),
+            batch_index: HashMap::new(),
+            days: Vec::new(),
+            day_index: HashMap::new(),
+            last_window: (None, None),
             windows,
             checkers,
             recheck: recheck.then_some(rc),
@@ -421,46 +515,74 @@ impl Tally {
     }
 
     fn station(&mut self, name: &str) -> usize {
-        if let Some((n, i)) = &self.last_station {
-            if n == name {
-                return *i;
+        if let Some(g) = self.stations.get(self.last_station) {
+            if g.name == name {
+                return self.last_station;
             }
         }
-        let i = match self.index.get(name) {
-            Some(&i) => i,
-            None => {
-                self.stations.push(Group::new(name));
-                self.index.insert(name.to_owned(), self.stations.len() - 1);
-                self.stations.len() - 1
-            }
+        // A handful of stations is the rule: look through them before hashing.
+        let found = if self.stations.len() <= 16 {
+            self.stations.iter().position(|g| g.name == name)
+        } else {
+            self.index.get(name).copied()
         };
-        self.last_station = Some((name.to_owned(), i));
+        let i = found.unwrap_or_else(|| {
+            self.stations.push(Group::new(name));
+            self.index.insert(name.to_owned(), self.stations.len() - 1);
+            self.station_batch.push(usize::MAX);
+            self.station_day.push(usize::MAX);
+            self.stations.len() - 1
+        });
+        self.last_station = i;
         i
     }
 
     /// Adds one measurement.
     pub fn add(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
         let si = self.station(station);
-        let window = setup_id.and_then(|id| self.windows.get(&id)).copied();
+        let window = match self.last_window {
+            (id, w) if id == setup_id => w,
+            _ => {
+                let w = setup_id.and_then(|id| self.windows.get(&id)).copied();
+                self.last_window = (setup_id, w);
+                w
+            }
+        };
         if let Some(g) = self.stations.get_mut(si) {
             g.add(r, window);
         }
-        self.all.add(r, window);
         let pass = u64::from(r.verdict.passes());
-        if self.batches.len() <= si {
-            self.batches.resize_with(si + 1, HashMap::new);
+        let last = self.station_batch.get(si).copied().unwrap_or(usize::MAX);
+        let b = match self.batches.get(last) {
+            Some(e) if e.1 == batch => last,
+            _ => *self.batch_index.entry((si, batch.to_owned())).or_insert_with(|| {
+                self.batches.push((si, batch.to_owned(), 0, 0));
+                self.batches.len() - 1
+            }),
+        };
+        if let Some(x) = self.station_batch.get_mut(si) {
+            *x = b;
         }
-        if let Some(m) = self.batches.get_mut(si) {
-            let e = match m.get_mut(batch) {
-                Some(e) => e,
-                None => m.entry(batch.to_owned()).or_insert((0, 0)),
-            };
-            e.0 += 1;
-            e.1 += pass;
+        if let Some(e) = self.batches.get_mut(b) {
+            e.2 += 1;
+            e.3 += pass;
         }
-        let d = self.days.entry((si, measured_ms.div_euclid(86_400_000))).or_insert((0, 0));
-        d.0 += 1;
-        d.1 += pass;
+        let day = measured_ms.div_euclid(86_400_000);
+        let last = self.station_day.get(si).copied().unwrap_or(usize::MAX);
+        let d = match self.days.get(last) {
+            Some(e) if e.1 == day => last,
+            _ => *self.day_index.entry((si, day)).or_insert_with(|| {
+                self.days.push((si, day, 0, 0));
+                self.days.len() - 1
+            }),
+        };
+        if let Some(x) = self.station_day.get_mut(si) {
+            *x = d;
+        }
+        if let Some(e) = self.days.get_mut(d) {
+            e.2 += 1;
+            e.3 += pass;
+        }
         self.span =
             Some(self.span.map_or((measured_ms, measured_ms), |(a, b)| (a.min(measured_ms), b.max(measured_ms))));
         if !r.verdict.passes() {
@@ -478,8 +600,12 @@ impl Tally {
                     c_dev_pct: r.c_deviation_ppm.map(|d| f64::from(d) / 1e4),
                 });
             }
-            if let (Some(w), None) = (self.reject_log.as_mut(), &self.reject_error) {
-                self.reject_error = log::write_line(w, measured_ms, station, batch, r).err();
+            if self.reject_error.is_none() {
+                self.reject_error = match &mut self.reject_log {
+                    RejectLog::None => None,
+                    RejectLog::Writer(w) => log::write_line(w, measured_ms, station, batch, r).err(),
+                    RejectLog::Buffer(v) => log::write_line(v, measured_ms, station, batch, r).err(),
+                };
             }
         }
         if let Some(rc) = self.recheck.as_mut() {
@@ -509,6 +635,68 @@ impl Tally {
         }
     }
 
+    /// Adds everything another tally (over later records) holds.
+    pub fn merge(&mut self, o: Tally) {
+        let map: Vec<usize> = o.stations.iter().map(|g| self.station(&g.name)).collect();
+        for (g, &i) in o.stations.into_iter().zip(&map) {
+            if let Some(mine) = self.stations.get_mut(i) {
+                mine.merge(g);
+            }
+        }
+        for (s, b, total, passed) in o.batches {
+            let si = map.get(s).copied().unwrap_or(0);
+            let k = *self.batch_index.entry((si, b.clone())).or_insert_with(|| {
+                self.batches.push((si, b, 0, 0));
+                self.batches.len() - 1
+            });
+            if let Some(e) = self.batches.get_mut(k) {
+                e.2 += total;
+                e.3 += passed;
+            }
+        }
+        for (s, d, total, passed) in o.days {
+            let si = map.get(s).copied().unwrap_or(0);
+            let k = *self.day_index.entry((si, d)).or_insert_with(|| {
+                self.days.push((si, d, 0, 0));
+                self.days.len() - 1
+            });
+            if let Some(e) = self.days.get_mut(k) {
+                e.2 += total;
+                e.3 += passed;
+            }
+        }
+        let room = self.keep.saturating_sub(self.rejects.len());
+        self.rejects.extend(o.rejects.into_iter().take(room));
+        self.rejects_total += o.rejects_total;
+        if let (Some(a), Some(b)) = (self.recheck.as_mut(), o.recheck) {
+            a.checked += b.checked;
+            a.agreed += b.agreed;
+            a.not_checkable += b.not_checkable;
+            a.disagreements_total += b.disagreements_total;
+            let room = self.keep.saturating_sub(a.disagreements.len());
+            a.disagreements.extend(b.disagreements.into_iter().take(room));
+        }
+        self.span = match (self.span, o.span) {
+            (Some((a, b)), Some((c, d))) => Some((a.min(c), b.max(d))),
+            (x, None) | (None, x) => x,
+        };
+        if self.reject_error.is_none() {
+            self.reject_error = o.reject_error;
+        }
+        if let RejectLog::Buffer(v) = o.reject_log {
+            if self.reject_error.is_none() {
+                self.reject_error = match &mut self.reject_log {
+                    RejectLog::None => None,
+                    RejectLog::Writer(w) => w.write_all(&v).err(),
+                    RejectLog::Buffer(mine) => {
+                        mine.extend_from_slice(&v);
+                        None
+                    }
+                };
+            }
+        }
+    }
+
     /// The report.
     ///
     /// # Errors
@@ -517,33 +705,35 @@ impl Tally {
         if let Some(e) = self.reject_error.take() {
             return Err(e);
         }
-        if let Some(w) = self.reject_log.as_mut() {
+        if let RejectLog::Writer(w) = &mut self.reject_log {
             w.flush()?;
         }
         for g in &mut self.stations {
             g.finish();
+        }
+        // "all" is the stations merged (in station order).
+        for g in &self.stations {
+            self.all.merge(g.clone());
         }
         self.all.finish();
         let name = |i: usize| self.stations.get(i).map_or_else(String::new, |g| g.name.clone());
         let mut batches: Vec<Part> = self
             .batches
             .iter()
-            .enumerate()
-            .flat_map(|(s, m)| {
-                m.iter().map(move |(b, &(total, passed))| Part { station: name(s), key: b.clone(), total, passed })
-            })
+            .map(|(s, b, total, passed)| Part { station: name(*s), key: b.clone(), total: *total, passed: *passed })
             .collect();
         batches.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
-        let days = self
+        let mut days: Vec<Part> = self
             .days
             .iter()
-            .map(|((s, d), &(total, passed))| Part {
+            .map(|(s, d, total, passed)| Part {
                 station: name(*s),
                 key: timestamp::date_of(d * 86_400_000),
-                total,
-                passed,
+                total: *total,
+                passed: *passed,
             })
             .collect();
+        days.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
         Ok(YieldReport {
             stations: self.stations,
             all: self.all,
@@ -555,6 +745,72 @@ impl Tally {
             span_ms: self.span,
         })
     }
+}
+
+/// Reads measurement logs in parallel pieces — each file split at line
+/// breaks into one piece per thread, each piece tallied on its own, the
+/// tallies merged in file order — and returns the report. Every record is
+/// judged against setup `setup_id` of `setups` (when given); `keep` says
+/// which records count. Rejects go to `reject_log` in file order.
+///
+/// # Errors
+/// The first bad line of the first file that has one (file, line, field,
+/// accepted range), or a read or write error, as one line.
+pub fn tally_logs(
+    paths: &[std::path::PathBuf],
+    setups: &HashMap<i64, Setup>,
+    setup_id: Option<i64>,
+    recheck: bool,
+    reject_log: Option<Box<dyn Write + Send>>,
+    keep: &(dyn Fn(&log::Line<'_>) -> bool + Sync),
+    threads: usize,
+) -> Result<YieldReport, String> {
+    let mut total = Tally::new(setups, recheck, reject_log);
+    let buffer = matches!(total.reject_log, RejectLog::Writer(_));
+    for path in paths {
+        let pieces = log::split(path, threads).map_err(|e| e.to_string())?;
+        let results: Vec<Result<Tally, (u64, log::RangeError)>> = std::thread::scope(|scope| {
+            let handles: Vec<_> = pieces
+                .iter()
+                .map(|&(a, b)| {
+                    scope.spawn(move || {
+                        let mut t = Tally::new(setups, recheck, None);
+                        if buffer {
+                            t.reject_log = RejectLog::Buffer(Vec::new());
+                        }
+                        log::read_range(path, a, b, |_, l| {
+                            if keep(l) {
+                                t.add(l.station, l.batch, l.measured_ms, &l.record, setup_id);
+                            }
+                            Ok(())
+                        })
+                        .map(|_| t)
+                        .map_err(|e| (a, e))
+                    })
+                })
+                .collect();
+            handles
+                .into_iter()
+                .map(|h| {
+                    h.join()
+                        .unwrap_or_else(|_| Err((0, log::RangeError::Line(0, None, "a reader thread failed".into()))))
+                })
+                .collect()
+        });
+        for r in results {
+            match r {
+                Ok(t) => total.merge(t),
+                Err((_, log::RangeError::Io(e))) => return Err(format!("{}: cannot read: {e}", path.display())),
+                Err((start, log::RangeError::Line(i, field, m))) => {
+                    let first =
+                        log::line_at(path, start).map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
+                    let e = log::LogError { file: path.clone(), line: first + i, field, message: m };
+                    return Err(e.to_string());
+                }
+            }
+        }
+    }
+    total.finish().map_err(|e| format!("writing the rejects: {e}"))
 }
 
 fn pct(part: u64, total: u64) -> String {

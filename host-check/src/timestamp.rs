@@ -58,19 +58,48 @@ pub const FORM: &str = "YYYY-MM-DDTHH:MM:SS[.fff]Z, years 1970 … 9999";
 /// fractions beyond milliseconds are truncated). Years 1970 – 9999.
 #[must_use]
 pub fn parse_ms(s: &[u8]) -> Option<i64> {
+    parse_ms_cached(s, &mut DayCache::default())
+}
+
+/// The date of the previous timestamp, so that a run of timestamps on one
+/// day parses the date once.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct DayCache {
+    key: [u8; 10],
+    days: i64,
+    valid: bool,
+}
+
+/// As [`parse_ms`], reusing the date from `cache` when it is the same.
+#[must_use]
+pub fn parse_ms_cached(s: &[u8], cache: &mut DayCache) -> Option<i64> {
     if s.len() < 20 || s.last() != Some(&b'Z') {
         return None;
     }
     let g = |a: usize, b: usize| s.get(a..b).and_then(digits);
     let sep = |i: usize, c: &[u8]| s.get(i).is_some_and(|x| c.contains(x));
-    if !(sep(4, b"-") && sep(7, b"-") && sep(10, b"T ") && sep(13, b":") && sep(16, b":")) {
+    if !(sep(10, b"T ") && sep(13, b":") && sep(16, b":")) {
         return None;
     }
-    let (y, mo, d, h, mi, se) = (g(0, 4)?, g(5, 7)?, g(8, 10)?, g(11, 13)?, g(14, 16)?, g(17, 19)?);
-    let y = i64::from(y);
-    if !(1970..=9999).contains(&y) || !(1..=12).contains(&mo) || d < 1 || d > month_days(y, mo) {
-        return None;
-    }
+    let date = s.get(..10)?;
+    let days = if cache.valid && cache.key == date {
+        cache.days
+    } else {
+        if !(sep(4, b"-") && sep(7, b"-")) {
+            return None;
+        }
+        let (y, mo, d) = (g(0, 4)?, g(5, 7)?, g(8, 10)?);
+        let y = i64::from(y);
+        if !(1970..=9999).contains(&y) || !(1..=12).contains(&mo) || d < 1 || d > month_days(y, mo) {
+            return None;
+        }
+        let days = days_from_civil(y, mo, d);
+        cache.key.copy_from_slice(date);
+        cache.days = days;
+        cache.valid = true;
+        days
+    };
+    let (h, mi, se) = (g(11, 13)?, g(14, 16)?, g(17, 19)?);
     if h > 23 || mi > 59 || se > 59 {
         return None;
     }
@@ -85,7 +114,6 @@ pub fn parse_ms(s: &[u8]) -> Option<i64> {
             ms = ms * 10 + frac.get(i).map_or(0, |&c| i64::from(c - b'0'));
         }
     }
-    let days = days_from_civil(y, mo, d);
     Some(((days * 24 + i64::from(h)) * 60 + i64::from(mi)) * 60_000 + i64::from(se) * 1000 + ms)
 }
 
@@ -156,6 +184,12 @@ mod tests {
             assert_eq!(parse_ms(bad.as_bytes()), None, "{bad}");
         }
         assert_eq!(parse_ms(b"2028-02-29T00:00:00Z").map(date_of).as_deref(), Some("2028-02-29"));
+        // The cache gives the same answers, and never accepts a bad date it has not seen.
+        let mut c = DayCache::default();
+        assert_eq!(parse_ms_cached(b"2000-01-01T00:00:01Z", &mut c), Some(946_684_801_000));
+        assert_eq!(parse_ms_cached(b"2000-01-01T00:00:02Z", &mut c), Some(946_684_802_000));
+        assert_eq!(parse_ms_cached(b"2000-02-30T00:00:02Z", &mut c), None);
+        assert_eq!(parse_ms_cached(b"2000-01-01T25:00:02Z", &mut c), None);
     }
 
     proptest! {

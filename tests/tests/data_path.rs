@@ -259,3 +259,60 @@ fn two_writers_lose_nothing() {
     assert_eq!(st.count().ok(), Some(60_000));
     assert_eq!(st.integrity().ok().as_deref(), Some("ok"));
 }
+
+/// Reading a log in parallel pieces gives the same report as one piece, and
+/// a bad line deep in a later piece is reported with its true line number.
+#[test]
+fn parallel_log_reading_matches_one_piece() {
+    use host_check::production::tally_logs;
+    let dir = tmp();
+    let path = dir.path().join("p.csv");
+    let mut out = Vec::new();
+    log::write_header(&mut out).unwrap_or_else(|e| panic!("{e}"));
+    for i in 0..20_000u32 {
+        let station = ["bay, one", "bay-2", "bay-3"][(i % 3) as usize]; // a quoted name too
+        log::write_line(
+            &mut out,
+            1_800_000_000_000 + i64::from(i) * 60_000,
+            station,
+            &format!("B{}", i / 700),
+            &rec(i),
+        )
+        .unwrap_or_else(|e| panic!("{e}"));
+    }
+    std::fs::write(&path, &out).unwrap_or_else(|e| panic!("{e}"));
+    let none = std::collections::HashMap::new();
+    let all = |_: &log::Line<'_>| true;
+    let one =
+        tally_logs(std::slice::from_ref(&path), &none, None, false, None, &all, 1).unwrap_or_else(|e| panic!("{e}"));
+    let four =
+        tally_logs(std::slice::from_ref(&path), &none, None, false, None, &all, 4).unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(one.all.total, 20_000);
+    assert_eq!(one.all.verdicts, four.all.verdicts);
+    assert_eq!(one.rejects_total, four.rejects_total);
+    assert_eq!(
+        one.rejects.iter().map(|r| r.unit).collect::<Vec<_>>(),
+        four.rejects.iter().map(|r| r.unit).collect::<Vec<_>>()
+    );
+    for (a, b) in one.stations.iter().zip(&four.stations) {
+        assert_eq!((&a.name, a.total, a.verdicts, a.hold_s.n), (&b.name, b.total, b.verdicts, b.hold_s.n));
+        assert!((a.hold_s.mean - b.hold_s.mean).abs() <= 1e-12 * a.hold_s.mean.abs());
+        assert!((a.hold_s.sd() - b.hold_s.sd()).abs() <= 1e-9 * a.hold_s.sd());
+    }
+    let key = |p: &host_check::production::Part| (p.station.clone(), p.key.clone(), p.total, p.passed);
+    assert_eq!(one.batches.iter().map(key).collect::<Vec<_>>(), four.batches.iter().map(key).collect::<Vec<_>>());
+    assert_eq!(one.days.iter().map(key).collect::<Vec<_>>(), four.days.iter().map(key).collect::<Vec<_>>());
+    // Break line 17,001 (data line 17,000): every split reports that line.
+    let text = String::from_utf8_lossy(&out).into_owned();
+    let mut lines: Vec<&str> = text.lines().collect();
+    let broken = lines.get(17_000).map(|l| l.replacen(",1000000,", ",1000000x,", 1)).unwrap_or_default();
+    if let Some(l) = lines.get_mut(17_000) {
+        *l = &broken;
+    }
+    std::fs::write(&path, lines.join("\n") + "\n").unwrap_or_else(|e| panic!("{e}"));
+    for threads in [1, 2, 3, 8] {
+        let e =
+            tally_logs(std::slice::from_ref(&path), &none, None, false, None, &all, threads).err().unwrap_or_default();
+        assert!(e.contains("p.csv:17001: clock_hz: \"1000000x\" is not a whole number"), "{threads} threads: {e}");
+    }
+}
