@@ -464,9 +464,15 @@ pub fn synth_log(out: &Path, records: u64, stations: u32, seed: u64) -> anyhow::
             clock_hz: 1_000_000,
             temp_mdeg_c: Some(23_000 + rng.random_range(-2_000..2_000)),
             verdict,
-            hint: if verdict.passes() { hold_firmware::Hint::None } else { hold_firmware::Hint::NearTheEdge },
+            // The hint the firmware would give: the stage's hold is proportional to C,
+            // so the implied deviation is the hold's from the nominal 739.617 ms.
+            hint: if verdict.passes() {
+                hold_firmware::Hint::None
+            } else {
+                hold_firmware::Hint::from_deviation_ppm(((hold as f64 / 739_617.2 - 1.0) * 1e6).round() as i64)
+            },
             drift: hold_firmware::drift::DriftState::Settling,
-            c_deviation_ppm: None,
+            c_deviation_ppm: (!verdict.passes()).then(|| ((hold as f64 / 739_617.2 - 1.0) * 1e6).round() as i32),
         };
         let name = names.get(s).map_or("line-1", String::as_str);
         log::write_line(&mut w, start + (i as i64) * 250, name, &format!("B{}", i / per_batch), &r)?;
