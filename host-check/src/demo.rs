@@ -331,6 +331,21 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
     Ok((all, setup))
 }
 
+/// Frames `records` with `damage` (see [`framed`]) and listens to them:
+/// (sent, damaged, stored, bad frames).
+fn send(
+    store: &mut Store,
+    name: &str,
+    records: &[Record],
+    labels: &Labels,
+    rng: &mut Xoshiro256PlusPlus,
+    damage: (u64, u64),
+) -> Result<(u64, u64, u64, u64), String> {
+    let (bytes, damaged) = framed(records, rng, damage.0, damage.1)?;
+    let l = collect::listen(store, name, Cursor::new(bytes), labels, |_| {}, || false).map_err(|e| e.to_string())?;
+    Ok((records.len() as u64, damaged, l.stored, l.counts.bad_frames))
+}
+
 /// Runs the scenario into a fresh database at `db` and writes the reports
 /// into `out_dir`. `say` receives progress lines.
 ///
@@ -360,26 +375,18 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
     // Bay A: frames over a noisy serial line into listen, one stream per batch.
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(sc.seed ^ 0x5E1A1);
     for (k, chunk) in bay_a.chunks(bay_a.len().div_ceil(2).max(1)).enumerate() {
-        let (bytes, damaged) = framed(chunk, &mut rng, 97, 151)?;
         let labels = Labels {
             station: "bay-A".into(),
             batch: format!("L3-{}", 2_648 + k),
             setup_id: Some(board_setup_id),
             time: TimeRule::Arrival,
         };
-        let l = collect::listen(
-            &mut store,
-            &format!("bay-A serial, batch {}", labels.batch),
-            Cursor::new(bytes),
-            &labels,
-            |_| {},
-            || false,
-        )
-        .map_err(|e| e.to_string())?;
-        ledger.bay_a_sent += chunk.len() as u64;
-        ledger.bay_a_damaged += damaged;
-        ledger.bay_a_stored += l.stored;
-        ledger.bay_a_bad += l.counts.bad_frames;
+        let name = format!("bay-A serial, batch {}", labels.batch);
+        let s = send(&mut store, &name, chunk, &labels, &mut rng, (97, 151))?;
+        ledger.bay_a_sent += s.0;
+        ledger.bay_a_damaged += s.1;
+        ledger.bay_a_stored += s.2;
+        ledger.bay_a_bad += s.3;
     }
     // Bay B: its PC decodes the frames and writes one measurement log per batch.
     let base = timestamp::now_ms() - 8 * 3_600_000;
@@ -417,26 +424,17 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
     let start = timestamp::parse_ms(FLEET_START.as_bytes()).ok_or("bad fleet start")?;
     for recs in &fleet_recs {
         let Some(first) = recs.first() else { continue };
-        let (bytes, damaged) = framed(recs, &mut rng, 997, 0)?;
         let labels = Labels {
             station: "kestrel-fleet".into(),
             batch: "K5-2023Q4".into(),
             setup_id: Some(meter_setup_id),
             time: TimeRule::Sequence { start_ms: start, period_ms: 86_400_000 },
         };
-        let l = collect::listen(
-            &mut store,
-            &format!("meter {} history", first.unit_id),
-            Cursor::new(bytes),
-            &labels,
-            |_| {},
-            || false,
-        )
-        .map_err(|e| e.to_string())?;
-        ledger.fleet_sent += recs.len() as u64;
-        ledger.fleet_damaged += damaged;
-        ledger.fleet_stored += l.stored;
-        ledger.fleet_bad += l.counts.bad_frames;
+        let s = send(&mut store, &format!("meter {} history", first.unit_id), recs, &labels, &mut rng, (997, 0))?;
+        ledger.fleet_sent += s.0;
+        ledger.fleet_damaged += s.1;
+        ledger.fleet_stored += s.2;
+        ledger.fleet_bad += s.3;
     }
 
     say("reporting …");

@@ -7,7 +7,7 @@ use crate::chart::xml;
 use crate::codes::VERDICTS;
 use crate::eval::si;
 use crate::fleet::{FleetReport, Status};
-use crate::production::YieldReport;
+use crate::production::{opt2 as f2, pct, YieldReport};
 use crate::timestamp;
 
 const STYLE: &str = "body{font-family:sans-serif;margin:2em auto;max-width:1000px;color:#222}\
@@ -15,18 +15,6 @@ h1{font-size:1.5em}h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #cc
 table{border-collapse:collapse;margin:0.5em 0}td,th{padding:2px 10px;border-bottom:1px solid #eee;text-align:right}\
 th{background:#f2f4f7}td.l,th.l{text-align:left}.note{background:#fff6e0;border-left:4px solid #d08020;padding:0.5em 1em}\
 pre{background:#f6f6f6;padding:0.6em}svg{max-width:100%;height:auto}";
-
-fn pct(a: u64, b: u64) -> String {
-    if b == 0 {
-        "–".into()
-    } else {
-        format!("{:.2} %", 100.0 * a as f64 / b as f64)
-    }
-}
-
-fn f2(v: Option<f64>) -> String {
-    v.map_or_else(|| "–".into(), |x| format!("{x:.2}"))
-}
 
 /// The page.
 #[must_use]

@@ -813,7 +813,8 @@ pub fn tally_logs(
     total.finish().map_err(|e| format!("writing the rejects: {e}"))
 }
 
-fn pct(part: u64, total: u64) -> String {
+/// `part` as a percentage of `total` to 2 decimals, or a dash.
+pub(crate) fn pct(part: u64, total: u64) -> String {
     if total == 0 {
         "–".to_owned()
     } else {
@@ -821,7 +822,8 @@ fn pct(part: u64, total: u64) -> String {
     }
 }
 
-fn opt2(v: Option<f64>) -> String {
+/// A value to 2 decimals, or a dash.
+pub(crate) fn opt2(v: Option<f64>) -> String {
     v.map_or_else(|| "–".to_owned(), |x| format!("{x:.2}"))
 }
 
