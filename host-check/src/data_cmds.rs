@@ -62,6 +62,10 @@ fn open(db: &Path) -> anyhow::Result<Store> {
     Ok(Store::open(db).map_err(|e| BadInput(e.to_string()))?)
 }
 
+fn open_existing(db: &Path) -> anyhow::Result<Store> {
+    Ok(Store::open_existing(db).map_err(|e| BadInput(e.to_string()))?)
+}
+
 /// Parses "30s", "15min", "6h", "1d" into ms.
 fn period_ms(s: &str) -> Option<i64> {
     let s = s.trim();
@@ -270,7 +274,7 @@ pub fn yields(
         None => None,
     };
     let report = if csv.is_empty() {
-        let store = open(db)?;
+        let store = open_existing(db)?;
         let mut setups = store.setups().map_err(|e| anyhow::anyhow!("{e}"))?;
         // A --stage given here replaces the stored setups (id 0 for all records).
         let override_id = given.map(|s| {
@@ -340,7 +344,7 @@ pub fn aging(
     };
     let mut filter = select.filter()?;
     filter.unit_id = unit;
-    let store = open(db)?;
+    let store = open_existing(db)?;
     let setups = store.setups().map_err(|e| anyhow::anyhow!("{e}"))?;
     let stations = store.stations().map_err(|e| anyhow::anyhow!("{e}"))?;
     let mut tally = FleetTally::new(&setups);
@@ -376,7 +380,7 @@ pub fn aging(
 
 /// `rchold sources`.
 pub fn sources(db: &Path) -> anyhow::Result<ExitCode> {
-    let store = open(db)?;
+    let store = open_existing(db)?;
     let mut o = format!(
         "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>11}  name\n",
         db.display(),

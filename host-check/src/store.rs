@@ -233,6 +233,21 @@ impl Store {
         Ok(store)
     }
 
+    /// Opens an existing store (for the reports, which should not leave an
+    /// empty database behind when the path is mistyped).
+    ///
+    /// # Errors
+    /// The file does not exist, and as [`Store::open`].
+    pub fn open_existing(path: &Path) -> Result<Store, StoreError> {
+        if !path.is_file() {
+            return Err(StoreError {
+                path: path.to_path_buf(),
+                message: "no such store (make one with `rchold listen` or `rchold ingest`, or give --db)".into(),
+            });
+        }
+        Store::open(path)
+    }
+
     fn err(&self, e: impl std::fmt::Display) -> StoreError {
         StoreError { path: self.path.clone(), message: e.to_string() }
     }
