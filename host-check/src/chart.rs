@@ -11,7 +11,7 @@ pub fn xml(s: &str) -> String {
 
 const W: f64 = 720.0;
 const H: f64 = 360.0;
-const PAD: f64 = 52.0;
+const PAD: f64 = 64.0;
 
 fn frame(o: &mut String, title: &str, x_label: &str, y_label: &str) {
     let _ = write!(

@@ -360,7 +360,7 @@ pub fn fleet_svg(r: &FleetReport) -> String {
         &[(r.limit_ratio, format!("end of life C/C₀ = {:.2}", r.limit_ratio), "#b03030")],
         "Fleet: capacitance ratio C/C₀ over time (orange: at risk, red: beyond limit)",
         "year",
-        "C/C₀ to commissioning (temperature-compensated)",
+        "C/C₀, temperature-compensated",
         &|v| format!("{v:.1}"),
         &|v| format!("{v:.3}"),
     )
@@ -385,9 +385,15 @@ pub fn rates_svg(r: &FleetReport) -> Option<String> {
     }
     let marks: Vec<(f64, String, &str)> =
         r.rate_percentiles.map(|(_, m, _)| vec![(m, format!("median {m:+.2} %/yr"), "#207020")]).unwrap_or_default();
-    Some(chart::histogram(&bins, lo, hi, &marks, "Fleet: capacitance change per year", "% of nominal per year", &|v| {
-        format!("{v:+.1}")
-    }))
+    Some(chart::histogram(
+        &bins,
+        lo,
+        hi,
+        &marks,
+        "Fleet: capacitance change per year",
+        "% of the commissioning value per year",
+        &|v| format!("{v:+.1}"),
+    ))
 }
 
 /// One unit's series, its line and its forecast.
