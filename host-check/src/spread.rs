@@ -54,17 +54,36 @@ pub struct Monte {
     pub holds: Vec<f64>,
 }
 
+/// A uniform draw in [0, 1) from the top 53 bits of the generator's output.
+#[inline]
+fn unit<R: Rng>(rng: &mut R) -> f64 {
+    (rng.next_u64() >> 11) as f64 * (1.0 / 9_007_199_254_740_992.0)
+}
+
+/// `x` rounded to the nearest whole number, halves up, for `x ≥ 0` (a cast,
+/// where `f64::round` is a library call on the baseline x86-64 target).
+#[inline]
+fn round_u64(x: f64) -> u64 {
+    (x + 0.5) as u64
+}
+
+/// As [`round_u64`].
+#[inline]
+fn round_u32(x: f64) -> u32 {
+    (x + 0.5) as u32
+}
+
 fn draw_factor<R: Rng>(rng: &mut R, t: Tolerance, dist: Dist) -> f64 {
     let (lo, hi) = (-f64::from(t.minus_ppm) * 1e-6, f64::from(t.plus_ppm) * 1e-6);
     if lo == 0.0 && hi == 0.0 {
         return 1.0;
     }
     let x = match dist {
-        Dist::Uniform => rng.random_range(lo..=hi),
+        Dist::Uniform => lo + (hi - lo) * unit(rng),
         Dist::Normal { k_sigma } => {
             // Box–Muller; the half-width of the side drawn sets σ.
-            let u1: f64 = rng.random_range(f64::EPSILON..1.0);
-            let u2: f64 = rng.random();
+            let u1 = 1.0 - unit(rng); // (0, 1]
+            let u2 = unit(rng);
             let z = (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos();
             let half = if z < 0.0 { -lo } else { hi };
             (z * half / k_sigma).clamp(lo, hi)
@@ -78,7 +97,7 @@ fn draw_band<R: Rng>(rng: &mut R, band: (u32, u32), dist: Dist) -> u32 {
     let mid = 0.5 * (lo + hi);
     let half = 0.5 * (hi - lo);
     let f = draw_factor(rng, Tolerance::symmetric(1_000_000), dist) - 1.0;
-    (mid + f * half).round() as u32
+    round_u32(mid + f * half)
 }
 
 /// One random board.
@@ -86,20 +105,20 @@ fn draw_band<R: Rng>(rng: &mut R, band: (u32, u32), dist: Dist) -> u32 {
 pub fn draw(nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, index: u64) -> Stage {
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed ^ index.wrapping_mul(0x9E37_79B9_7F4A_7C15));
     let mut s = *nominal;
-    s.r_mohm = (s.r_mohm as f64 * draw_factor(&mut rng, spread.r, dist)).round() as u64;
-    s.c_ff = (s.c_ff as f64 * draw_factor(&mut rng, spread.c, dist)).round() as u64;
+    s.r_mohm = round_u64(s.r_mohm as f64 * draw_factor(&mut rng, spread.r, dist));
+    s.c_ff = round_u64(s.c_ff as f64 * draw_factor(&mut rng, spread.c, dist));
     let k = draw_factor(&mut rng, spread.vdd, dist);
-    s.vdd_uv = (f64::from(s.vdd_uv) * k).round() as u32;
-    s.driver_mohm = (s.driver_mohm as f64 * draw_factor(&mut rng, spread.driver, dist)).round() as u64;
+    s.vdd_uv = round_u32(f64::from(s.vdd_uv) * k);
+    s.driver_mohm = round_u64(s.driver_mohm as f64 * draw_factor(&mut rng, spread.driver, dist));
     let d = draw_factor(&mut rng, spread.diode, dist);
     s.diode = match s.diode {
-        Diode::Drop { drop_uv } => Diode::Drop { drop_uv: (f64::from(drop_uv) * d).round() as u32 },
+        Diode::Drop { drop_uv } => Diode::Drop { drop_uv: round_u32(f64::from(drop_uv) * d) },
         Diode::Junction { is_fa, n_milli, rs_mohm } => {
             Diode::Junction { is_fa: ((is_fa as f64) * d).round().max(1.0) as u64, n_milli, rs_mohm }
         }
     };
     // Thresholds are fractions of the supply: bands and the stage's own scale with it.
-    let scale = |v: u32| (f64::from(v) * k).round() as u32;
+    let scale = |v: u32| round_u32(f64::from(v) * k);
     match spread.thresholds {
         None => {
             s.rise_uv = scale(s.rise_uv);
