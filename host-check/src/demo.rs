@@ -262,11 +262,13 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
     let sf = stage_file("kestrel-meter.toml", METER_TOML)?;
     let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| e.to_string())?;
     let poll_ns = (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32;
-    let (setup, mut config, model) = setup_of(&sf, "kestrel-meter.toml", METER_TOML, poll_ns)?;
+    let (mut setup, mut config, model) = setup_of(&sf, "kestrel-meter.toml", METER_TOML, poll_ns)?;
     // A field unit tracks drift, not a production window: it accepts any
-    // hold up to its timeout and reports the deviation.
+    // hold up to its timeout and reports the deviation; its setup says so.
     config.hold_min_ticks = 0;
     config.hold_max_ticks = config.hold_timeout_ticks.saturating_sub(1);
+    setup.hold_min_ticks = config.hold_min_ticks;
+    setup.hold_max_ticks = config.hold_max_ticks;
     let (tlo, thi) = sf.spread.temp_mdeg_c.unwrap_or(rc_model::limits::TEMP_MDEG_C);
     let start = timestamp::parse_ms(FLEET_START.as_bytes()).ok_or("bad fleet start")?;
     type UnitRun = Result<(Vec<Record>, Option<i64>), String>;

@@ -43,6 +43,9 @@ pub struct RecheckWindow {
     pub hold_max_ticks: u64,
     /// The firmware window stored with the setup, ticks.
     pub stored_ticks: (u64, u64),
+    /// The stored window is not the stage file's (set by hand, as on field
+    /// units that accept any hold): verdicts are judged against the stored one.
+    pub custom: bool,
 }
 
 struct Checker {
@@ -76,14 +79,21 @@ impl Checker {
         };
         let poll = u64::from(setup.poll_ns) * u64::from(setup.clock_hz) / 1_000_000_000;
         let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
+        let (ref_min, ref_max) = (
+            min_t.saturating_sub(guard(min_t)).saturating_sub(poll + 1),
+            max_t.saturating_add(guard(max_t)).saturating_add(poll + 1),
+        );
+        // Rounding may move an edge by a tick; more than that is a window set by hand.
+        let custom = ref_min.abs_diff(setup.hold_min_ticks) > 2 || ref_max.abs_diff(setup.hold_max_ticks) > 2;
         Ok(Checker {
             window: RecheckWindow {
                 setup: setup.name.clone(),
                 min_s: lo,
                 max_s: hi,
-                hold_min_ticks: min_t.saturating_sub(guard(min_t)).saturating_sub(poll + 1),
-                hold_max_ticks: max_t.saturating_add(guard(max_t)).saturating_add(poll + 1),
+                hold_min_ticks: ref_min,
+                hold_max_ticks: ref_max,
                 stored_ticks: (setup.hold_min_ticks, setup.hold_max_ticks),
+                custom,
             },
             stage: StageF::from(&sf.stage),
             clock_hz: clock,
@@ -94,14 +104,15 @@ impl Checker {
     /// hold alone decides (within window, short, long).
     fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
         let w = &self.window;
-        let v = if hold_ticks < w.hold_min_ticks {
+        let (min, max) = if w.custom { w.stored_ticks } else { (w.hold_min_ticks, w.hold_max_ticks) };
+        let v = if hold_ticks < min {
             Verdict::Short
-        } else if hold_ticks > w.hold_max_ticks {
+        } else if hold_ticks > max {
             Verdict::Long
         } else {
             return (Verdict::WithinWindow, Hint::None);
         };
-        if hold_ticks.saturating_mul(20) < w.hold_min_ticks {
+        if hold_ticks.saturating_mul(20) < min {
             return (v, Hint::OpenCapacitorOrDiode);
         }
         let hint = match reference::inverse_c(&self.stage, hold_ticks as f64 / self.clock_hz) {
@@ -918,8 +929,13 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             for w in &rc.windows {
                 let _ = writeln!(
                     o,
-                    "    {}: reference window {} … {} ticks, firmware window {} … {} ticks",
-                    w.setup, w.hold_min_ticks, w.hold_max_ticks, w.stored_ticks.0, w.stored_ticks.1
+                    "    {}: reference window {} … {} ticks, firmware window {} … {} ticks{}",
+                    w.setup,
+                    w.hold_min_ticks,
+                    w.hold_max_ticks,
+                    w.stored_ticks.0,
+                    w.stored_ticks.1,
+                    if w.custom { " (set by hand: verdicts judged against it)" } else { "" }
                 );
             }
             for e in &rc.setup_errors {

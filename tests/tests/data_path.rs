@@ -45,6 +45,16 @@ fn demo_scenario_end_to_end() {
     assert_eq!(stored, l.bay_a_stored + l.bay_b_stored + l.fleet_stored);
     assert_eq!(bad, l.bay_a_bad + l.fleet_bad);
 
+    // The whole store re-checked against every setup (the meters' window is set by hand).
+    let setups = store.setups().unwrap_or_else(|e| panic!("{e}"));
+    let mut all = host_check::production::Tally::new(&setups, true, None);
+    store
+        .for_each(&Filter::default(), |s| all.add("any", &s.batch, s.measured_ms, &s.record, s.setup_id))
+        .unwrap_or_else(|e| panic!("{e}"));
+    let all = all.finish().unwrap_or_else(|e| panic!("{e}"));
+    let rc_all = all.recheck.unwrap_or_default();
+    assert_eq!(rc_all.disagreements_total, 0, "{:?}", rc_all.disagreements.first());
+    assert_eq!(rc_all.windows.iter().filter(|w| w.custom).count(), 1, "{:?}", rc_all.windows);
     let y = &out.yields;
     assert_eq!(y.all.total, l.bay_a_stored + l.bay_b_stored);
     let rc = y.recheck.as_ref().unwrap_or_else(|| panic!("re-check off"));
@@ -58,7 +68,7 @@ fn demo_scenario_end_to_end() {
         })
         .unwrap_or_else(|e| panic!("{e}"));
     let rejected: HashSet<u32> = y.rejects.iter().map(|r| r.unit).collect();
-    assert!(y.rejects_total as usize <= y.rejects.len() + 1_000);
+    assert_eq!(y.rejects_total as usize, y.rejects.len(), "all rejects fit the report's list here");
     for (unit, what) in &l.faults {
         if stored_units.contains(unit) {
             assert!(rejected.contains(unit), "fault {what} on {unit} passed");
