@@ -111,11 +111,11 @@ pub fn listen(
     db: &Path,
     quiet: bool,
 ) -> anyhow::Result<ExitCode> {
-    if station.is_empty() || station.len() > 64 {
-        return Err(BadInput(format!("--station {station:?}: accepted: 1 … 64 bytes")).into());
+    if station.is_empty() || station.len() > 64 || station.chars().any(char::is_control) {
+        return Err(BadInput(format!("--station {station:?}: accepted: 1 … 64 bytes, no control characters")).into());
     }
-    if batch.len() > 64 {
-        return Err(BadInput(format!("--batch {batch:?}: accepted: 0 … 64 bytes")).into());
+    if batch.len() > 64 || batch.chars().any(char::is_control) {
+        return Err(BadInput(format!("--batch {batch:?}: accepted: 0 … 64 bytes, no control characters")).into());
     }
     let time = match (seq_start, seq_period) {
         (None, None) => TimeRule::Arrival,

@@ -14,7 +14,7 @@ use host_check::{agree, eval, stagefile};
 mod data_cmds;
 
 #[derive(Parser)]
-#[command(name = "rchold", version, about = "Design and check RC hold stages", max_term_width = 100)]
+#[command(name = "rchold", version, about = "Design, check and monitor RC hold stages", max_term_width = 100)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
