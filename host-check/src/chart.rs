@@ -92,7 +92,12 @@ pub fn histogram(
     }
     ticks(&mut o, lo, hi, true, fmt);
     ticks(&mut o, 0.0, top, false, &|v| format!("{v:.0}"));
-    for (k, (v, label, colour)) in marks.iter().enumerate() {
+    // Labels alternate between two rows in left-to-right order, so neighbours do not overlap.
+    let mut order: Vec<usize> = (0..marks.len()).collect();
+    order.sort_by(|&a, &b| {
+        marks.get(a).map(|m| m.0).unwrap_or(0.0).total_cmp(&marks.get(b).map(|m| m.0).unwrap_or(0.0))
+    });
+    for (k, (v, label, colour)) in order.iter().filter_map(|&i| marks.get(i)).enumerate() {
         let x = PAD + (W - 2.0 * PAD) * (v - lo) / span;
         if !(PAD - 1.0..=W - PAD + 1.0).contains(&x) {
             continue;

@@ -6,8 +6,8 @@ use std::fmt::Write as _;
 use rc_model::window::Window;
 use rc_model::{Model, Stage};
 
+use crate::chart::xml;
 use crate::eval::{corner_text, secs, si};
-use crate::spread::xml;
 use crate::twin::Twin;
 
 /// The software timer's clock.

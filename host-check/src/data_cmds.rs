@@ -40,12 +40,9 @@ impl SetupArgs {
         let Some(path) = &self.stage else { return Ok(None) };
         let text = std::fs::read_to_string(path).map_err(|e| BadInput(format!("{}: {e}", path.display())))?;
         let sf = stagefile::parse(path, &text).map_err(|e| BadInput(e.to_string()))?;
-        let (c, poll_ns) = host_check::fixture::settings_from_text(&sf, &self.clock, &self.guard, self.poll.as_deref())
-            .map_err(BadInput)?;
-        let guard_ppm = match host_check::values::parse_tolerance(&self.guard, &[]) {
-            Ok(host_check::values::Tol::Relative(f)) => (f * 1e6).round() as u32,
-            _ => 0,
-        };
+        let (c, guard_ppm, poll_ns) =
+            host_check::fixture::settings_from_text(&sf, &self.clock, &self.guard, self.poll.as_deref())
+                .map_err(BadInput)?;
         Ok(Some(Setup {
             name: path.file_name().map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned()),
             stage_toml: text,

@@ -40,7 +40,7 @@ pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> 
 
 /// The firmware settings from the text of `--clock`, `--guard` and `--poll`
 /// options; `poll` defaults to 1/1000 of the nominal hold (1 µs … 1 s).
-/// Returns the settings and the poll period, ns.
+/// Returns the settings, the guard (ppm) and the poll period (ns).
 ///
 /// # Errors
 /// A one-line message naming the option and its accepted range.
@@ -49,7 +49,7 @@ pub fn settings_from_text(
     clock: &str,
     guard: &str,
     poll: Option<&str>,
-) -> Result<(Config, u32), String> {
+) -> Result<(Config, u32, u32), String> {
     use crate::values::{parse_tolerance, parse_value, Tol};
     let bad = |opt: &str, v: &str, range: &str, why: String| format!("--{opt} {v:?}: {why} (accepted: {range})");
     let clock_hz = parse_value(clock, &["Hz"]).map_err(|e| bad("clock", clock, "1 kHz to 200 MHz", e.to_string()))?;
@@ -72,7 +72,7 @@ pub fn settings_from_text(
         }
         None => (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32,
     };
-    Ok((settings(sf, clock_hz.round() as u32, guard_ppm, poll_ns)?, poll_ns))
+    Ok((settings(sf, clock_hz.round() as u32, guard_ppm, poll_ns)?, guard_ppm, poll_ns))
 }
 
 /// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).

@@ -371,7 +371,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
         Command::Window { stage, clock, guard, poll, emit: what, out } => {
             let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
-            let (config, _) =
+            let (config, _, _) =
                 host_check::fixture::settings_from_text(&sf, &clock, &guard, poll.as_deref()).map_err(BadInput)?;
             let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
             match what.as_str() {

@@ -370,8 +370,6 @@ pub fn capability(m: &Monte, lsl_s: f64, usl_s: f64) -> Capability {
 /// window (dashed) and the spec limits (solid) marked.
 #[must_use]
 pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)>, title: &str) -> String {
-    use std::fmt::Write as _;
-    let (w, h, pad) = (720.0, 360.0, 48.0);
     let mut lo = m.min_s;
     let mut hi = m.max_s;
     if let Some(win) = window {
@@ -392,69 +390,16 @@ pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)
             *c += 1;
         }
     }
-    let top = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
-    let x = |v: f64| pad + (v - lo) / (hi - lo) * (w - 2.0 * pad);
-    let mut s = String::new();
-    let _ = writeln!(
-        s,
-        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}" height="{h}" viewBox="0 0 {w} {h}" font-family="sans-serif" font-size="12">"#
-    );
-    let _ = writeln!(s, r##"<rect width="{w}" height="{h}" fill="#ffffff"/>"##);
-    let _ = writeln!(s, r#"<text x="{pad}" y="20" font-size="14">{}</text>"#, xml(title));
-    let bw = (w - 2.0 * pad) / bins as f64;
-    for (i, c) in counts.iter().enumerate() {
-        let bh = (*c as f64 / top) * (h - 2.0 * pad - 20.0);
-        let _ = writeln!(
-            s,
-            r##"<rect x="{:.2}" y="{:.2}" width="{:.2}" height="{:.2}" fill="#5b7fa6"/>"##,
-            pad + i as f64 * bw,
-            h - pad - bh,
-            (bw - 1.0).max(0.5),
-            bh
-        );
-    }
-    let _ = writeln!(s, r##"<line x1="{pad}" y1="{}" x2="{}" y2="{}" stroke="#333"/>"##, h - pad, w - pad, h - pad);
-    for k in 0..=4 {
-        let v = lo + (hi - lo) * f64::from(k) / 4.0;
-        let _ = writeln!(
-            s,
-            r#"<text x="{:.1}" y="{}" text-anchor="middle">{}</text>"#,
-            x(v),
-            h - pad + 16.0,
-            xml(&crate::eval::si(v, "s"))
-        );
-    }
-    let mut mark = |v: f64, label: &str, colour: &str, dash: &str| {
-        let _ = writeln!(
-            s,
-            r#"<line x1="{0:.2}" y1="{1}" x2="{0:.2}" y2="{2}" stroke="{colour}" stroke-width="2" {dash}/>"#,
-            x(v),
-            pad,
-            h - pad
-        );
-        let _ = writeln!(
-            s,
-            r#"<text x="{:.2}" y="{}" fill="{colour}" text-anchor="middle">{}</text>"#,
-            x(v),
-            pad - 4.0,
-            xml(label)
-        );
-    };
+    let mut marks = Vec::new();
     if let Some(win) = window {
-        mark(secs(win.min), "worst-case min", "#b35c00", r#"stroke-dasharray="6 4""#);
-        mark(secs(win.max), "worst-case max", "#b35c00", r#"stroke-dasharray="6 4""#);
+        marks.push((secs(win.min), "worst-case min".to_owned(), "#b35c00"));
+        marks.push((secs(win.max), "worst-case max".to_owned(), "#b35c00"));
     }
     if let Some((a, b)) = spec {
-        mark(a, "spec low", "#a01010", "");
-        mark(b, "spec high", "#a01010", "");
+        marks.push((a, "spec low".to_owned(), "#a01010"));
+        marks.push((b, "spec high".to_owned(), "#a01010"));
     }
-    let _ = writeln!(s, "</svg>");
-    s
-}
-
-/// Escapes text for SVG/XML.
-pub(crate) fn xml(t: &str) -> String {
-    t.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;")
+    crate::chart::histogram(&counts, lo, hi, &marks, title, "hold", &|v| crate::eval::si(v, "s"))
 }
 
 /// The report, as text or JSON.
