@@ -364,6 +364,15 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
                 .map_err(|e| format!("{}: cannot remove the old demo database: {e}", p.display()))?;
         }
     }
+    // Per-unit charts of an earlier run would mix with this run's.
+    if let Ok(entries) = std::fs::read_dir(out_dir) {
+        for e in entries.flatten() {
+            let name = e.file_name().to_string_lossy().into_owned();
+            if name.starts_with("unit-") && name.ends_with(".svg") {
+                std::fs::remove_file(e.path()).map_err(|err| format!("{}: {err}", e.path().display()))?;
+            }
+        }
+    }
     let mut store = Store::open(db).map_err(|e| e.to_string())?;
     let mut ledger = Ledger::default();
     let mut files = Vec::new();
