@@ -7,7 +7,7 @@ use crate::chart::xml;
 use crate::codes::VERDICTS;
 use crate::eval::si;
 use crate::fleet::{FleetReport, Status};
-use crate::production::{opt2 as f2, pct, YieldReport};
+use crate::production::{pct, YieldReport};
 use crate::timestamp;
 
 const STYLE: &str = "body{font-family:sans-serif;margin:2em auto;max-width:1000px;color:#222}\
@@ -50,17 +50,11 @@ pub fn page(
                 <th>hold mean</th><th>hold σ</th><th>Cp</th><th>Cpk</th></tr>",
     );
     for g in y.stations.iter().chain(std::iter::once(&y.all)) {
+        let [name, total, passed, yld, mean, sd, cp, cpk] = g.cells();
         let _ = write!(
             o,
-            "<tr><td class=l>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td><td>{}</td></tr>",
-            xml(&g.name),
-            g.total,
-            g.passed(),
-            pct(g.passed(), g.total),
-            if g.hold_s.n > 0 { si(g.hold_s.mean, "s") } else { "–".into() },
-            if g.hold_s.n > 1 { si(g.hold_s.sd(), "s") } else { "–".into() },
-            f2(g.cp),
-            f2(g.cpk)
+            "<tr><td class=l>{}</td><td>{total}</td><td>{passed}</td><td>{yld}</td><td>{mean}</td><td>{sd}</td><td>{cp}</td><td>{cpk}</td></tr>",
+            xml(&name)
         );
     }
     o.push_str("</table><p>Cp and Cpk of the hold against the pass window (NIST/SEMATECH e-Handbook §6.1.6), \

@@ -257,6 +257,22 @@ impl Group {
         self.verdicts.first().copied().unwrap_or(0)
     }
 
+    /// The station table's cells: name, measured, passed, yield, hold mean,
+    /// hold σ, Cp, Cpk (a dash where there is no value).
+    #[must_use]
+    pub fn cells(&self) -> [String; 8] {
+        [
+            self.name.clone(),
+            self.total.to_string(),
+            self.passed().to_string(),
+            pct(self.passed(), self.total),
+            if self.hold_s.n > 0 { si(self.hold_s.mean, "s") } else { "–".into() },
+            if self.hold_s.n > 1 { si(self.hold_s.sd(), "s") } else { "–".into() },
+            opt2(self.cp),
+            opt2(self.cpk),
+        ]
+    }
+
     /// Yield, %.
     #[must_use]
     pub fn yield_pct(&self) -> f64 {
@@ -834,7 +850,7 @@ pub(crate) fn pct(part: u64, total: u64) -> String {
 }
 
 /// A value to 2 decimals, or a dash.
-pub(crate) fn opt2(v: Option<f64>) -> String {
+fn opt2(v: Option<f64>) -> String {
     v.map_or_else(|| "–".to_owned(), |x| format!("{x:.2}"))
 }
 
@@ -853,18 +869,8 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
         "station", "measured", "passed", "yield", "hold mean", "hold σ", "Cp", "Cpk"
     );
     for g in r.stations.iter().chain(std::iter::once(&r.all)) {
-        let _ = writeln!(
-            o,
-            "  {:<16} {:>9} {:>9} {:>9}  {:>10} {:>10} {:>6} {:>6}",
-            g.name,
-            g.total,
-            g.passed(),
-            pct(g.passed(), g.total),
-            if g.hold_s.n > 0 { si(g.hold_s.mean, "s") } else { "–".into() },
-            if g.hold_s.n > 1 { si(g.hold_s.sd(), "s") } else { "–".into() },
-            opt2(g.cp),
-            opt2(g.cpk),
-        );
+        let [name, total, passed, yld, mean, sd, cp, cpk] = g.cells();
+        let _ = writeln!(o, "  {name:<16} {total:>9} {passed:>9} {yld:>9}  {mean:>10} {sd:>10} {cp:>6} {cpk:>6}");
     }
     let _ = writeln!(o, "\n  verdicts (all stations)");
     for (v, n) in VERDICTS.iter().zip(r.all.verdicts) {
