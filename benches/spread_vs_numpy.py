@@ -59,8 +59,8 @@ def main():
         t_numpy = min(t_numpy, time.perf_counter() - t0)
     rc = json.loads(out.stdout)["monte_carlo"]
     print(f"samples: {N}, fastest of {RUNS} runs each")
-    print(f"rchold spread (whole command, f32 hold path per sample, all cores):     {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
-    print(f"numpy (vectorised closed form, one core):                                {t_numpy:.2f} s, {N / t_numpy:,.0f} samples/s")
+    print(f"rchold spread (whole command, all cores):   {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
+    print(f"numpy (vectorised closed form, one core):   {t_numpy:.2f} s, {N / t_numpy:,.0f} samples/s")
     print(f"ratio rchold/numpy samples/s: {t_numpy / t_rchold:.2f}")
     print("percentile   rchold (s)      numpy (s)")
     for p, v in rc["percentiles"]:

@@ -12,6 +12,7 @@ pub mod fixture;
 pub mod fleet;
 pub mod frames;
 pub mod html;
+mod lanes;
 pub mod log;
 pub mod netlist;
 pub mod pick;
