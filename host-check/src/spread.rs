@@ -455,11 +455,14 @@ fn fill(lanes: &mut Lanes, dist: Dist, lo: f64, hi: f64, col: &mut [f64x4]) {
         }
         Dist::Normal { k_sigma } => {
             let (below, above) = (f64x4::splat(-lo / k_sigma), f64x4::splat(hi / k_sigma));
-            for x in col {
+            // Both normals of each Box–Muller pair: the cosine one, then the sine one.
+            for pair in col.chunks_mut(2) {
                 let (u1, u2) = (lanes.next_unit(), lanes.next_unit());
                 let radius = (f64x4::splat(-2.0) * (f64x4::ONE - u1).ln()).sqrt();
-                let z = radius * (f64x4::splat(std::f64::consts::TAU) * u2).sin_cos().1;
-                *x = (z * z.simd_lt(f64x4::ZERO).select(below, above)).max(lo4).min(hi4);
+                let (sin, cos) = (f64x4::splat(std::f64::consts::TAU) * u2).sin_cos();
+                for (x, z) in pair.iter_mut().zip([radius * cos, radius * sin]) {
+                    *x = (z * z.simd_lt(f64x4::ZERO).select(below, above)).max(lo4).min(hi4);
+                }
             }
         }
     }
@@ -761,6 +764,8 @@ pub fn monte_carlo_with(
     let (mut sums, rest_counts) = rest
         .par_chunks_mut(BLOCK)
         .enumerate()
+        // Each piece of work carries a histogram: a few dozen pieces, not thousands.
+        .with_min_len(32)
         .fold(
             || (Vec::new(), vec![0u32; BINS], Columns::default()),
             |(mut sums, mut counts, mut cols), (b, out)| {
