@@ -578,6 +578,11 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     Some((a, b))
                 }
             };
+            let parts = match (years, sf.spread.aging) {
+                (Some(y), _) => host_check::spread::Parts::Aged { years: y },
+                (None, Some(a)) => host_check::spread::Parts::NewBesideAging(a),
+                (None, None) => host_check::spread::Parts::New,
+            };
             if let Some(y) = years {
                 if !(0.0..=50.0).contains(&y) {
                     return Err(BadInput(format!("--years {y}: out of range (accepted: 0 to 50)")).into());
@@ -646,7 +651,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 );
                 std::fs::write(path, svg).with_context(|| format!("writing {}", path.display()))?;
             }
-            let text = host_check::spread::render(&name, &mc, rss, window.as_ref(), spec, cap.as_ref(), json);
+            let text = host_check::spread::render(&name, &mc, parts, rss, window.as_ref(), spec, cap.as_ref(), json);
             emit(&text)?;
             Ok(ExitCode::SUCCESS)
         }

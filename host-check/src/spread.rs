@@ -22,7 +22,7 @@
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rayon::prelude::*;
-use rc_model::window::{Spread, ThresholdSpread, Tolerance, Window};
+use rc_model::window::{Aging, Spread, ThresholdSpread, Tolerance, Window};
 use rc_model::{Diode, Model, Stage};
 use serde::Serialize;
 
@@ -995,11 +995,45 @@ pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)
     crate::chart::histogram(&counts, lo, hi, &marks, title, "hold", &|v| crate::eval::si(v, "s"))
 }
 
-/// The report, as text or JSON.
+/// How old the Monte Carlo's capacitors are.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Parts {
+    /// New parts, and no aging in the spread.
+    New,
+    /// New parts, while the worst case and the root-sum-square also take
+    /// the spread's aging (the `[aging]` table) as a corner.
+    NewBesideAging(Aging),
+    /// Every capacitor aged this many years first (`--years`).
+    Aged {
+        /// Years.
+        years: f64,
+    },
+}
+
+impl Parts {
+    fn text(self) -> Option<String> {
+        match self {
+            Parts::New => None,
+            Parts::NewBesideAging(a) => Some(format!(
+                "new parts; the worst case and root-sum-square include the capacitor {}; --years Y ages every board",
+                match a {
+                    Aging::Class2 { hours, .. } => format!("aged {hours} h"),
+                    Aging::EndOfLife { loss_ppm } => format!("at end of life ({} % lost)", f64::from(loss_ppm) / 1e4),
+                }
+            )),
+            Parts::Aged { years } => Some(format!("every capacitor aged {years} years first")),
+        }
+    }
+}
+
+/// The report, as text or JSON. `(nominal_s, rss_sd_s)`: the nominal hold
+/// and the root-sum-square σ, s.
 #[must_use]
+#[allow(clippy::too_many_arguments)]
 pub fn render(
     name: &str,
     m: &Monte,
+    parts: Parts,
     (nominal_s, rss_sd_s): (f64, f64),
     window: Option<&Window>,
     spec: Option<(f64, f64)>,
@@ -1018,6 +1052,8 @@ pub fn render(
             })),
             "rss_sd_s": rss_sd_s,
             "monte_carlo": m,
+            "monte_carlo_age_years": match parts { Parts::Aged { years } => years, _ => 0.0 },
+            "monte_carlo_parts": parts.text().unwrap_or_else(|| "new parts".to_owned()),
             "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
             "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
         });
@@ -1049,6 +1085,9 @@ pub fn render(
         &format!("Monte Carlo, {} boards", m.samples),
         format!("mean {} \u{b7} σ {} \u{b7} {} refused", si(m.mean_s, "s"), si(m.sd_s, "s"), m.refused),
     );
+    if let Some(t) = parts.text() {
+        let _ = writeln!(o, "    {t}");
+    }
     for (p, v) in &m.percentiles {
         let _ = writeln!(o, "    {:>7} % of boards hold less than {}", format!("{p}"), si(*v, "s"));
     }

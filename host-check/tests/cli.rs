@@ -337,4 +337,14 @@ fn spread_ages_an_electrolytic_by_the_ten_degree_rule() {
     ]);
     assert!((worn / new - 0.8).abs() < 1e-4, "{worn} vs {new}");
     assert!((half / new - 0.9).abs() < 1e-4, "{half} vs {new}");
+    // The report says which parts the Monte Carlo drew, and that the worst case holds the aging.
+    let out = run(dir.path(), &["spread", "e.toml", "--samples", "100"]);
+    assert!(
+        text(&out.stdout)
+            .contains("new parts; the worst case and root-sum-square include the capacitor at end of life (20 % lost)"),
+        "{}",
+        text(&out.stdout)
+    );
+    let out = run(dir.path(), &["spread", "e.toml", "--samples", "100", "--years", "1.5", "--at-temp", "85"]);
+    assert!(text(&out.stdout).contains("every capacitor aged 1.5 years first"), "{}", text(&out.stdout));
 }
