@@ -94,6 +94,14 @@ fn monte_carlo_is_deterministic_for_a_seed() {
     let pool = rayon::ThreadPoolBuilder::new().num_threads(1).build().unwrap_or_else(|e| panic!("{e}"));
     let b = pool.install(|| spread::monte_carlo(&stage(), &sp, Dist::Uniform, 100_000, 5, &|_, _| {}));
     assert_eq!(a.holds, b.holds);
+    // The fast path too, and its moments and percentiles to the bit.
+    for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+        let run = || spread::monte_carlo_with(&stage(), &sp, dist, 300_001, 5, spread::Eval::Fast, &|_, _| {});
+        let (f, g) = (run(), pool.install(run));
+        assert_eq!(f.holds, g.holds);
+        assert_eq!((f.mean_s.to_bits(), f.sd_s.to_bits()), (g.mean_s.to_bits(), g.sd_s.to_bits()));
+        assert_eq!(f.percentiles, g.percentiles);
+    }
     let c = spread::monte_carlo(&stage(), &sp, Dist::Uniform, 100_000, 6, &|_, _| {});
     assert_ne!(a.holds, c.holds);
 }
