@@ -2,7 +2,7 @@
 """Monte Carlo of a hold stage's spread: `rchold spread` against a
 straightforward vectorised numpy version of the same draws and closed form,
 on the same machine. Prints samples/s of each, their ratio and the
-percentiles of both (they must agree within Monte Carlo error).
+percentiles of both, and fails unless they agree within Monte Carlo error.
 
 The stage: examples/bench-spread.toml (fixed 0.6 V drop, 50 Ω driver, a
 custom input with ±5 % threshold bands, R ±1 %, C ±10 %, Vdd ±5 %, drop
@@ -62,11 +62,28 @@ def main():
     print(f"rchold spread (whole command, all cores):   {t_rchold:.2f} s, {N / t_rchold:,.0f} samples/s")
     print(f"numpy (vectorised closed form, one core):   {t_numpy:.2f} s, {N / t_numpy:,.0f} samples/s")
     print(f"ratio rchold/numpy samples/s: {t_numpy / t_rchold:.2f}")
-    print("percentile   rchold (s)      numpy (s)")
+    print("percentile   rchold (s)      numpy (s)     difference / its standard error")
+    worst = 0.0
+    n = len(h)
     for p, v in rc["percentiles"]:
-        print(f"{p:>9} %  {v:.6f}  {np.percentile(h, p):.6f}")
+        q = p / 100.0
+        ours = np.percentile(h, p)
+        # Standard error of a sample quantile, sqrt(q(1-q)/n)/f(x_q), the
+        # density from the spacing of nearby order statistics; both runs are
+        # independent samples, hence sqrt(2) (textbook asymptotics, from memory).
+        d = max(q * 0.05, 2e-4)
+        lo, hi = np.percentile(h, [100 * max(q - d, 0.0), 100 * min(q + d, 1.0)])
+        per_unit = (hi - lo) / (min(q + d, 1.0) - max(q - d, 0.0))
+        se = np.sqrt(2.0 * q * (1.0 - q) / n) * per_unit
+        z = abs(v - ours) / se
+        worst = max(worst, z)
+        print(f"{p:>9} %  {v:.6f}  {ours:.6f}  {z:.2f}")
     print(f"mean         {rc['mean_s']:.6f}  {h.mean():.6f}")
     print(f"sd           {rc['sd_s']:.6f}  {h.std(ddof=1):.6f}")
+    # Seven percentiles: more than 4.5 standard errors apart would be a real disagreement.
+    if worst > 4.5:
+        sys.exit(f"percentiles disagree beyond Monte Carlo error ({worst:.1f} standard errors)")
+    print(f"percentiles agree within Monte Carlo error (largest gap {worst:.2f} standard errors)")
 
 
 if __name__ == "__main__":
