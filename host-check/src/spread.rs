@@ -628,7 +628,6 @@ impl BlockSum {
         let (mut n, mut sum, mut min, mut max) = (0u32, f64x4::ZERO, s(f64::INFINITY), s(f64::NEG_INFINITY));
         let chunks = out.chunks_exact(LANES);
         let tail = chunks.remainder();
-        let (lo, per_unit, last) = (s(bins.lo), s(bins.per_unit), s((BINS - 1) as f64));
         for chunk in chunks {
             let x = f64x4::from(chunk);
             let valid = x.simd_eq(x);
@@ -638,10 +637,9 @@ impl BlockSum {
             // `min`/`max` keep the other operand where one is NaN.
             min = min.min(x);
             max = max.max(x);
-            let at = ((x - lo) * per_unit).max(f64x4::ZERO).min(last).to_array();
-            for (l, b) in at.iter().enumerate() {
+            for (l, b) in bins.of4(x).into_iter().enumerate() {
                 if bits & (1 << l) != 0 {
-                    if let Some(c) = counts.get_mut(*b as usize) {
+                    if let Some(c) = counts.get_mut(b) {
                         *c += 1;
                     }
                 }
@@ -848,6 +846,12 @@ impl Bins {
     fn of(&self, x: f64) -> usize {
         ((x - self.lo) * self.per_unit).clamp(0.0, (BINS - 1) as f64) as usize
     }
+
+    /// [`Bins::of`] of four values at once (NaN lanes land in bin 0).
+    fn of4(&self, x: f64x4) -> [usize; LANES] {
+        let at = ((x - f64x4::splat(self.lo)) * f64x4::splat(self.per_unit)).max(f64x4::ZERO);
+        at.min(f64x4::splat((BINS - 1) as f64)).to_array().map(|b| b as usize)
+    }
 }
 
 /// The `ranks`-th smallest values of `v` (0-based), exactly, without sorting
@@ -887,12 +891,24 @@ fn order_statistics(v: &[f64], ranks: &[usize], bins_of: &Bins, counts: &[u32]) 
         .fold(
             || vec![Vec::new(); bins.len()],
             |mut m, chunk| {
-                for &x in chunk {
-                    if let Some(&s) = slot.get(bin(x)) {
+                let mut keep = |x: f64, b: usize| {
+                    if let Some(&s) = slot.get(b) {
                         if let Some(list) = m.get_mut(usize::from(s)) {
                             list.push(x);
                         }
                     }
+                };
+                // Four bins at a time (`v` holds no NaN here), then the rest.
+                let quads = chunk.chunks_exact(LANES);
+                let tail = quads.remainder();
+                for quad in quads {
+                    let x = f64x4::from(quad);
+                    for (&x, b) in quad.iter().zip(bins_of.of4(x)) {
+                        keep(x, b);
+                    }
+                }
+                for &x in tail {
+                    keep(x, bin(x));
                 }
                 m
             },
