@@ -146,6 +146,8 @@ pub(super) enum Plan {
     Plain(Plain),
 }
 
+/// The plan for `how`: the vector closed form where it applies (fixed drop,
+/// every board inside the domain), else the `f32` backend; or the fixed-point model.
 pub(super) fn plan(nominal: &Stage, spread: &Spread, how: Eval) -> Plan {
     match how {
         Eval::Exact => Plan::Exact,
@@ -207,6 +209,8 @@ fn fill(lanes: &mut Lanes, dist: Dist, lo: f64, hi: f64, col: &mut [f64x4]) {
 }
 
 impl Columns {
+    /// Draws block `block` of the run with `seed`: `n` boards, rounded up to
+    /// whole vectors (the extra lanes are never read).
     fn draw(&mut self, nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, block: usize, n: usize) {
         let mut seeds = [0u64; LANES];
         for (l, s) in seeds.iter_mut().enumerate() {
@@ -345,6 +349,8 @@ impl Columns {
     }
 }
 
+/// Draws block `block` of the run into `cols` and evaluates its boards by
+/// `plan` into `out` (holds in s, NaN where refused; `out.len()` boards).
 #[allow(clippy::too_many_arguments)]
 pub(super) fn run_block(
     nominal: &Stage,
