@@ -21,7 +21,7 @@ use serde::Serialize;
 use crate::codes::VERDICTS;
 use crate::eval::si;
 use crate::reference::{self, StageF};
-use crate::stats;
+use crate::stats::{self, Moments};
 use crate::store::Setup;
 use crate::{chart, codes, log, stagefile, timestamp};
 
@@ -120,85 +120,6 @@ impl Checker {
             Err(_) => Hint::WrongPart,
         };
         (v, hint)
-    }
-}
-
-/// Running mean and variance: sums of the samples' differences from the
-/// first sample (no division per sample; the shift keeps the sums small, so
-/// nothing cancels), turned into mean and M2 by [`Moments::settle`];
-/// partial results merge by Chan et al.'s pairwise update.
-#[derive(Debug, Clone, Copy, Default, Serialize)]
-pub struct Moments {
-    /// Samples.
-    pub n: u64,
-    /// Mean (valid after [`Moments::settle`]).
-    pub mean: f64,
-    #[serde(skip)]
-    m2: f64,
-    #[serde(skip)]
-    shift: f64,
-    #[serde(skip)]
-    s1: f64,
-    #[serde(skip)]
-    s2: f64,
-}
-
-impl Moments {
-    /// Adds a sample.
-    #[inline]
-    pub fn add(&mut self, x: f64) {
-        if self.n == 0 {
-            self.shift = x;
-        }
-        let d = x - self.shift;
-        self.n += 1;
-        self.s1 += d;
-        self.s2 += d * d;
-    }
-
-    /// Computes the mean and M2 from the sums.
-    pub fn settle(&mut self) {
-        if self.n > 0 {
-            let n = self.n as f64;
-            self.mean = self.shift + self.s1 / n;
-            self.m2 = (self.s2 - self.s1 * self.s1 / n).max(0.0);
-            // Re-base the sums on the mean so that adding more stays consistent.
-            self.shift = self.mean;
-            self.s1 = 0.0;
-            self.s2 = self.m2;
-        }
-    }
-
-    /// Adds another set of samples (Chan et al.'s pairwise update).
-    pub fn merge(&mut self, o: &Moments) {
-        let mut o = *o;
-        o.settle();
-        self.settle();
-        if o.n == 0 {
-            return;
-        }
-        if self.n == 0 {
-            *self = o;
-            return;
-        }
-        let n = self.n + o.n;
-        let d = o.mean - self.mean;
-        self.mean += d * o.n as f64 / n as f64;
-        self.m2 += o.m2 + d * d * self.n as f64 * o.n as f64 / n as f64;
-        self.n = n;
-        self.shift = self.mean;
-        self.s1 = 0.0;
-        self.s2 = self.m2;
-    }
-
-    /// Sample standard deviation (n − 1), after [`Moments::settle`].
-    #[must_use]
-    pub fn sd(&self) -> f64 {
-        if self.n > 1 {
-            (self.m2 / (self.n - 1) as f64).sqrt()
-        } else {
-            f64::NAN
-        }
     }
 }
 

@@ -3,6 +3,8 @@
 //! line. Formulas as in the NIST/SEMATECH e-Handbook of Statistical Methods
 //! (§6.1.6, §6.3.2.4, §6.3.2.3, §6.3.2.2).
 
+use serde::Serialize;
+
 /// Process capability of a characteristic against its specification limits.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Capability {
@@ -30,18 +32,6 @@ pub fn capability(lsl: f64, usl: f64, mean: f64, sigma: f64) -> Capability {
         cpk: cpu.min(cpl),
         k: ((usl + lsl) / 2.0 - mean).abs() / ((usl - lsl) / 2.0),
     }
-}
-
-/// Mean and sample standard deviation (n − 1).
-#[must_use]
-pub fn mean_sd(x: &[f64]) -> (f64, f64) {
-    let n = x.len() as f64;
-    if x.is_empty() {
-        return (f64::NAN, f64::NAN);
-    }
-    let mean = x.iter().sum::<f64>() / n;
-    let ss: f64 = x.iter().map(|v| (v - mean) * (v - mean)).sum();
-    (mean, if x.len() > 1 { (ss / (n - 1.0)).sqrt() } else { f64::NAN })
 }
 
 /// An EWMA chart: `z_t = λ·x_t + (1 − λ)·z_(t−1)`, limits
@@ -182,4 +172,90 @@ pub fn fit_line(x: &[f64], y: &[f64]) -> Option<Line> {
         residual_sd: s2.sqrt(),
         r_squared: 1.0 - sse / syy,
     })
+}
+
+/// Running mean and variance: sums of the samples' differences from the
+/// first sample (no division per sample; the shift keeps the sums small, so
+/// nothing cancels), turned into mean and M2 by [`Moments::settle`];
+/// partial results merge by Chan et al.'s pairwise update.
+#[derive(Debug, Clone, Copy, Default, Serialize)]
+pub struct Moments {
+    /// Samples.
+    pub n: u64,
+    /// Mean (valid after [`Moments::settle`]).
+    pub mean: f64,
+    #[serde(skip)]
+    m2: f64,
+    #[serde(skip)]
+    shift: f64,
+    #[serde(skip)]
+    s1: f64,
+    #[serde(skip)]
+    s2: f64,
+}
+
+impl Moments {
+    /// Settled moments of `n` samples with this mean and sum of squared
+    /// deviations from it (`m2`), ready to add to or merge.
+    #[must_use]
+    pub fn from_mean_m2(n: u64, mean: f64, m2: f64) -> Moments {
+        Moments { n, mean, m2, shift: mean, s1: 0.0, s2: m2 }
+    }
+
+    /// Adds a sample.
+    #[inline]
+    pub fn add(&mut self, x: f64) {
+        if self.n == 0 {
+            self.shift = x;
+        }
+        let d = x - self.shift;
+        self.n += 1;
+        self.s1 += d;
+        self.s2 += d * d;
+    }
+
+    /// Computes the mean and M2 from the sums.
+    pub fn settle(&mut self) {
+        if self.n > 0 {
+            let n = self.n as f64;
+            self.mean = self.shift + self.s1 / n;
+            self.m2 = (self.s2 - self.s1 * self.s1 / n).max(0.0);
+            // Re-base the sums on the mean so that adding more stays consistent.
+            self.shift = self.mean;
+            self.s1 = 0.0;
+            self.s2 = self.m2;
+        }
+    }
+
+    /// Adds another set of samples (Chan et al.'s pairwise update).
+    pub fn merge(&mut self, o: &Moments) {
+        let mut o = *o;
+        o.settle();
+        self.settle();
+        if o.n == 0 {
+            return;
+        }
+        if self.n == 0 {
+            *self = o;
+            return;
+        }
+        let n = self.n + o.n;
+        let d = o.mean - self.mean;
+        self.mean += d * o.n as f64 / n as f64;
+        self.m2 += o.m2 + d * d * self.n as f64 * o.n as f64 / n as f64;
+        self.n = n;
+        self.shift = self.mean;
+        self.s1 = 0.0;
+        self.s2 = self.m2;
+    }
+
+    /// Sample standard deviation (n − 1), after [`Moments::settle`].
+    #[must_use]
+    pub fn sd(&self) -> f64 {
+        if self.n > 1 {
+            (self.m2 / (self.n - 1) as f64).sqrt()
+        } else {
+            f64::NAN
+        }
+    }
 }

@@ -89,10 +89,11 @@ pub fn hold_s(s: &Stage) -> Option<f64> {
 pub enum Eval {
     /// The fixed-point model, every path (as the firmware computes it).
     Exact,
-    /// The closed form in `f64` on the drawn values (fixed-drop diode, every
-    /// corner of the spread inside the model's domain), else the `f32`
-    /// backend board by board: within 1e-4 of the fixed-point model on every
-    /// sample, far below Monte Carlo error, and many times faster.
+    /// The closed form in `f64` on the drawn values, four boards at a time
+    /// (fixed-drop diode, every corner of the spread inside the model's
+    /// domain; a press not certainly full goes to the fixed-point model),
+    /// else the `f32` backend board by board: within 1e-4 of the fixed-point
+    /// model on every sample, far below Monte Carlo error, and many times faster.
     Fast,
 }
 
@@ -174,8 +175,8 @@ pub fn monte_carlo_with(
         v.retain(|h| !h.is_nan());
     }
     let refused = total.refused;
-    let mean = if total.n == 0 { f64::NAN } else { total.mean };
-    let sd = if total.n > 1 { (total.m2 / (total.n - 1) as f64).sqrt() } else { f64::NAN };
+    let mean = if total.moments.n == 0 { f64::NAN } else { total.moments.mean };
+    let sd = total.moments.sd();
     let (min_s, max_s) = (total.min, total.max);
     let levels = [0.135, 1.0, 5.0, 50.0, 95.0, 99.0, 99.865];
     // Linear interpolation between order statistics (the common "type 7" rule).

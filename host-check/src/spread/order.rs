@@ -5,14 +5,13 @@ use rayon::prelude::*;
 use wide::f64x4;
 
 use crate::lanes::LANES;
+use crate::stats::Moments;
 
-/// Accepted holds of one block: count, mean, sum of squared deviations,
-/// extremes; refused samples counted apart.
+/// Accepted holds of one block: their moments and extremes; refused
+/// samples counted apart.
 #[derive(Debug, Clone, Copy)]
 pub(super) struct BlockSum {
-    pub(super) n: usize,
-    pub(super) mean: f64,
-    pub(super) m2: f64,
+    pub(super) moments: Moments,
     pub(super) min: f64,
     pub(super) max: f64,
     pub(super) refused: usize,
@@ -64,21 +63,14 @@ impl BlockSum {
             m2 += d * d;
         }
         let m2 = m2.reduce_add() + tail.iter().filter(|x| !x.is_nan()).map(|&x| (x - mean) * (x - mean)).sum::<f64>();
-        BlockSum { n, mean, m2, min, max, refused: out.len() - n }
+        BlockSum { moments: Moments::from_mean_m2(n as u64, mean, m2), min, max, refused: out.len() - n }
     }
 
-    /// Chan, Golub and LeVeque's pairwise update of the mean and squared deviations.
-    pub(super) fn merge(self, o: BlockSum) -> BlockSum {
-        let n = self.n + o.n;
-        if n == 0 {
-            return BlockSum { refused: self.refused + o.refused, ..self };
-        }
-        let d = o.mean - self.mean;
-        let (na, nb) = (self.n as f64, o.n as f64);
+    /// Both blocks' holds together (the moments by Chan et al.'s pairwise update).
+    pub(super) fn merge(mut self, o: BlockSum) -> BlockSum {
+        self.moments.merge(&o.moments);
         BlockSum {
-            n,
-            mean: self.mean + d * nb / n as f64,
-            m2: self.m2 + o.m2 + d * d * na * nb / n as f64,
+            moments: self.moments,
             min: self.min.min(o.min),
             max: self.max.max(o.max),
             refused: self.refused + o.refused,
