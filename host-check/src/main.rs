@@ -147,7 +147,7 @@ enum Command {
         /// Write a histogram with the window and spec marked (SVG).
         #[arg(long, value_name = "FILE")]
         plot: Option<PathBuf>,
-        /// Evaluate every sample with the fixed-point model instead of the f32 hold path (slower, same statistics).
+        /// Evaluate every sample with the fixed-point model instead of the fast vector closed form (slower, same statistics).
         #[arg(long)]
         exact: bool,
         /// Print JSON instead of the text report.

@@ -168,7 +168,7 @@ fn picked_parts_meet_the_target_by_the_reference() {
     assert!(checked >= 20, "{checked}");
 }
 
-/// The fast f32 hold path gives the fixed-point model's statistics: every
+/// The fast path (vector closed form, else the f32 backend) gives the fixed-point model's statistics: every
 /// sample within 1e-4 relative, so percentiles agree far inside Monte Carlo error.
 #[test]
 fn fast_and_exact_monte_carlo_agree() {
