@@ -204,6 +204,41 @@ const INSERT: &str = "INSERT OR IGNORE INTO measurement (station_id, unit_id, se
      press_ticks, on_ticks, hold_ticks, temp_mdeg_c, verdict, hint, drift, c_dev_ppm, setup_id, source_id) \
      VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16)";
 
+/// How long a connection waits for another writer's lock before it gives up.
+const BUSY_WAIT: Duration = Duration::from_secs(60);
+
+/// Puts the database into WAL mode.
+///
+/// WAL is a property of the file, so after the first open this only reads
+/// the mode. The switch itself needs the file to itself, and SQLite answers
+/// `SQLITE_BUSY` to it at once, without running the busy handler, when
+/// another connection holds any lock (two processes creating one store at
+/// the same moment). The switch is therefore retried, with backoff, for up to
+/// [`BUSY_WAIT`]; another process finishing it meanwhile counts as done.
+fn into_wal(conn: &Connection) -> Result<(), String> {
+    let unusable = |e: rusqlite::Error| format!("not a database rchold can use: {e}");
+    let is_wal = |mode: &str| mode.eq_ignore_ascii_case("wal");
+    let mode: String = conn.query_row("PRAGMA journal_mode", [], |r| r.get(0)).map_err(unusable)?;
+    if is_wal(&mode) {
+        return Ok(());
+    }
+    let start = std::time::Instant::now();
+    let mut pause = Duration::from_millis(1);
+    loop {
+        match conn.query_row("PRAGMA journal_mode = WAL", [], |r| r.get::<_, String>(0)) {
+            Ok(mode) if is_wal(&mode) => return Ok(()),
+            Ok(mode) => return Err(format!("cannot switch to WAL mode (journal mode stays {mode})")),
+            Err(e)
+                if e.sqlite_error_code() == Some(rusqlite::ErrorCode::DatabaseBusy) && start.elapsed() < BUSY_WAIT =>
+            {
+                std::thread::sleep(pause);
+                pause = (pause * 2).min(Duration::from_millis(50));
+            }
+            Err(e) => return Err(unusable(e)),
+        }
+    }
+}
+
 fn u64_sql(v: u64) -> i64 {
     // Ticks beyond 2^63 cannot come from a u32 clock in any plausible run;
     // they are stored saturated rather than wrapped.
@@ -220,13 +255,8 @@ impl Store {
     pub fn open(path: &Path) -> Result<Store, StoreError> {
         let err = |m: String| StoreError { path: path.to_path_buf(), message: m };
         let conn = Connection::open(path).map_err(|e| err(format!("cannot open: {e}")))?;
-        conn.busy_timeout(Duration::from_secs(60)).map_err(|e| err(e.to_string()))?;
-        let mode: String = conn
-            .query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))
-            .map_err(|e| err(format!("not a database rchold can use: {e}")))?;
-        if !mode.eq_ignore_ascii_case("wal") {
-            return Err(err(format!("cannot switch to WAL mode (journal mode stays {mode})")));
-        }
+        conn.busy_timeout(BUSY_WAIT).map_err(|e| err(e.to_string()))?;
+        into_wal(&conn).map_err(err)?;
         conn.execute_batch("PRAGMA synchronous = NORMAL; PRAGMA foreign_keys = ON;").map_err(|e| err(e.to_string()))?;
         let mut store = Store { conn, path: path.to_path_buf() };
         store.migrate()?;
@@ -714,6 +744,39 @@ mod tests {
             .query_row("SELECT count(*) FROM sqlite_master WHERE name = 'measurement_time'", [], |r| r.get(0))
             .map_err(|e| s.err(e))?;
         assert_eq!(idx, 1);
+        Ok(())
+    }
+
+    /// Several connections creating one new store at the same moment all
+    /// get it. SQLite refuses the switch to WAL at once, without running the
+    /// busy handler, to a connection that loses that race; before the retry
+    /// in [`into_wal`] most rounds here failed with "database is locked".
+    #[test]
+    fn connections_creating_one_store_at_once_all_open_it() -> Result<(), StoreError> {
+        let dir = tempfile::tempdir().map_err(|e| StoreError { path: PathBuf::new(), message: e.to_string() })?;
+        for round in 0..20 {
+            let path = dir.path().join(format!("race-{round}.db"));
+            let gate = std::sync::Barrier::new(6);
+            let versions: Vec<Result<u32, StoreError>> = std::thread::scope(|s| {
+                let openers: Vec<_> = (0..6)
+                    .map(|_| {
+                        s.spawn(|| {
+                            gate.wait();
+                            Store::open(&path).and_then(|st| st.schema_version())
+                        })
+                    })
+                    .collect();
+                openers
+                    .into_iter()
+                    .map(|h| {
+                        h.join().unwrap_or_else(|_| Err(StoreError { path: path.clone(), message: "panicked".into() }))
+                    })
+                    .collect()
+            });
+            for v in versions {
+                assert_eq!(v?, SCHEMA_VERSION, "round {round}");
+            }
+        }
         Ok(())
     }
 
