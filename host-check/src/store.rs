@@ -749,8 +749,9 @@ mod tests {
 
     /// Several connections creating one new store at the same moment all
     /// get it. SQLite refuses the switch to WAL at once, without running the
-    /// busy handler, to a connection that loses that race; before the retry
-    /// in [`into_wal`] most rounds here failed with "database is locked".
+    /// busy handler, to a connection that loses that race; without the retry
+    /// in [`into_wal`] this test failed within its first rounds with
+    /// "database is locked".
     #[test]
     fn connections_creating_one_store_at_once_all_open_it() -> Result<(), StoreError> {
         let dir = tempfile::tempdir().map_err(|e| StoreError { path: PathBuf::new(), message: e.to_string() })?;
