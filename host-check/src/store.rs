@@ -210,11 +210,13 @@ const BUSY_WAIT: Duration = Duration::from_secs(60);
 /// Puts the database into WAL mode.
 ///
 /// WAL is a property of the file, so after the first open this only reads
-/// the mode. The switch itself needs the file to itself, and SQLite answers
-/// `SQLITE_BUSY` to it at once, without running the busy handler, when
-/// another connection holds any lock (two processes creating one store at
-/// the same moment). The switch is therefore retried, with backoff, for up to
-/// [`BUSY_WAIT`]; another process finishing it meanwhile counts as done.
+/// the mode. The switch itself needs the file to itself, and while another
+/// connection is creating or switching the same new file SQLite can answer
+/// `SQLITE_BUSY` to it at once, without running the busy handler (seen with
+/// two processes creating one store at the same moment; a plain reader of
+/// the file does get waited for). The switch is therefore retried, with
+/// backoff, for up to [`BUSY_WAIT`]; another process finishing it meanwhile
+/// counts as done.
 fn into_wal(conn: &Connection) -> Result<(), String> {
     let unusable = |e: rusqlite::Error| format!("not a database rchold can use: {e}");
     let is_wal = |mode: &str| mode.eq_ignore_ascii_case("wal");
@@ -748,8 +750,8 @@ mod tests {
     }
 
     /// Several connections creating one new store at the same moment all
-    /// get it. SQLite refuses the switch to WAL at once, without running the
-    /// busy handler, to a connection that loses that race; without the retry
+    /// get it. SQLite can refuse the switch to WAL at once, without running
+    /// the busy handler, to a connection that loses that race; without the retry
     /// in [`into_wal`] this test failed within its first rounds with
     /// "database is locked".
     #[test]
