@@ -6,16 +6,21 @@
 
 mod error;
 pub mod fixed;
+#[cfg(feature = "solver")]
 mod model;
+pub mod prepared;
 pub mod presets;
 mod stage;
 mod units;
+#[cfg(feature = "solver")]
 pub mod window;
 
 #[cfg(feature = "f32")]
 pub mod float;
 
 pub use error::{Error, Quantity};
+#[cfg(feature = "solver")]
 pub use model::{Evaluation, InverseC, InverseR, Model};
+pub use prepared::{Estimate, Norm, Prepared, PREPARED_LEN};
 pub use stage::{check_clock, fraction_of, limits, ppm_of, Diode, Stage};
 pub use units::{Span, Voltage};

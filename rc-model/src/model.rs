@@ -296,6 +296,22 @@ impl Model {
         })
     }
 
+    /// The discharge in the terms of [`crate::Prepared`], after a press of the
+    /// stage's length from empty: the start `V_C0 + R_eff·I_lk` and the end
+    /// `(V_T− + R_eff·I_lk)·(R_eff + Rs)/R_eff`, both µV·2^32, and τd in
+    /// ns·2^32, so that the hold is `τd·ln(start/end)`.
+    ///
+    /// # Errors
+    /// As [`Model::evaluate`].
+    pub(crate) fn discharge_terms(&self) -> Result<(u128, u128, u128), Error> {
+        let e = self.evaluate()?;
+        let q = &self.q;
+        let lk = ir(q.i_lk, q.r_eff)?;
+        let start = pos(e.cap_at_release.uv_q32() + lk)?;
+        let end = arith(mul_div(pos(q.fall + lk)?, q.r_eff + q.rs, q.r_eff))?;
+        Ok((start, end, e.discharge_tau.ns_q32()))
+    }
+
     /// Capacitor voltage `elapsed` after a release that left it at
     /// `cap_at_release` (driver low, the node discharging through R, the
     /// leakage and Rs): `V_C(t) = (V_C0 + R_eff·I_lk)·e^(−t/τd) − R_eff·I_lk`.
