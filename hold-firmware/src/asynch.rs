@@ -10,7 +10,7 @@ use core::task::Poll;
 use embedded_hal::digital::{InputPin, OutputPin};
 use embedded_hal_async::delay::DelayNs;
 use embedded_hal_async::digital::Wait;
-use rc_model::Model;
+use rc_model::Prepared;
 
 use crate::config::Config;
 use crate::engine::{judge, outcome, Error, Measurement};
@@ -45,7 +45,8 @@ pub struct AsyncTester<TRIG, OUT, D, K> {
     delay: D,
     clock: K,
     config: Config,
-    model: Model,
+    stage: Prepared,
+    temp_mdeg_c: i32,
 }
 
 impl<TRIG, OUT, D, K, E> AsyncTester<TRIG, OUT, D, K>
@@ -56,8 +57,14 @@ where
     K: TickSource,
 {
     /// Takes the peripherals and the settings.
-    pub fn new(trigger: TRIG, output: OUT, delay: D, clock: K, config: Config, model: Model) -> Self {
-        AsyncTester { trigger, output, delay, clock, config, model }
+    pub fn new(trigger: TRIG, output: OUT, delay: D, clock: K, config: Config, stage: Prepared) -> Self {
+        AsyncTester { trigger, output, delay, clock, config, temp_mdeg_c: stage.ref_mdeg_c(), stage }
+    }
+
+    /// The stage's junction temperature, m°C, for the diagnosis of the next
+    /// measurements. See [`crate::Tester::set_temperature`].
+    pub fn set_temperature(&mut self, temp_mdeg_c: i32) {
+        self.temp_mdeg_c = temp_mdeg_c;
     }
 
     /// Gives the peripherals back.
@@ -122,19 +129,19 @@ where
     /// # Errors
     /// [`Error::Pin`] when a pin operation fails.
     pub async fn measure(&mut self) -> Result<Measurement, Error<E>> {
-        let (config, model) = (self.config, self.model);
+        let (config, stage, temp) = (self.config, self.stage, self.temp_mdeg_c);
         let mut glitches = 0u16;
         self.trigger.set_high().map_err(Error::Pin)?;
         let mut sw = Stopwatch::start(self.clock.now());
         if self.settle(true, &mut sw, config.settle_ticks, &mut glitches).await?.is_some() {
-            return Ok(outcome(&config, &model, 0, None, None, glitches, Verdict::NotIdle));
+            return Ok(outcome(&config, &stage, temp, 0, None, None, glitches, Verdict::NotIdle));
         }
         self.trigger.set_low().map_err(Error::Pin)?;
         let mut sw = Stopwatch::start(self.clock.now());
         let Some(on) = self.settle(true, &mut sw, config.on_timeout_ticks, &mut glitches).await? else {
             self.trigger.set_high().map_err(Error::Pin)?;
             let t = sw.update(self.clock.now());
-            return Ok(outcome(&config, &model, t, None, None, glitches, Verdict::NoResponse));
+            return Ok(outcome(&config, &stage, temp, t, None, None, glitches, Verdict::NoResponse));
         };
         // Hold the press; the output must not drop out meanwhile.
         let dropped = self.settle(false, &mut sw, config.press_ticks, &mut glitches).await?.is_some();
@@ -146,8 +153,8 @@ where
         self.trigger.set_high().map_err(Error::Pin)?;
         let mut sw = Stopwatch::start(self.clock.now());
         match self.settle(false, &mut sw, config.hold_timeout_ticks, &mut glitches).await? {
-            Some(hold) => Ok(judge(&config, &model, press, Some(on), hold, glitches, dropped)),
-            None => Ok(outcome(&config, &model, press, Some(on), None, glitches, Verdict::StuckActive)),
+            Some(hold) => Ok(judge(&config, &stage, temp, press, Some(on), hold, glitches, dropped)),
+            None => Ok(outcome(&config, &stage, temp, press, Some(on), None, glitches, Verdict::StuckActive)),
         }
     }
 }

@@ -1,7 +1,9 @@
-//! What the engine needs to know: timings in ticks, derived from the model.
+//! What the engine needs to know: timings in ticks, derived from the model,
+//! and the prepared stage it judges holds with; both travel in one settings blob.
 
-use rc_model::window::Window;
-use rc_model::{Error as ModelError, Evaluation, Model, Span};
+#[cfg(feature = "solver")]
+use rc_model::{window::Window, Evaluation, Model};
+use rc_model::{Error as ModelError, Prepared, Span, PREPARED_LEN};
 
 /// Engine settings, all in ticks of the [`crate::TickSource`] unless the name says otherwise.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -30,10 +32,12 @@ pub struct Config {
 }
 
 /// Ticks of `span` at `clock_hz`, rounded.
+#[cfg(feature = "solver")]
 fn ticks(span: Span, clock_hz: u32) -> Result<u64, ModelError> {
     span.ticks(clock_hz)
 }
 
+#[cfg(feature = "solver")]
 impl Config {
     /// Settings for a stage: the press lasts the stage's press, but at least
     /// the turn-on latency plus five charge time constants (so the capacitor
@@ -91,7 +95,9 @@ impl Config {
         let press = Span::from_ns(model.stage().press_ns);
         Config::from_window(&e, window, press, clock_hz, guard_ppm, poll_ns)
     }
+}
 
+impl Config {
     /// Ticks as a model span.
     ///
     /// # Errors
@@ -101,10 +107,13 @@ impl Config {
     }
 }
 
-/// Length of a settings blob, bytes.
-pub const BLOB_LEN: usize = 80;
+/// Length of a settings blob, bytes: 8 of header, 68 of [`Config`], the
+/// prepared stage, 4 of CRC.
+pub const BLOB_LEN: usize = 8 + CONFIG_LEN + PREPARED_LEN + 4;
+const CONFIG_LEN: usize = 68;
 const BLOB_MAGIC: [u8; 4] = *b"RCHW";
-const BLOB_VERSION: u8 = 1;
+/// Version 2 added the prepared stage; version 1 blobs are refused.
+const BLOB_VERSION: u8 = 2;
 const CRC: crc::Crc<u32> = crc::Crc::<u32>::new(&crc::CRC_32_ISO_HDLC);
 
 /// Why a settings blob was refused.
@@ -120,7 +129,8 @@ pub enum BlobError {
     Version,
     /// The CRC does not match: the blob is corrupted.
     Crc,
-    /// The settings contradict each other (e.g. a window whose minimum exceeds its maximum).
+    /// The settings contradict each other (e.g. a window whose minimum exceeds
+    /// its maximum, or a prepared stage for another clock).
     Invalid,
 }
 
@@ -138,14 +148,27 @@ impl core::fmt::Display for BlobError {
 
 impl core::error::Error for BlobError {}
 
-impl Config {
+/// Everything a tester loads at start-up: the engine's timings and the
+/// prepared stage it judges holds with (so a field unit needs no solver).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Setup {
+    /// Timings, ticks.
+    pub config: Config,
+    /// The stage, prepared for the same clock.
+    pub stage: Prepared,
+}
+
+impl Setup {
     /// The settings as a blob to store in flash or send to a fixture:
-    /// "RCHW", version 1, three reserved bytes, the fields little-endian in
-    /// declaration order (clock u32, settle u64, press u64, glitch u64, poll
-    /// u32, turn-on timeout u64, hold min u64, hold max u64, hold timeout u64,
-    /// chatter limit u16), two reserved bytes, CRC-32/ISO-HDLC of all before it.
+    /// "RCHW", version 2, three reserved bytes; the [`Config`] fields
+    /// little-endian in declaration order (clock u32, settle u64, press u64,
+    /// glitch u64, poll u32, turn-on timeout u64, hold min u64, hold max u64,
+    /// hold timeout u64, chatter limit u16) and two reserved bytes; the
+    /// prepared stage ([`Prepared::to_bytes`]); CRC-32/ISO-HDLC of all before it.
     #[must_use]
     pub fn to_blob(&self) -> [u8; BLOB_LEN] {
+        let c = &self.config;
         let mut b = [0u8; BLOB_LEN];
         let mut at = 0usize;
         let mut put = |bytes: &[u8]| {
@@ -156,17 +179,18 @@ impl Config {
         };
         put(&BLOB_MAGIC);
         put(&[BLOB_VERSION, 0, 0, 0]);
-        put(&self.clock_hz.to_le_bytes());
-        put(&self.settle_ticks.to_le_bytes());
-        put(&self.press_ticks.to_le_bytes());
-        put(&self.glitch_ticks.to_le_bytes());
-        put(&self.poll_ns.to_le_bytes());
-        put(&self.on_timeout_ticks.to_le_bytes());
-        put(&self.hold_min_ticks.to_le_bytes());
-        put(&self.hold_max_ticks.to_le_bytes());
-        put(&self.hold_timeout_ticks.to_le_bytes());
-        put(&self.chatter_limit.to_le_bytes());
+        put(&c.clock_hz.to_le_bytes());
+        put(&c.settle_ticks.to_le_bytes());
+        put(&c.press_ticks.to_le_bytes());
+        put(&c.glitch_ticks.to_le_bytes());
+        put(&c.poll_ns.to_le_bytes());
+        put(&c.on_timeout_ticks.to_le_bytes());
+        put(&c.hold_min_ticks.to_le_bytes());
+        put(&c.hold_max_ticks.to_le_bytes());
+        put(&c.hold_timeout_ticks.to_le_bytes());
+        put(&c.chatter_limit.to_le_bytes());
         put(&[0, 0]);
+        put(&self.stage.to_bytes());
         let crc = CRC.checksum(b.get(..BLOB_LEN - 4).unwrap_or(&[]));
         if let Some(dst) = b.get_mut(BLOB_LEN - 4..) {
             dst.copy_from_slice(&crc.to_le_bytes());
@@ -174,12 +198,12 @@ impl Config {
         b
     }
 
-    /// Loads settings from a blob made by [`Config::to_blob`] (or `rchold window --emit bin`).
+    /// Loads settings from a blob made by [`Setup::to_blob`] (or `rchold window --emit bin`).
     ///
     /// # Errors
     /// [`BlobError`] for a wrong length, magic or version, a CRC mismatch, or
     /// contradictory settings.
-    pub fn from_blob(blob: &[u8]) -> Result<Config, BlobError> {
+    pub fn from_blob(blob: &[u8]) -> Result<Setup, BlobError> {
         if blob.len() != BLOB_LEN {
             return Err(BlobError::Length);
         }
@@ -214,41 +238,68 @@ impl Config {
             hold_timeout_ticks: u64_(take(8)?)?,
             chatter_limit: take(2)?.try_into().map(u16::from_le_bytes).map_err(|_| BlobError::Length)?,
         };
+        take(2)?;
+        let stage = Prepared::from_bytes(take(PREPARED_LEN)?).map_err(|_| BlobError::Invalid)?;
         if rc_model::check_clock(c.clock_hz).is_err()
             || c.hold_min_ticks > c.hold_max_ticks
             || c.hold_max_ticks > c.hold_timeout_ticks
             || c.press_ticks == 0
             || c.on_timeout_ticks > c.press_ticks
+            || stage.clock_hz() != c.clock_hz
         {
             return Err(BlobError::Invalid);
         }
-        Ok(c)
+        Ok(Setup { config: c, stage })
     }
 }
 
-#[cfg(test)]
+#[cfg(all(test, feature = "solver"))]
 mod tests {
     use super::*;
+    use rc_model::window::Spread;
+    use rc_model::{Diode, Stage};
 
-    fn sample() -> Config {
-        Config {
-            clock_hz: 1_000_000,
-            settle_ticks: 50_000,
-            press_ticks: 100_000,
-            glitch_ticks: 400,
-            poll_ns: 100_000,
-            on_timeout_ticks: 50_000,
-            hold_min_ticks: 500_000,
-            hold_max_ticks: 1_250_000,
-            hold_timeout_ticks: 20_000_000,
-            chatter_limit: 8,
+    fn stage() -> Prepared {
+        let s = Stage {
+            vdd_uv: 5_000_000,
+            r_mohm: 1_000_000_000,
+            c_ff: 1_000_000_000,
+            series_mohm: 0,
+            charge_mohm: 0,
+            driver_mohm: 0,
+            leak_mohm: None,
+            leak_fa: 0,
+            diode: Diode::Drop { drop_uv: 600_000 },
+            rise_uv: 2_500_000,
+            fall_uv: 2_500_000,
+            press_ns: 100_000_000,
+            temp_mdeg_c: 25_000,
+        };
+        Prepared::prepare(&s, &Spread::default(), 1_000_000).unwrap_or_else(|e| panic!("{e}"))
+    }
+
+    fn sample() -> Setup {
+        Setup {
+            config: Config {
+                clock_hz: 1_000_000,
+                settle_ticks: 50_000,
+                press_ticks: 100_000,
+                glitch_ticks: 400,
+                poll_ns: 100_000,
+                on_timeout_ticks: 50_000,
+                hold_min_ticks: 500_000,
+                hold_max_ticks: 1_250_000,
+                hold_timeout_ticks: 20_000_000,
+                chatter_limit: 8,
+            },
+            stage: stage(),
         }
     }
 
     #[test]
     fn blob_round_trips() {
         let c = sample();
-        assert_eq!(Config::from_blob(&c.to_blob()), Ok(c));
+        assert_eq!(Setup::from_blob(&c.to_blob()), Ok(c));
     }
 
     #[test]
@@ -260,12 +311,25 @@ mod tests {
                 if let Some(byte) = x.get_mut(i) {
                     *byte ^= 1 << bit;
                 }
-                assert!(Config::from_blob(&x).is_err(), "byte {i} bit {bit}");
+                assert!(Setup::from_blob(&x).is_err(), "byte {i} bit {bit}");
             }
         }
-        assert_eq!(Config::from_blob(&b[..79]), Err(BlobError::Length));
+        assert_eq!(Setup::from_blob(&b[..BLOB_LEN - 1]), Err(BlobError::Length));
         let mut wrong = sample();
-        wrong.hold_min_ticks = wrong.hold_max_ticks + 1;
-        assert_eq!(Config::from_blob(&wrong.to_blob()), Err(BlobError::Invalid));
+        wrong.config.hold_min_ticks = wrong.config.hold_max_ticks + 1;
+        assert_eq!(Setup::from_blob(&wrong.to_blob()), Err(BlobError::Invalid));
+        let mut other_clock = sample();
+        other_clock.config.clock_hz = 2_000_000;
+        assert_eq!(Setup::from_blob(&other_clock.to_blob()), Err(BlobError::Invalid));
+    }
+
+    /// A version 1 blob (80 bytes, no prepared stage) is refused by version
+    /// when padded to length, and by length as it is.
+    #[test]
+    fn version_one_blobs_are_refused() {
+        let mut v1 = sample().to_blob();
+        v1[4] = 1;
+        assert_eq!(Setup::from_blob(&v1), Err(BlobError::Version));
+        assert_eq!(Setup::from_blob(&v1[..80]), Err(BlobError::Length));
     }
 }

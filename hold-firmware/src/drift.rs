@@ -5,8 +5,19 @@
 //!
 //! Samples are integers in any unit (the engine feeds the capacitance
 //! deviation in ppm); every figure below is in the same unit. The EWMA is
-//! kept in Q16 of that unit. Overflow: samples are `i32`; sums of up to 2^16
-//! samples and their squares are formed in `i128`.
+//! kept in Q16 of that unit.
+//!
+//! # Overflow, in 64-bit arithmetic only
+//!
+//! Samples are clamped to ±2^23 ([`SAMPLE_LIMIT`]: −100 % … +839 % as ppm),
+//! the baseline to at most 256 samples and the history to at most 256
+//! entries (a compile-time check). Then: baseline sums < 2^31 and sums of
+//! squares < 2^54 (n·Σx² < 2^62, (Σx)² < 2^62); the EWMA step
+//! λ·(x·2^16) + (1 − λ)·z < 2^56; the trend's centred sums
+//! Σ(n·k − Σk)² < 2^40 and Σ(n·k − Σk)(n·v − Σv) < 2^57. σ is clamped to
+//! 2^23 and L to 65.535, so the limit half-width L·σ·√(λ/(2−λ)) < 2^55.
+//! Every update costs a fixed number of 64-bit operations: the square root
+//! of the limits is taken once, when the baseline completes.
 
 use heapless::HistoryBuf;
 use serde::{Deserialize, Serialize};
@@ -56,14 +67,24 @@ pub struct Entry {
     pub value: i32,
 }
 
+/// Largest sample magnitude the tracker keeps; larger ones are clamped.
+pub const SAMPLE_LIMIT: i32 = (1 << 23) - 1;
+/// Most baseline samples and history entries.
+pub const MAX_COUNT: usize = 256;
+
 /// The capacitance deviation from nominal, in ppm, that a hold measured at
 /// junction temperature `temp_mdeg_c` implies, referred to the reference
 /// temperature: the stage is moved to that temperature through the spread's
 /// coefficients, the hold is inverted there, and the deviation is taken
 /// against the capacitance the part should have at that temperature.
 ///
+/// This runs the general solver (feature `solver`); the per-measurement path
+/// is [`rc_model::Prepared::inverse_at`], which gives the same deviation for
+/// a full press without it.
+///
 /// # Errors
 /// The model's errors (out-of-domain values, ill-conditioned inverse).
+#[cfg(feature = "solver")]
 pub fn deviation_at(
     spread: &rc_model::window::Spread,
     nominal: &rc_model::Stage,
@@ -75,13 +96,13 @@ pub fn deviation_at(
     i32::try_from(inverse.deviation_ppm()).map_err(|_| rc_model::Error::OutOfDomain(rc_model::Quantity::C))
 }
 
-/// Integer square root (floor) of a `u128`, by Newton's method.
+/// Integer square root (floor) of a `u64`, by Newton's method.
 #[must_use]
-pub fn isqrt(n: u128) -> u128 {
+pub fn isqrt(n: u64) -> u64 {
     if n < 2 {
         return n;
     }
-    let mut x = 1u128 << ((128 - n.leading_zeros()).div_ceil(2));
+    let mut x = 1u64 << ((64 - n.leading_zeros()).div_ceil(2));
     loop {
         let y = (x + n / x) / 2;
         if y >= x {
@@ -98,10 +119,11 @@ pub struct DriftTracker<const N: usize> {
     history: HistoryBuf<Entry, N>,
     periods: u32,
     base_n: u16,
-    base_sum: i128,
-    base_sq: i128,
+    base_sum: i64,
+    base_sq: i64,
     center: i64,
     sigma: i64,
+    half_width: i64,
     ewma_q16: i64,
     s_hi: i64,
     s_lo: i64,
@@ -123,10 +145,13 @@ pub struct Update {
 }
 
 impl<const N: usize> DriftTracker<N> {
-    /// A tracker with no samples.
+    /// A tracker with no samples. `N` is at most [`MAX_COUNT`] (checked when
+    /// compiled); a baseline count above it counts as [`MAX_COUNT`].
     #[must_use]
     pub fn new(config: DriftConfig) -> Self {
-        DriftTracker {
+        const { assert!(N <= MAX_COUNT, "a drift history holds at most MAX_COUNT entries") };
+        let sigma = i64::from(config.sigma.unwrap_or(0).clamp(0, SAMPLE_LIMIT));
+        let mut t = DriftTracker {
             config,
             history: HistoryBuf::new(),
             periods: 0,
@@ -134,22 +159,31 @@ impl<const N: usize> DriftTracker<N> {
             base_sum: 0,
             base_sq: 0,
             center: 0,
-            sigma: i64::from(config.sigma.unwrap_or(0)),
+            sigma,
+            half_width: 0,
             ewma_q16: 0,
             s_hi: 0,
             s_lo: 0,
             state: DriftState::Settling,
-        }
+        };
+        t.half_width = t.ewma_half_width();
+        t
+    }
+
+    /// Baseline samples needed: the configured count within 2 … [`MAX_COUNT`].
+    fn baseline_needed(&self) -> u16 {
+        self.config.baseline_count.clamp(2, MAX_COUNT as u16)
     }
 
     /// A tracker whose baseline is given (centre and σ), skipping commissioning.
     #[must_use]
     pub fn with_baseline(config: DriftConfig, center: i32, sigma: i32) -> Self {
         let mut t = Self::new(config);
-        t.center = i64::from(center);
-        t.sigma = i64::from(sigma);
-        t.ewma_q16 = i64::from(center) << 16;
-        t.base_n = config.baseline_count;
+        t.center = i64::from(center.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT));
+        t.sigma = i64::from(sigma.clamp(0, SAMPLE_LIMIT));
+        t.half_width = t.ewma_half_width();
+        t.ewma_q16 = t.center << 16;
+        t.base_n = t.baseline_needed();
         t.state = DriftState::Steady;
         t
     }
@@ -166,14 +200,17 @@ impl<const N: usize> DriftTracker<N> {
         (self.center, self.sigma)
     }
 
-    /// Half-width of the EWMA limits: `L·σ·sqrt(λ/(2 − λ))`, sample units.
+    /// Half-width of the EWMA limits: `L·σ·sqrt(λ/(2 − λ))`, sample units
+    /// (L clamped to 65.535, σ to [`SAMPLE_LIMIT`]).
     #[must_use]
     pub fn ewma_half_width(&self) -> i64 {
-        let l = u128::from(self.config.lambda_q16.min(65_536));
-        // λ/(2 − λ) in Q32, its square root in Q16.
-        let ratio_q32 = (l << 32) / ((2u128 << 16) - l);
+        let l = u64::from(self.config.lambda_q16.min(65_536));
+        // λ/(2 − λ) in Q32 (< 2^33), its square root in Q16 (< 2^17).
+        let ratio_q32 = (l << 32) / ((2u64 << 16) - l);
         let root_q16 = isqrt(ratio_q32);
-        let w = u128::from(self.config.l_milli) * self.sigma.unsigned_abs() as u128 * root_q16;
+        let l_milli = u64::from(self.config.l_milli.min(65_535));
+        // < 2^16 · 2^23 · 2^17 = 2^56.
+        let w = l_milli * self.sigma.unsigned_abs() * root_q16;
         i64::try_from((w + 500 * 65_536) / (1000 * 65_536)).unwrap_or(i64::MAX)
     }
 
@@ -182,31 +219,35 @@ impl<const N: usize> DriftTracker<N> {
         self.history.oldest_ordered()
     }
 
-    /// Adds one sample (one measurement period).
+    /// Adds one sample (one measurement period), clamped to ±[`SAMPLE_LIMIT`].
     pub fn update(&mut self, value: i32) -> Update {
+        let value = value.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT);
         let period = self.periods;
         self.periods = self.periods.saturating_add(1);
         self.history.write(Entry { period, value });
         let before = self.state;
         let x = i64::from(value);
-        if self.base_n < self.config.baseline_count.max(2) {
+        let needed = self.baseline_needed();
+        if self.base_n < needed {
             self.base_n += 1;
-            self.base_sum += i128::from(x);
-            self.base_sq += i128::from(x) * i128::from(x);
-            if self.base_n == self.config.baseline_count.max(2) {
-                let n = i128::from(self.base_n);
-                self.center = i64::try_from(self.base_sum / n).unwrap_or(0);
+            self.base_sum += x;
+            self.base_sq += x * x;
+            if self.base_n == needed {
+                let n = i64::from(self.base_n);
+                self.center = self.base_sum / n;
                 if self.config.sigma.is_none() {
                     let var = (self.base_sq * n - self.base_sum * self.base_sum) / (n * (n - 1));
-                    self.sigma = i64::try_from(isqrt(var.unsigned_abs())).unwrap_or(i64::MAX);
+                    let sd = i64::try_from(isqrt(var.unsigned_abs())).unwrap_or(i64::MAX);
+                    self.sigma = sd.min(i64::from(SAMPLE_LIMIT));
                 }
+                self.half_width = self.ewma_half_width();
                 self.ewma_q16 = self.center << 16;
                 self.state = DriftState::Steady;
             }
             return Update { state: self.state, ewma_q16: self.ewma_q16, cusum: (0, 0), changed: self.state != before };
         }
         self.feed(x);
-        let half = self.ewma_half_width();
+        let half = self.half_width;
         let z = self.ewma_q16 >> 16;
         let drifting = z > self.center + half
             || z < self.center - half
@@ -230,12 +271,12 @@ impl<const N: usize> DriftTracker<N> {
     /// The chart arithmetic of one sample (EWMA with rounding, CUSUM exact).
     fn feed(&mut self, x: i64) {
         let l = i64::from(self.config.lambda_q16.min(65_536));
-        // z = λ·x + (1 − λ)·z in Q16, rounded to nearest.
-        let acc = i128::from(l) * (i128::from(x) << 16) + i128::from(65_536 - l) * i128::from(self.ewma_q16);
-        self.ewma_q16 = i64::try_from((acc + (1 << 15)) >> 16).unwrap_or(self.ewma_q16);
+        // z = λ·x + (1 − λ)·z in Q16, rounded to nearest; < 2^56 (module docs).
+        let acc = l * (x << 16) + (65_536 - l) * self.ewma_q16;
+        self.ewma_q16 = (acc + (1 << 15)) >> 16;
         let k = i64::from(self.config.cusum_k);
-        self.s_hi = (self.s_hi + x - self.center - k).max(0);
-        self.s_lo = (self.s_lo + self.center - k - x).max(0);
+        self.s_hi = self.s_hi.saturating_add(x - self.center - k).max(0);
+        self.s_lo = self.s_lo.saturating_add(self.center - k - x).max(0);
     }
 
     /// Runs the EWMA and CUSUM of a chart with a given centre over `x`
@@ -243,35 +284,44 @@ impl<const N: usize> DriftTracker<N> {
     pub fn chart(config: DriftConfig, center: i32, sigma: i32, x: &[i32], mut each: impl FnMut(i64, i64, i64)) {
         let mut t = Self::with_baseline(config, center, sigma);
         for &v in x {
-            t.feed(i64::from(v));
+            t.feed(i64::from(v.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT)));
             each(t.ewma_q16, t.s_hi, t.s_lo);
         }
+    }
+
+    /// The history's centred sums for least squares: `(n, Σk, Σv, Σ(n·k − Σk)²,
+    /// Σ(n·k − Σk)(n·v − Σv))` with `k` the period counted from the oldest
+    /// entry (consecutive periods, so `k < N`). Bounds in the module docs.
+    fn sums(&self) -> Option<(i64, i64, i64, i64, i64)> {
+        let n = i64::try_from(self.history.len()).ok()?;
+        let first = self.history.oldest_ordered().next()?.period;
+        let rel = |e: &Entry| i64::from(e.period.wrapping_sub(first));
+        let (mut sk, mut sv) = (0i64, 0i64);
+        for e in self.history.oldest_ordered() {
+            sk += rel(e);
+            sv += i64::from(e.value);
+        }
+        let (mut skk, mut skv) = (0i64, 0i64);
+        for e in self.history.oldest_ordered() {
+            let dk = rel(e) * n - sk; // n·(k − k̄)
+            let dv = i64::from(e.value) * n - sv; // n·(v − v̄)
+            skk += dk * dk;
+            skv += dk * dv;
+        }
+        Some((n, sk, sv, skk, skv))
     }
 
     /// Least-squares slope of the history, in Q16 sample units per period
     /// (`None` with fewer than 3 samples).
     #[must_use]
     pub fn trend_q16(&self) -> Option<i64> {
-        let n = i128::try_from(self.history.len()).ok()?;
-        if n < 3 {
+        let (n, _, _, skk, skv) = self.sums()?;
+        if n < 3 || skk == 0 {
             return None;
         }
-        let (mut sk, mut sv) = (0i128, 0i128);
-        for e in self.history.oldest_ordered() {
-            sk += i128::from(e.period);
-            sv += i128::from(e.value);
-        }
-        let (mut skk, mut skv) = (0i128, 0i128);
-        for e in self.history.oldest_ordered() {
-            let dk = i128::from(e.period) * n - sk; // n·(k − k̄)
-            let dv = i128::from(e.value) * n - sv; // n·(v − v̄)
-            skk += dk * dk;
-            skv += dk * dv;
-        }
-        if skk == 0 {
-            return None;
-        }
-        i64::try_from((skv << 16) / skk).ok()
+        // (skv << 16)/skk without a 2^73 intermediate: whole part, then remainder (< skk < 2^40).
+        let whole = (skv / skk).checked_mul(1 << 16)?;
+        whole.checked_add(((skv % skk) << 16) / skk)
     }
 
     /// Periods from the latest sample until the fitted trend reaches the
@@ -282,20 +332,16 @@ impl<const N: usize> DriftTracker<N> {
         if slope >= 0 {
             return None;
         }
-        let n = i128::try_from(self.history.len()).ok()?;
-        let (mut sk, mut sv) = (0i128, 0i128);
-        for e in self.history.oldest_ordered() {
-            sk += i128::from(e.period);
-            sv += i128::from(e.value);
-        }
-        let last = self.history.recent().map(|e| i128::from(e.period))?;
+        let (n, sk, sv, _, _) = self.sums()?;
+        let first = self.history.oldest_ordered().next()?.period;
+        let last = i64::from(self.history.recent()?.period.wrapping_sub(first));
         // Fitted value at the latest period, Q16: v̄ + slope·(k_last − k̄).
-        let fit_q16 = (sv << 16) / n + i128::from(slope) * (last * n - sk) / n;
-        let gap_q16 = fit_q16 - (i128::from(self.config.limit) << 16);
+        let fit_q16 = (sv << 16) / n + slope.checked_mul(last * n - sk)? / n;
+        let gap_q16 = fit_q16 - (i64::from(self.config.limit.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT)) << 16);
         if gap_q16 <= 0 {
             return Some(0);
         }
-        u32::try_from(gap_q16 / -i128::from(slope)).ok()
+        u32::try_from(gap_q16 / -slope).ok()
     }
 }
 
@@ -305,9 +351,43 @@ mod tests {
 
     #[test]
     fn isqrt_is_the_floor_square_root() {
-        for n in [0u128, 1, 2, 3, 4, 15, 16, 17, 1 << 40, (1 << 64) - 1, u128::from(u64::MAX) * u128::from(u64::MAX)] {
+        for n in [0u64, 1, 2, 3, 4, 15, 16, 17, 1 << 40, (1 << 62) - 1, u64::MAX] {
             let r = isqrt(n);
             assert!(r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|s| s > n), "{n}: {r}");
         }
+    }
+
+    fn config() -> DriftConfig {
+        DriftConfig {
+            baseline_count: 256,
+            lambda_q16: 65_536,
+            l_milli: u32::MAX,
+            sigma: None,
+            cusum_k: 0,
+            cusum_h: i32::MAX,
+            limit: i32::MIN,
+        }
+    }
+
+    /// Overflow bounds of the module docs, at their edges: the largest
+    /// samples, alternating, through a full baseline and a full history, in
+    /// a build with overflow checks (tests run with them on).
+    #[test]
+    fn extreme_samples_never_overflow() {
+        let mut t: DriftTracker<256> = DriftTracker::new(config());
+        for i in 0..2_000 {
+            let v = if i % 2 == 0 { i32::MAX } else { i32::MIN };
+            let u = t.update(v);
+            assert!(u.ewma_q16.abs() <= i64::from(SAMPLE_LIMIT) << 16);
+        }
+        assert!(t.ewma_half_width() > 0);
+        let _ = t.trend_q16();
+        let _ = t.periods_to_limit();
+        let mut falling: DriftTracker<256> = DriftTracker::new(DriftConfig { limit: -SAMPLE_LIMIT, ..config() });
+        for i in 0..600 {
+            falling.update(SAMPLE_LIMIT - i * 30_000);
+        }
+        assert!(falling.trend_q16().is_some_and(|s| s < 0));
+        assert!(falling.periods_to_limit().is_some());
     }
 }

@@ -6,7 +6,7 @@
 
 use embedded_hal::delay::DelayNs;
 use embedded_hal::digital::{InputPin, OutputPin};
-use rc_model::Model;
+use rc_model::Prepared;
 use serde::{Deserialize, Serialize};
 
 use crate::config::Config;
@@ -95,10 +95,13 @@ impl Filter {
 }
 
 /// The measurement with its verdict's diagnosis: the cause hint and, for
-/// short and long holds, the capacitance the hold implies.
+/// short and long holds, the capacitance the hold implies at `temp_mdeg_c`
+/// (the hot path: [`Prepared::inverse_at`]).
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn outcome(
     config: &Config,
-    model: &Model,
+    stage: &Prepared,
+    temp_mdeg_c: i32,
     press_ticks: u64,
     on: Option<u64>,
     hold: Option<u64>,
@@ -124,13 +127,13 @@ pub(crate) fn outcome(
             if hold.saturating_mul(20) < config.hold_min_ticks {
                 Hint::OpenCapacitorOrDiode
             } else {
-                match config.span(hold).and_then(|s| model.inverse_c(s)) {
+                match stage.inverse_at(hold, temp_mdeg_c) {
                     Ok(c) => {
-                        let dev = c.deviation_ppm();
+                        let dev = i64::from(c.deviation_ppm);
                         m.c_deviation_ppm = Some(dev);
                         Hint::from_deviation_ppm(dev)
                     }
-                    // Outside the model's domain (a hold beyond 24 h or C beyond 10 mF).
+                    // Outside the prepared range (a temperature the stage was not prepared for).
                     Err(_) => Hint::WrongPart,
                 }
             }
@@ -142,9 +145,11 @@ pub(crate) fn outcome(
 }
 
 /// The verdict on a completed hold.
+#[allow(clippy::too_many_arguments)]
 pub(crate) fn judge(
     config: &Config,
-    model: &Model,
+    stage: &Prepared,
+    temp_mdeg_c: i32,
     press: u64,
     on: Option<u64>,
     hold: u64,
@@ -160,18 +165,19 @@ pub(crate) fn judge(
     } else {
         Verdict::WithinWindow
     };
-    outcome(config, model, press, on, Some(hold), glitches, verdict)
+    outcome(config, stage, temp_mdeg_c, press, on, Some(hold), glitches, verdict)
 }
 
 /// The measuring engine: owns the trigger and output pins, a delay and a tick
-/// source, and the model of the stage it measures.
+/// source, and the prepared stage it measures.
 pub struct Tester<TRIG, OUT, D, K> {
     trigger: TRIG,
     output: OUT,
     delay: D,
     clock: K,
     config: Config,
-    model: Model,
+    stage: Prepared,
+    temp_mdeg_c: i32,
 }
 
 impl<TRIG, OUT, D, K, E> Tester<TRIG, OUT, D, K>
@@ -181,9 +187,17 @@ where
     D: DelayNs,
     K: TickSource,
 {
-    /// Takes the peripherals and the settings.
-    pub fn new(trigger: TRIG, output: OUT, delay: D, clock: K, config: Config, model: Model) -> Self {
-        Tester { trigger, output, delay, clock, config, model }
+    /// Takes the peripherals, the timings and the prepared stage (both from
+    /// one [`crate::Setup`]). Holds are judged at the stage's reference
+    /// temperature until [`Tester::set_temperature`] says otherwise.
+    pub fn new(trigger: TRIG, output: OUT, delay: D, clock: K, config: Config, stage: Prepared) -> Self {
+        Tester { trigger, output, delay, clock, config, temp_mdeg_c: stage.ref_mdeg_c(), stage }
+    }
+
+    /// The stage's junction temperature, m°C, for the diagnosis of the next
+    /// measurements (from a sensor beside the stage).
+    pub fn set_temperature(&mut self, temp_mdeg_c: i32) {
+        self.temp_mdeg_c = temp_mdeg_c;
     }
 
     /// Gives the peripherals back.
@@ -213,7 +227,7 @@ where
         glitches: u16,
         verdict: Verdict,
     ) -> Measurement {
-        outcome(&self.config, &self.model, press_ticks, on, hold, glitches, verdict)
+        outcome(&self.config, &self.stage, self.temp_mdeg_c, press_ticks, on, hold, glitches, verdict)
     }
 
     /// Waits `ticks` with the trigger released, requiring the output to stay
@@ -281,7 +295,7 @@ where
     }
 
     fn judge(&self, press: u64, on: Option<u64>, hold: u64, glitches: u16, dropped: bool) -> Measurement {
-        judge(&self.config, &self.model, press, on, hold, glitches, dropped)
+        judge(&self.config, &self.stage, self.temp_mdeg_c, press, on, hold, glitches, dropped)
     }
 
     /// One measurement: idle check, press, release, hold.

@@ -1,7 +1,9 @@
 //! A software hold timer with the stage's behaviour: active while pressed,
 //! then for the hold; a new press restarts it.
 
-use rc_model::{Error as ModelError, Model};
+#[cfg(feature = "solver")]
+use rc_model::Model;
+use rc_model::{Error as ModelError, Prepared};
 
 use crate::time::Stopwatch;
 
@@ -32,9 +34,19 @@ impl SoftHold {
     ///
     /// # Errors
     /// The model's evaluation errors, or a clock outside 1 kHz – 200 MHz.
+    #[cfg(feature = "solver")]
     pub fn from_model(model: &Model, clock_hz: u32) -> Result<SoftHold, ModelError> {
         let e = model.evaluate()?;
         Ok(SoftHold::new(e.hold.ticks(clock_hz)?))
+    }
+
+    /// A timer that holds for the prepared stage's hold at its reference
+    /// temperature, in ticks of the clock it was prepared for.
+    ///
+    /// # Errors
+    /// As [`Prepared::hold_ticks_at`].
+    pub fn from_prepared(stage: &Prepared) -> Result<SoftHold, ModelError> {
+        Ok(SoftHold::new(stage.hold_ticks_at(stage.ref_mdeg_c())?))
     }
 
     /// The hold in ticks.

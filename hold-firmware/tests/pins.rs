@@ -6,7 +6,8 @@ use embedded_hal_mock::eh1::delay::NoopDelay;
 use embedded_hal_mock::eh1::digital::{Mock as Pin, State, Transaction as T};
 use embedded_hal_mock::eh1::MockError;
 use hold_firmware::{Config, Error, Hint, Tester, TickSource, Verdict};
-use rc_model::{Diode, Model, Stage};
+use rc_model::window::Spread;
+use rc_model::{Diode, Model, Prepared, Stage};
 use std::io::ErrorKind;
 
 /// One tick per read, 1 kHz.
@@ -23,8 +24,8 @@ impl TickSource for Ticks {
     }
 }
 
-fn model() -> Model {
-    let s = Stage {
+fn stage() -> Stage {
+    Stage {
         vdd_uv: 5_000_000,
         r_mohm: 1_000_000_000,
         c_ff: 1_000_000_000,
@@ -38,8 +39,11 @@ fn model() -> Model {
         fall_uv: 2_100_000,
         press_ns: 5_000_000,
         temp_mdeg_c: 25_000,
-    };
-    Model::new(&s).unwrap_or_else(|e| panic!("{e}"))
+    }
+}
+
+fn prepared() -> Prepared {
+    Prepared::prepare(&stage(), &Spread::default(), 1_000).unwrap_or_else(|e| panic!("{e}"))
 }
 
 fn config() -> Config {
@@ -71,7 +75,7 @@ fn run(
 ) -> (Result<hold_firmware::Measurement, Error<MockError>>, Pin, Pin) {
     let trig = Pin::new(trigger);
     let out = Pin::new(output);
-    let mut t = Tester::new(trig, out, NoopDelay::new(), Ticks(start_tick), config(), model());
+    let mut t = Tester::new(trig, out, NoopDelay::new(), Ticks(start_tick), config(), prepared());
     let m = t.measure();
     let (trig, out, _, _) = t.release();
     (m, trig, out)
@@ -192,8 +196,7 @@ fn pin_errors_are_propagated() {
 
 #[test]
 fn the_press_is_long_enough_to_charge_the_capacitor() {
-    use rc_model::window::Spread;
-    let mut s = *model().stage();
+    let mut s = stage();
     s.charge_mohm = 10_000_000; // 10 kΩ: τc = 10 ms
     s.press_ns = 20_000_000; // a 20 ms press asked for: turns on, but 5 τc need 61 ms
     let m = Model::new(&s).unwrap_or_else(|e| panic!("{e}"));

@@ -40,9 +40,10 @@ impl SetupArgs {
         let Some(path) = &self.stage else { return Ok(None) };
         let text = std::fs::read_to_string(path).map_err(|e| BadInput(format!("{}: {e}", path.display())))?;
         let sf = stagefile::parse(path, &text).map_err(|e| BadInput(e.to_string()))?;
-        let (c, guard_ppm, poll_ns) =
+        let (setup, guard_ppm, poll_ns) =
             host_check::fixture::settings_from_text(&sf, &self.clock, &self.guard, self.poll.as_deref())
                 .map_err(BadInput)?;
+        let c = setup.config;
         Ok(Some(Setup {
             name: path.file_name().map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned()),
             stage_toml: text,

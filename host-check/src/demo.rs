@@ -26,7 +26,7 @@ use hold_firmware::{Config, Measurement, Tester};
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rayon::prelude::*;
-use rc_model::{Model, Span, Stage};
+use rc_model::{Model, Prepared, Span, Stage};
 
 use crate::collect::{self, Ingested, Labels, TimeRule};
 use crate::fleet::{self, FleetReport, FleetTally};
@@ -115,9 +115,9 @@ fn stage_file(name: &str, text: &str) -> Result<StageFile, String> {
     stagefile::parse(Path::new(name), text).map_err(|e| e.to_string())
 }
 
-fn setup_of(sf: &StageFile, name: &str, text: &str, poll_ns: u32) -> Result<(Setup, Config, Model), String> {
-    let config = crate::fixture::settings(sf, CLOCK_HZ, GUARD_PPM, poll_ns)?;
-    let model = Model::new(&sf.stage).map_err(|e| e.to_string())?;
+fn setup_of(sf: &StageFile, name: &str, text: &str, poll_ns: u32) -> Result<(Setup, Config, Prepared), String> {
+    let settings = crate::fixture::settings(sf, CLOCK_HZ, GUARD_PPM, poll_ns)?;
+    let (config, model) = (settings.config, settings.stage);
     Ok((
         Setup {
             name: name.to_owned(),
@@ -133,7 +133,7 @@ fn setup_of(sf: &StageFile, name: &str, text: &str, poll_ns: u32) -> Result<(Set
     ))
 }
 
-fn measure(plant: &Stage, faults: &[Fault], config: Config, model: Model, seed: u64) -> Result<Measurement, String> {
+fn measure(plant: &Stage, faults: &[Fault], config: Config, model: Prepared, seed: u64) -> Result<Measurement, String> {
     let twin = Twin::new(plant, faults, CLOCK_HZ, seed);
     let (trig, out, delay, clock) = twin.handles();
     let mut t = Tester::new(trig, out, delay, clock, config, model);

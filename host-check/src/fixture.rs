@@ -1,11 +1,11 @@
 //! `rchold window`: the firmware pass window in ticks, as text, a Rust
-//! constant, JSON, or the binary blob the firmware loads with
-//! `hold_firmware::Config::from_blob`.
+//! constant, JSON, or the binary blob (timings and the prepared stage) the
+//! firmware loads with `hold_firmware::Setup::from_blob`.
 
 use std::fmt::Write as _;
 
-use hold_firmware::Config;
-use rc_model::Model;
+use hold_firmware::{Config, Setup};
+use rc_model::{Model, Prepared};
 use serde_json::json;
 
 use crate::eval::si;
@@ -20,22 +20,27 @@ pub enum Emit {
     Rust,
     /// JSON.
     Json,
-    /// The 80-byte blob with its CRC.
+    /// The settings blob (timings, prepared stage, CRC).
     Bin,
 }
 
 /// The firmware settings for a stage file: its window over every corner in
 /// the file (tolerances, temperature range, aging), widened by `guard_ppm`,
-/// one tick of quantisation and one poll of latency on each side.
+/// one tick of quantisation and one poll of latency on each side; and the
+/// stage prepared for the firmware's hot path over the file's temperature range.
 ///
 /// # Errors
 /// A one-line message when the stage or a corner cannot be evaluated.
-pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Config, String> {
+pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Setup, String> {
     let model = Model::new(&sf.stage).map_err(|e| sf.model_error(e).to_string())?;
     let window = sf.spread.window(&sf.stage).map_err(|f| {
         format!("{}: the corner {} fails: {}", sf.path.display(), crate::eval::corner_text(f.corner), f.error)
     })?;
-    Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns).map_err(|e| format!("{}: {e}", sf.path.display()))
+    let config = Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns)
+        .map_err(|e| format!("{}: {e}", sf.path.display()))?;
+    let stage = Prepared::prepare(&sf.stage, &sf.spread, clock_hz)
+        .map_err(|e| format!("{}: preparing the stage for the firmware: {e}", sf.path.display()))?;
+    Ok(Setup { config, stage })
 }
 
 /// The firmware settings from the text of `--clock`, `--guard` and `--poll`
@@ -49,7 +54,7 @@ pub fn settings_from_text(
     clock: &str,
     guard: &str,
     poll: Option<&str>,
-) -> Result<(Config, u32, u32), String> {
+) -> Result<(Setup, u32, u32), String> {
     use crate::values::{parse_tolerance, parse_value, Tol};
     let bad = |opt: &str, v: &str, range: &str, why: String| format!("--{opt} {v:?}: {why} (accepted: {range})");
     let clock_hz = parse_value(clock, &["Hz"]).map_err(|e| bad("clock", clock, "1 kHz to 200 MHz", e.to_string()))?;

@@ -371,15 +371,16 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
         Command::Window { stage, clock, guard, poll, emit: what, out } => {
             let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
-            let (config, _, _) =
+            let (setup, _, _) =
                 host_check::fixture::settings_from_text(&sf, &clock, &guard, poll.as_deref()).map_err(BadInput)?;
+            let config = setup.config;
             let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
             match what.as_str() {
                 "bin" => {
                     let Some(out) = out else {
                         return Err(BadInput("--emit bin writes a binary blob: give --out FILE".into()).into());
                     };
-                    std::fs::write(&out, config.to_blob()).with_context(|| format!("writing {}", out.display()))?;
+                    std::fs::write(&out, setup.to_blob()).with_context(|| format!("writing {}", out.display()))?;
                 }
                 kind => {
                     let e = match kind {

@@ -204,7 +204,12 @@ fn window_blob_round_trips_through_the_firmware_loader() {
     );
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let blob = std::fs::read(dir.path().join("w.bin")).unwrap_or_default();
-    let loaded = hold_firmware::Config::from_blob(&blob).unwrap_or_else(|e| panic!("{e}"));
+    let setup = hold_firmware::Setup::from_blob(&blob).unwrap_or_else(|e| panic!("{e}"));
+    let loaded = setup.config;
+    // The prepared stage travels with the window: its hold at the reference
+    // temperature is the nominal hold (`rchold eval` on this stage: 739.5 ms).
+    let nominal = setup.stage.hold_ticks_at(setup.stage.ref_mdeg_c()).unwrap_or(0);
+    assert!((739_450..739_550).contains(&nominal), "{nominal}");
     let json = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--poll", "100us", "--emit", "json"]);
     let v: serde_json::Value = serde_json::from_slice(&json.stdout).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!(v["hold_min_ticks"].as_u64(), Some(loaded.hold_min_ticks));
@@ -218,7 +223,7 @@ fn window_blob_round_trips_through_the_firmware_loader() {
     if let Some(b) = bad.get_mut(40) {
         *b ^= 0x10;
     }
-    assert_eq!(hold_firmware::Config::from_blob(&bad), Err(hold_firmware::BlobError::Crc));
+    assert_eq!(hold_firmware::Setup::from_blob(&bad), Err(hold_firmware::BlobError::Crc));
     let no_out = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--emit", "bin"]);
     assert_eq!(no_out.status.code(), Some(2));
     let bad_clock = run(dir.path(), &["window", "stage.toml", "--clock", "fast"]);

@@ -9,7 +9,7 @@ use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rc_model::presets;
 use rc_model::window::{Spread, Tempco, ThresholdSpread, Tolerance};
-use rc_model::{Diode, Model, Span, Stage};
+use rc_model::{Diode, Model, Prepared, Span, Stage};
 
 const CLOCK_HZ: u32 = 1_000_000;
 const POLL_NS: u32 = 50_000;
@@ -35,14 +35,14 @@ fn spread() -> Spread {
     }
 }
 
-fn config_for(s: &Stage, sp: &Spread) -> (Config, Model) {
+fn config_for(s: &Stage, sp: &Spread) -> (Config, Prepared) {
     let w = sp.window(s).unwrap_or_else(|f| panic!("{f:?}"));
     let m = Model::new(s).unwrap_or_else(|e| panic!("{e}"));
     let c = Config::from_model(&m, &w, CLOCK_HZ, 20_000, POLL_NS).unwrap_or_else(|e| panic!("{e}"));
-    (c, m)
+    (c, Prepared::prepare(s, sp, CLOCK_HZ).unwrap_or_else(|e| panic!("{e}")))
 }
 
-fn measure(plant: &Stage, faults: &[Fault], config: Config, model: Model, seed: u64) -> hold_firmware::Measurement {
+fn measure(plant: &Stage, faults: &[Fault], config: Config, model: Prepared, seed: u64) -> hold_firmware::Measurement {
     let twin = Twin::new(plant, faults, CLOCK_HZ, seed);
     let (trig, out, delay, clock) = twin.handles();
     let mut t = Tester::new(trig, out, delay, clock, config, model);
@@ -294,7 +294,7 @@ fn software_timer_matches_the_stage() {
     let twin = Twin::new(&nominal, &[], CLOCK_HZ, 3);
     let (trig, out, delay, clock) = twin.handles();
     let mut t = Tester::new(trig, out, delay, clock, config, model);
-    let mut soft = SoftHold::from_model(&model, CLOCK_HZ).unwrap_or_else(|e| panic!("{e}"));
+    let mut soft = SoftHold::from_prepared(&model).unwrap_or_else(|e| panic!("{e}"));
     let steps = [
         Step { press_ticks: 5_000, gap_ticks: 30_000 }, // retrigger 30 ms into the hold
         Step { press_ticks: 20_000, gap_ticks: 150_000 }, // long press, hold runs out
