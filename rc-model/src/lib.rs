@@ -21,6 +21,6 @@ pub mod float;
 pub use error::{Error, Quantity};
 #[cfg(feature = "solver")]
 pub use model::{Evaluation, InverseC, InverseR, Model};
-pub use prepared::{Estimate, Norm, Prepared, PREPARED_LEN};
+pub use prepared::{Estimate, Norm, Prepared, OUTCOME_LEN, PREPARED_LEN};
 pub use stage::{check_clock, fraction_of, limits, ppm_of, Diode, Stage};
 pub use units::{Span, Voltage};

@@ -20,22 +20,29 @@
 //!
 //! *Per measurement* (the hot path, always built): [`Prepared::hold_at`],
 //! [`Prepared::inverse_at`]. No `u128`, no division inside a loop: two
-//! quadratics in `i64`, one [`ln_ratio`] (one 64÷32 division), three
-//! 32×32-bit products; the inverse adds one more division.
+//! quadratics (two 32×32→64-bit products each), one [`ln_ratio`] (one
+//! 64÷32 division), a few 32×32-bit products; the inverse adds one division
+//! and two linear factors.
 //!
 //! # Q formats of the stored quadratics
 //!
-//! | quantity | at `T_ref` | slope (per m°C) | curvature (per m°C²) |
-//! |---|---|---|---|
-//! | `S`, `E` (µV) | Q24, < 2^52 (200 V) | Q36 | Q52 |
-//! | `τd(T)/τd(T_ref)` | 1 (implicit) | Q46 | Q62 |
+//! Each quadratic is `y(Δ) = y0 + (((σ + ((κ·Δ) >> c))·Δ) >> s)` with `Δ` in
+//! m°C, `y0` an `i64` in the quantity's format, and `σ`, `κ` `i32`
+//! mantissas whose shifts `s`, `c` (0 … 62) [`Prepared::prepare`] chooses per
+//! stage so that `σ`, `κ` and `σ + κ·Δ` stay below 2^30 over the prepared
+//! range (it is linear in `Δ`, so its ends decide).
 //!
-//! Overflow: `|Δ| < 2^18` m°C (the temperature domain is 205 °C wide). The
-//! evaluation `y0 + ((s1 + ((s2·Δ) >> 16))·Δ) >> 12` uses checked `i64`
-//! arithmetic, and [`Prepared::prepare`] refuses a stage whose quadratics
-//! would leave their formats anywhere in its temperature range; the test
-//! `domain_corners_never_overflow_on_the_hot_path` evaluates the hot path at
-//! the ends of that range over the domain's corners.
+//! | quantity | `y0` format |
+//! |---|---|
+//! | `S`, `E` (µV) | Q24, below 2^52 (200 V) |
+//! | `τd(T)/τd(T_ref)`, `C(T)/C`, `R(T)/R` | Q30 (`y0` = 2^30) |
+//!
+//! Overflow: `|Δ| < 2^18` m°C (the temperature domain is 205 °C wide and
+//! the hot path refuses temperatures outside the prepared range); `κ·Δ` and
+//! `(σ + …)·Δ` are 32×32-bit products below 2^49; `y0` plus that stays
+//! inside `i64`. The one narrowing, `σ + κ·Δ` to `i32`, is checked (an error,
+//! not reached in the prepared range: prepare evaluates both ends). The test
+//! `every_prepared_stage_evaluates_at_its_range_ends` sweeps the domain's corners.
 //!
 //! # Inverse
 //!
@@ -55,6 +62,8 @@ mod norm;
 pub use ln32::ln_ratio;
 pub use norm::Norm;
 
+use norm::mul32s;
+
 use crate::error::{Error, Quantity};
 use crate::stage::{check_clock, limits};
 
@@ -63,33 +72,49 @@ mod prepare;
 #[cfg(all(test, feature = "solver"))]
 mod tests;
 
-/// Shifts between the stored formats (see the module documentation).
-const V_SLOPE_SHIFT: u32 = 12; // Q36 slope → Q24 value per m°C
-const V_CURVE_SHIFT: u32 = 16; // Q52 curvature → Q36 slope per m°C
-const T_SLOPE_SHIFT: u32 = 16; // Q46 slope → Q30 factor per m°C
-const T_CURVE_SHIFT: u32 = 16; // Q62 curvature → Q46 slope per m°C
-/// Fractional bits of the time-constant factor.
-const T_FRAC: i32 = 30;
+/// Fractional bits of the factor quadratics (τ, C, R).
+const FACTOR_FRAC: i32 = 30;
+/// Largest shift a quadratic may store.
+const SHIFT_MAX: u8 = 62;
 
-/// A quadratic in the temperature offset: `at_ref + Δ·(slope + Δ·curve)`,
-/// each in the format the module documentation gives for its quantity.
+/// A quadratic in the temperature offset (see the module documentation for
+/// its form and the formats of each quantity).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Quadratic {
     /// Value at the reference temperature.
     pub at_ref: i64,
-    /// First-order coefficient, per m°C.
-    pub slope: i64,
-    /// Second-order coefficient, per m°C².
-    pub curve: i64,
+    /// First-order mantissa `σ`, per m°C, 2^`slope_shift` finer than the value.
+    pub slope: i32,
+    /// Second-order mantissa `κ`, per m°C², 2^`curve_shift` finer than `σ`.
+    pub curve: i32,
+    /// `s`: bits by which `σ` is finer than the value.
+    pub slope_shift: u8,
+    /// `c`: bits by which `κ` is finer than `σ`.
+    pub curve_shift: u8,
 }
 
 impl Quadratic {
-    /// `at_ref + ((slope + ((curve·Δ) >> curve_shift))·Δ) >> slope_shift`, or
-    /// `None` if a step leaves `i64`.
-    fn eval(&self, delta: i64, slope_shift: u32, curve_shift: u32) -> Option<i64> {
-        let inner = self.slope.checked_add(self.curve.checked_mul(delta)? >> curve_shift)?;
-        self.at_ref.checked_add(inner.checked_mul(delta)? >> slope_shift)
+    /// A constant.
+    #[must_use]
+    pub const fn flat(at_ref: i64) -> Quadratic {
+        Quadratic { at_ref, slope: 0, curve: 0, slope_shift: 0, curve_shift: 0 }
+    }
+
+    /// The value at `Δ` m°C from the reference (`|Δ| < 2^18`).
+    ///
+    /// # Errors
+    /// [`Error::Arithmetic`] when `σ + κ·Δ` leaves `i32` (not reached inside
+    /// the range the quadratic was prepared for).
+    #[inline]
+    pub fn eval(&self, delta: i32) -> Result<i64, Error> {
+        if delta == 0 || (self.slope == 0 && self.curve == 0) {
+            return Ok(self.at_ref);
+        }
+        let curved = if self.curve == 0 { 0 } else { mul32s(self.curve, delta) >> (self.curve_shift & 63) };
+        let inner = i64::from(self.slope) + curved;
+        let inner = i32::try_from(inner).map_err(|_| Error::Arithmetic)?;
+        Ok(self.at_ref + (mul32s(inner, delta) >> (self.slope_shift & 63)))
     }
 }
 
@@ -107,10 +132,13 @@ pub struct Prepared {
     tau_factor: Quadratic,
     start: Quadratic,
     end: Quadratic,
+    c_factor: Quadratic,
+    r_factor: Quadratic,
     c_ff: u64,
-    c_ppm_per_c: i32,
     r_mohm: u64,
-    r_ppm_per_c: i32,
+    /// The hold at the reference temperature (derived when prepared or
+    /// loaded, not stored in the bytes): the inverse's divisor there.
+    hold_ref: Norm,
 }
 
 /// What a measured hold implies.
@@ -119,17 +147,33 @@ pub struct Prepared {
 pub struct Estimate {
     /// Measured hold over the hold expected at the measured temperature.
     pub ratio: Norm,
-    /// Effective capacitance, fF: `C(T)·ratio`.
+    /// Effective capacitance, fF: `C(T)·ratio`. (The effective resistor, if R
+    /// alone moved, is [`Prepared::r_at`]`·ratio`.)
     pub c_ff: Norm,
-    /// Effective discharge resistor, mΩ, if R alone moved: `R(T)·ratio`.
-    pub r_mohm: Norm,
     /// `ratio − 1` in ppm, rounded, saturated to the `i32` range: the
     /// capacitance's deviation from what the part should have at `T`.
     pub deviation_ppm: i32,
 }
 
 /// Length of [`Prepared::to_bytes`], bytes.
-pub const PREPARED_LEN: usize = 120;
+pub const PREPARED_LEN: usize = 130;
+
+/// Length of [`Prepared::outcome_bytes`], bytes.
+pub const OUTCOME_LEN: usize = 30;
+
+/// A one-byte code per model error, for byte-exact comparisons (0 is "no error").
+fn error_code(e: Error) -> u8 {
+    match e {
+        Error::OutOfDomain(_) => 1,
+        Error::NeverActivates { .. } => 2,
+        Error::PressTooShort { .. } => 3,
+        Error::NoHold => 4,
+        Error::HoldOutOfDomain { .. } => 5,
+        Error::IllConditioned => 6,
+        Error::NoConvergence => 7,
+        Error::Arithmetic => 8,
+    }
+}
 
 impl Prepared {
     /// The tick clock the hold is expressed in, Hz.
@@ -168,26 +212,25 @@ impl Prepared {
         self.tau_ticks
     }
 
-    fn delta(&self, temp_mdeg_c: i32) -> Result<i64, Error> {
+    /// The stored quadratics: the τ factor (Q30, slope Q46, curvature Q62),
+    /// the discharge start and end (µV in Q24, slope Q36, curvature Q52).
+    #[must_use]
+    pub const fn quadratics(&self) -> (Quadratic, Quadratic, Quadratic) {
+        (self.tau_factor, self.start, self.end)
+    }
+
+    fn delta(&self, temp_mdeg_c: i32) -> Result<i32, Error> {
         if temp_mdeg_c < self.temp_lo_mdeg_c || temp_mdeg_c > self.temp_hi_mdeg_c {
             return Err(Error::OutOfDomain(Quantity::Temperature));
         }
-        Ok(i64::from(temp_mdeg_c) - i64::from(self.ref_mdeg_c))
+        // Both inside −55 … +150 °C (checked when prepared or loaded): |Δ| < 2^18.
+        Ok(temp_mdeg_c - self.ref_mdeg_c)
     }
 
-    /// `S(T)` and `E(T)` in µV·2^24.
-    fn ends(&self, delta: i64) -> Result<(u64, u64), Error> {
-        let v = |q: &Quadratic| {
-            q.eval(delta, V_SLOPE_SHIFT, V_CURVE_SHIFT).and_then(|x| u64::try_from(x).ok()).ok_or(Error::Arithmetic)
-        };
-        Ok((v(&self.start)?, v(&self.end)?))
-    }
-
-    /// `τd(T)/τd(T_ref)` in Q30 (positive).
-    fn tau_factor_q30(&self, delta: i64) -> Result<u32, Error> {
-        let f = self.tau_factor.eval(delta, T_SLOPE_SHIFT, T_CURVE_SHIFT).ok_or(Error::Arithmetic)?;
-        match u32::try_from(f) {
-            Ok(v) if v > 0 => Ok(v),
+    /// A factor quadratic at `delta` as a [`Norm`] (positive).
+    fn factor(q: &Quadratic, delta: i32) -> Result<Norm, Error> {
+        match u64::try_from(q.eval(delta)?) {
+            Ok(v) if v > 0 => Ok(Norm::new(v, -FACTOR_FRAC)),
             _ => Err(Error::Arithmetic),
         }
     }
@@ -201,14 +244,17 @@ impl Prepared {
     /// the falling threshold at that temperature; [`Error::Arithmetic`] (not
     /// reached inside the prepared range).
     pub fn hold_at(&self, temp_mdeg_c: i32) -> Result<Norm, Error> {
-        let delta = self.delta(temp_mdeg_c)?;
-        let (s, e) = self.ends(delta)?;
+        self.hold_at_delta(self.delta(temp_mdeg_c)?)
+    }
+
+    fn hold_at_delta(&self, delta: i32) -> Result<Norm, Error> {
+        let s = self.start.eval(delta)?;
+        let e = self.end.eval(delta)?;
         if s <= e {
             return Err(Error::NoHold);
         }
-        let ln = ln_ratio(s, e).ok_or(Error::Arithmetic)?;
-        let factor = Norm::new(u64::from(self.tau_factor_q30(delta)?), -T_FRAC);
-        Ok(self.tau_ticks * factor * ln)
+        let ln = ln_ratio(s.unsigned_abs(), u64::try_from(e).map_err(|_| Error::NoHold)?).ok_or(Error::Arithmetic)?;
+        Ok(self.tau_ticks * Self::factor(&self.tau_factor, delta)? * ln)
     }
 
     /// [`Prepared::hold_at`] rounded to whole ticks.
@@ -219,55 +265,115 @@ impl Prepared {
         self.hold_at(temp_mdeg_c)?.round().ok_or(Error::Arithmetic)
     }
 
-    /// A part's value at temperature offset `delta` (m°C): `v·(1 + ppm/°C·Δ)`.
-    fn at_temp(value: u64, ppm_per_c: i32, delta: i64) -> Result<Norm, Error> {
-        // 1e9 + ppm·Δ[m°C]: |ppm·Δ| < 2^31·2^18, far inside i64.
-        let factor = 1_000_000_000i64 + i64::from(ppm_per_c) * delta;
-        let factor = u64::try_from(factor).map_err(|_| Error::OutOfDomain(Quantity::Tolerance))?;
-        // 1e9 = 2^9 · 1 953 125: divide by the odd part as a Norm, shift the rest.
-        let scaled = (Norm::new(value, 0) * Norm::new(factor, -9)).checked_div(Norm::new(1_953_125, 0));
-        scaled.ok_or(Error::Arithmetic)
-    }
-
     /// The capacitance the part should have at `temp_mdeg_c`, fF.
     ///
     /// # Errors
-    /// As [`Prepared::hold_at`]'s temperature check; [`Error::OutOfDomain`]
-    /// with [`Quantity::Tolerance`] when the tempco drives it through zero.
+    /// As [`Prepared::hold_at`]'s temperature check.
     pub fn c_at(&self, temp_mdeg_c: i32) -> Result<Norm, Error> {
-        Self::at_temp(self.c_ff, self.c_ppm_per_c, self.delta(temp_mdeg_c)?)
+        Ok(Norm::new(self.c_ff, 0) * Self::factor(&self.c_factor, self.delta(temp_mdeg_c)?)?)
     }
 
-    /// What a hold of `hold_ticks` measured at `temp_mdeg_c` implies: its
-    /// ratio to the expected hold, the effective capacitance and resistor, and
-    /// the capacitance's deviation in ppm (see the module documentation for
-    /// when these are exact).
+    /// The discharge resistor the part should have at `temp_mdeg_c`, mΩ.
+    ///
+    /// # Errors
+    /// As [`Prepared::hold_at`]'s temperature check.
+    pub fn r_at(&self, temp_mdeg_c: i32) -> Result<Norm, Error> {
+        Ok(Norm::new(self.r_mohm, 0) * Self::factor(&self.r_factor, self.delta(temp_mdeg_c)?)?)
+    }
+
+    /// `hold_ticks` over the hold expected at `delta`: at the reference the
+    /// cached hold, elsewhere [`Prepared::hold_at`]'s computation.
+    fn ratio(&self, hold_ticks: u64, delta: i32) -> Result<Norm, Error> {
+        if hold_ticks == 0 {
+            return Err(Error::OutOfDomain(Quantity::Hold));
+        }
+        let expected = if delta == 0 { self.hold_ref } else { self.hold_at_delta(delta)? };
+        Norm::new(hold_ticks, 0).checked_div(expected).ok_or(Error::Arithmetic)
+    }
+
+    /// `ratio − 1` in ppm, rounded, saturated to `i32`.
+    fn deviation(ratio: Norm) -> i32 {
+        let ppm = (ratio * Norm::new(1_000_000, 0)).round().map_or(i64::MAX, |v| i64::try_from(v).unwrap_or(i64::MAX));
+        i32::try_from(ppm.saturating_sub(1_000_000)).unwrap_or(i32::MAX)
+    }
+
+    /// The capacitance's deviation in ppm that a hold of `hold_ticks`
+    /// measured at `temp_mdeg_c` implies: the ratio to the hold expected at
+    /// that temperature, minus one (the drift tracker's sample).
     ///
     /// # Errors
     /// [`Error::OutOfDomain`] with [`Quantity::Hold`] for a zero hold; as
     /// [`Prepared::hold_at`] otherwise.
+    pub fn deviation_ppm_at(&self, hold_ticks: u64, temp_mdeg_c: i32) -> Result<i32, Error> {
+        Ok(Self::deviation(self.ratio(hold_ticks, self.delta(temp_mdeg_c)?)?))
+    }
+
+    /// What a hold of `hold_ticks` measured at `temp_mdeg_c` implies: its
+    /// ratio to the expected hold, the effective capacitance, and the
+    /// capacitance's deviation in ppm (see the module documentation for when
+    /// these are exact).
+    ///
+    /// # Errors
+    /// As [`Prepared::deviation_ppm_at`].
     pub fn inverse_at(&self, hold_ticks: u64, temp_mdeg_c: i32) -> Result<Estimate, Error> {
-        if hold_ticks == 0 {
-            return Err(Error::OutOfDomain(Quantity::Hold));
-        }
         let delta = self.delta(temp_mdeg_c)?;
-        let expected = self.hold_at(temp_mdeg_c)?;
-        let ratio = Norm::new(hold_ticks, 0).checked_div(expected).ok_or(Error::Arithmetic)?;
-        let ppm = (ratio * Norm::new(1_000_000, 0)).round().map_or(i64::MAX, |v| i64::try_from(v).unwrap_or(i64::MAX));
-        let deviation_ppm = i32::try_from(ppm.saturating_sub(1_000_000)).unwrap_or(i32::MAX);
+        let ratio = self.ratio(hold_ticks, delta)?;
         Ok(Estimate {
             ratio,
-            c_ff: Self::at_temp(self.c_ff, self.c_ppm_per_c, delta)? * ratio,
-            r_mohm: Self::at_temp(self.r_mohm, self.r_ppm_per_c, delta)? * ratio,
-            deviation_ppm,
+            c_ff: Norm::new(self.c_ff, 0) * Self::factor(&self.c_factor, delta)? * ratio,
+            deviation_ppm: Self::deviation(ratio),
         })
+    }
+
+    /// [`Prepared::inverse_at`] at the reference temperature (no compensation:
+    /// one division by the cached hold).
+    ///
+    /// # Errors
+    /// As [`Prepared::deviation_ppm_at`].
+    pub fn inverse(&self, hold_ticks: u64) -> Result<Estimate, Error> {
+        self.inverse_at(hold_ticks, self.ref_mdeg_c)
+    }
+
+    /// The hot path's results for one measurement as bytes, so that two
+    /// builds (host and chip) can be compared bit for bit: the error code of
+    /// [`Prepared::hold_at`] at `temp_mdeg_c` (0 for none), its mantissa (u32)
+    /// and exponent (i32); the error code of [`Prepared::inverse_at`] for
+    /// `hold_ticks`, then the ratio's and the capacitance's mantissa and
+    /// exponent and the deviation (i32). Little-endian; fields
+    /// of a failed call are zero.
+    #[must_use]
+    pub fn outcome_bytes(&self, temp_mdeg_c: i32, hold_ticks: u64) -> [u8; OUTCOME_LEN] {
+        let mut b = [0u8; OUTCOME_LEN];
+        let mut w = Writer { buf: &mut b, at: 0 };
+        let norm = |w: &mut Writer<'_>, n: Norm| {
+            w.put(&n.mantissa().to_le_bytes());
+            w.put(&n.exponent().to_le_bytes());
+        };
+        match self.hold_at(temp_mdeg_c) {
+            Ok(h) => {
+                w.put(&[0]);
+                norm(&mut w, h);
+            }
+            Err(e) => w.put(&[error_code(e), 0, 0, 0, 0, 0, 0, 0, 0]),
+        }
+        match self.inverse_at(hold_ticks, temp_mdeg_c) {
+            Ok(est) => {
+                w.put(&[0]);
+                for n in [est.ratio, est.c_ff] {
+                    norm(&mut w, n);
+                }
+                w.put(&est.deviation_ppm.to_le_bytes());
+            }
+            Err(e) => w.put(&[error_code(e)]),
+        }
+        b
     }
 
     /// The prepared stage as bytes, little-endian, in this order: clock (u32),
     /// reference, lowest and highest temperature (i32 m°C), τd mantissa (u32)
-    /// and exponent (i32), then the τ factor's, the start's and the end's
-    /// quadratics (three i64 each: value, slope, curvature), C (u64 fF), its
-    /// tempco (i32 ppm/°C), R (u64 mΩ), its tempco (i32 ppm/°C).
+    /// and exponent (i32), then the quadratics of the τ factor, the start, the
+    /// end, the C factor and the R factor (each: value i64, σ i32, κ i32, s u8,
+    /// c u8), C (u64 fF), R (u64 mΩ).
     #[must_use]
     pub fn to_bytes(&self) -> [u8; PREPARED_LEN] {
         let mut b = [0u8; PREPARED_LEN];
@@ -278,15 +384,14 @@ impl Prepared {
         }
         w.put(&self.tau_ticks.mantissa().to_le_bytes());
         w.put(&self.tau_ticks.exponent().to_le_bytes());
-        for q in [self.tau_factor, self.start, self.end] {
-            for v in [q.at_ref, q.slope, q.curve] {
-                w.put(&v.to_le_bytes());
-            }
+        for q in [self.tau_factor, self.start, self.end, self.c_factor, self.r_factor] {
+            w.put(&q.at_ref.to_le_bytes());
+            w.put(&q.slope.to_le_bytes());
+            w.put(&q.curve.to_le_bytes());
+            w.put(&[q.slope_shift, q.curve_shift]);
         }
         w.put(&self.c_ff.to_le_bytes());
-        w.put(&self.c_ppm_per_c.to_le_bytes());
         w.put(&self.r_mohm.to_le_bytes());
-        w.put(&self.r_ppm_per_c.to_le_bytes());
         b
     }
 
@@ -310,13 +415,12 @@ impl Prepared {
         let tau_m = u32::from_le_bytes(r.take()?);
         let tau_e = i32::from_le_bytes(r.take()?);
         let mut quad = || -> Result<Quadratic, Error> {
-            Ok(Quadratic {
-                at_ref: i64::from_le_bytes(r.take()?),
-                slope: i64::from_le_bytes(r.take()?),
-                curve: i64::from_le_bytes(r.take()?),
-            })
+            let (at_ref, slope, curve) =
+                (i64::from_le_bytes(r.take()?), i32::from_le_bytes(r.take()?), i32::from_le_bytes(r.take()?));
+            let [slope_shift, curve_shift] = r.take::<2>()?;
+            Ok(Quadratic { at_ref, slope, curve, slope_shift, curve_shift })
         };
-        let (tau_factor, start, end) = (quad()?, quad()?, quad()?);
+        let (tau_factor, start, end, c_factor, r_factor) = (quad()?, quad()?, quad()?, quad()?, quad()?);
         let p = Prepared {
             clock_hz,
             ref_mdeg_c,
@@ -326,16 +430,23 @@ impl Prepared {
             tau_factor,
             start,
             end,
+            c_factor,
+            r_factor,
             c_ff: u64::from_le_bytes(r.take()?),
-            c_ppm_per_c: i32::from_le_bytes(r.take()?),
             r_mohm: u64::from_le_bytes(r.take()?),
-            r_ppm_per_c: i32::from_le_bytes(r.take()?),
+            hold_ref: Norm::ZERO,
         };
-        p.check()?;
-        Ok(p)
+        p.finish()
     }
 
-    /// The checks [`Prepared::from_bytes`] applies.
+    /// Checks a stage as [`Prepared::from_bytes`] does and derives its
+    /// reference hold.
+    fn finish(mut self) -> Result<Prepared, Error> {
+        self.check()?;
+        self.hold_ref = self.hold_at_delta(0).map_err(|_| Error::OutOfDomain(Quantity::Hold))?;
+        Ok(self)
+    }
+
     fn check(&self) -> Result<(), Error> {
         check_clock(self.clock_hz)?;
         let (lo, hi) = limits::TEMP_MDEG_C;
@@ -353,18 +464,24 @@ impl Prepared {
         if !(limits::R_MOHM.0..=limits::R_MOHM.1).contains(&self.r_mohm) {
             return Err(Error::OutOfDomain(Quantity::R));
         }
-        let unit_factor = 1i64 << T_FRAC;
+        let unit_factor = 1i64 << FACTOR_FRAC;
+        let quads = [self.tau_factor, self.start, self.end, self.c_factor, self.r_factor];
         if self.tau_ticks.is_zero()
-            || self.tau_factor.at_ref != unit_factor
+            || quads.iter().any(|q| q.slope_shift > SHIFT_MAX || q.curve_shift > SHIFT_MAX)
+            || [self.tau_factor, self.c_factor, self.r_factor].iter().any(|q| q.at_ref != unit_factor)
             || self.start.at_ref <= self.end.at_ref
             || self.end.at_ref <= 0
             || self.start.at_ref >= 1 << 52
         {
             return Err(Error::OutOfDomain(Quantity::Hold));
         }
-        // Both ends of the range must evaluate (no overflow, a hold at each end).
+        // Both ends of the range must evaluate (no overflow, a hold at each end);
+        // every quadratic's inner term is linear in Δ, so its ends bound it.
         for t in [self.temp_lo_mdeg_c, self.temp_hi_mdeg_c] {
             self.hold_at(t).map_err(|_| Error::OutOfDomain(Quantity::Hold))?;
+            let d = self.delta(t)?;
+            Self::factor(&self.c_factor, d).map_err(|_| Error::OutOfDomain(Quantity::Tolerance))?;
+            Self::factor(&self.r_factor, d).map_err(|_| Error::OutOfDomain(Quantity::Tolerance))?;
         }
         Ok(())
     }

@@ -14,27 +14,92 @@ pub struct Norm {
     exponent: i32,
 }
 
-/// Leading zeros of a non-zero `u64` (thumbv6m has no CLZ instruction; this
-/// is a short binary search the compiler keeps inline).
+/// Leading zeros of a `u64` from two 32-bit counts (a 32-bit target counts
+/// 64 bits no faster, and ARMv6-M counts in software).
 #[inline]
 pub(crate) fn lz64(v: u64) -> u32 {
-    v.leading_zeros()
+    let hi = (v >> 32) as u32;
+    if hi != 0 {
+        hi.leading_zeros()
+    } else {
+        32 + (v as u32).leading_zeros()
+    }
 }
 
-/// `a · b` as a full 64-bit product (a single UMULL on Cortex-M3).
+/// `a · b` as a full 64-bit product: one UMULL where the core has it.
+#[cfg(not(all(target_arch = "arm", not(target_has_atomic = "32"))))]
 #[inline]
 pub(crate) fn mul32(a: u32, b: u32) -> u64 {
     u64::from(a) * u64::from(b)
 }
 
-/// `(n / d)` for a quotient known to fit in 32 bits (`n < d · 2^32`), rounded down.
-/// Returns `u32::MAX` rather than wrapping if that precondition is broken.
+/// `a · b` on ARMv6-M (the Arm profile without `target_has_atomic = "32"`),
+/// which multiplies only 32×32→32: see [`mul32_pieces`].
+#[cfg(all(target_arch = "arm", not(target_has_atomic = "32")))]
 #[inline]
-pub(crate) fn div64_32(n: u64, d: u32) -> u32 {
-    if d == 0 {
+pub(crate) fn mul32(a: u32, b: u32) -> u64 {
+    mul32_pieces(a, b)
+}
+
+/// `a · b` as a full 64-bit product from four 16×16-bit products, for cores
+/// without a 32×32→64 multiply (the compiler's 64×64 library call costs
+/// several times this).
+#[cfg(any(test, all(target_arch = "arm", not(target_has_atomic = "32"))))]
+#[inline]
+pub(crate) fn mul32_pieces(a: u32, b: u32) -> u64 {
+    let (a1, a0) = (a >> 16, a & 0xFFFF);
+    let (b1, b0) = (b >> 16, b & 0xFFFF);
+    let lo = a0 * b0;
+    let hi = a1 * b1;
+    // The two cross products: each < 2^32, their sum may carry into bit 32.
+    let (mid, carry) = (a1 * b0).overflowing_add(a0 * b1);
+    let lo64 = u64::from(lo) + (u64::from(mid) << 16);
+    lo64 + (u64::from(hi) << 32) + (u64::from(carry) << 48)
+}
+
+/// `a · b` for signed operands, as a full 64-bit product.
+#[inline]
+pub(crate) fn mul32s(a: i32, b: i32) -> i64 {
+    let p = mul32(a.unsigned_abs(), b.unsigned_abs()) as i64;
+    // |a·b| ≤ 2^62, so the magnitude fits an i64 and its negation too.
+    if (a < 0) != (b < 0) {
+        -p
+    } else {
+        p
+    }
+}
+
+/// `(hi·2^32 + lo) / d` for `hi < d` and `d ≥ 2^31` (a normalised divisor),
+/// so the quotient fits 32 bits; rounded down. Two 32÷16-bit digit steps
+/// (Knuth's algorithm D as in Warren, *Hacker's Delight*, `divlu`), each a
+/// 32-bit division (one UDIV on Cortex-M3) and at most two corrections.
+/// Returns `u32::MAX` if the preconditions are broken.
+#[inline]
+pub(crate) fn div64_32(hi: u32, lo: u32, d: u32) -> u32 {
+    if d < (1 << 31) || hi >= d {
         return u32::MAX;
     }
-    u32::try_from(n / u64::from(d)).unwrap_or(u32::MAX)
+    let (d1, d0) = (d >> 16, d & 0xFFFF);
+    let (n1, n0) = (lo >> 16, lo & 0xFFFF);
+    // One 16-bit quotient digit of (top·2^16 + next)/d, top < d: an estimate
+    // from the divisor's high half, corrected (at most twice) downwards.
+    let digit = |top: u32, next: u32| -> (u32, u32) {
+        let mut q = top / d1;
+        let mut r = top - q * d1;
+        while q > 0xFFFF || (r <= 0xFFFF && q * d0 > (r << 16) + next) {
+            q -= 1;
+            r += d1;
+            if r > 0xFFFF && q <= 0xFFFF {
+                break;
+            }
+        }
+        // top·2^16 + next − q·d, computed modulo 2^32: the true value is < d.
+        let rem = (top << 16).wrapping_add(next).wrapping_sub(q.wrapping_mul(d));
+        (q, rem)
+    };
+    let (q1, r1) = digit(hi, n1);
+    let (q0, _) = digit(r1, n0);
+    (q1 << 16) | q0
 }
 
 impl Norm {
@@ -99,7 +164,7 @@ impl Norm {
         } else {
             (u64::from(self.mantissa) << 32, 32)
         };
-        let q = div64_32(num, other.mantissa);
+        let q = div64_32((num >> 32) as u32, num as u32, other.mantissa);
         Some(Norm::new(u64::from(q), self.exponent.saturating_sub(other.exponent).saturating_sub(shift)))
     }
 
@@ -184,7 +249,42 @@ mod tests {
         assert_eq!(Norm::new(7, 3).to_fixed(2), Some(7 << 5));
     }
 
+    #[test]
+    fn division_and_products_at_their_edges() {
+        for d in [1u32 << 31, (1 << 31) + 1, 0xFFFF_0000, 0xFFFF_FFFF, 0x8000_FFFF] {
+            for hi in [0, 1, d >> 1, d - 1] {
+                for lo in [0, 1, 0xFFFF, 0xFFFF_0000, u32::MAX] {
+                    let n = (u64::from(hi) << 32) | u64::from(lo);
+                    assert_eq!(u64::from(div64_32(hi, lo, d)), n / u64::from(d), "{n:#x}/{d:#x}");
+                }
+            }
+        }
+        assert_eq!(div64_32(5, 0, 5), u32::MAX);
+        assert_eq!(div64_32(0, 5, 3), u32::MAX);
+        for (a, b) in [(u32::MAX, u32::MAX), (0xFFFF, 0x1_0000), (0x8000_8000, 0xFFFF_FFFF), (0, u32::MAX)] {
+            assert_eq!(mul32_pieces(a, b), u64::from(a) * u64::from(b));
+        }
+        assert_eq!(mul32s(i32::MIN, i32::MIN), 1 << 62);
+        assert_eq!(mul32s(i32::MIN, i32::MAX), i64::from(i32::MIN) * i64::from(i32::MAX));
+    }
+
     proptest! {
+        /// Invariant: the 64÷32 division equals the compiler's 64-bit one.
+        #[test]
+        fn div64_32_is_exact(d in (1u32 << 31).., hi_frac in 0u32.., lo in 0u32..) {
+            let hi = ((u64::from(hi_frac) * u64::from(d)) >> 32) as u32; // < d
+            let n = (u64::from(hi) << 32) | u64::from(lo);
+            prop_assert_eq!(u64::from(div64_32(hi, lo, d)), n / u64::from(d));
+        }
+
+        /// Invariant: both products equal the compiler's.
+        #[test]
+        fn products_are_exact(a in 0u32.., b in 0u32.., sa in any::<i32>(), sb in any::<i32>()) {
+            prop_assert_eq!(mul32(a, b), u64::from(a) * u64::from(b));
+            prop_assert_eq!(mul32_pieces(a, b), u64::from(a) * u64::from(b));
+            prop_assert_eq!(mul32s(sa, sb), i64::from(sa) * i64::from(sb));
+        }
+
         /// Invariant: products and quotients keep 2^-31 relative precision.
         #[test]
         fn products_and_quotients_keep_relative_precision(a in 1u64.., b in 1u64.., ea in -80i32..80, eb in -80i32..80) {

@@ -115,7 +115,7 @@ fn bytes_round_trip_and_refuse_damage() {
     assert_eq!(Prepared::from_bytes(&clock0), Err(Error::OutOfDomain(Quantity::Clock)));
     let mut swapped = b;
     // Start below end: no hold.
-    swapped[48..56].copy_from_slice(&1i64.to_le_bytes());
+    swapped[42..50].copy_from_slice(&1i64.to_le_bytes());
     assert_eq!(Prepared::from_bytes(&swapped), Err(Error::OutOfDomain(Quantity::Hold)));
 }
 
