@@ -114,7 +114,6 @@ const CONFIG_LEN: usize = 68;
 const BLOB_MAGIC: [u8; 4] = *b"RCHW";
 /// Version 2 added the prepared stage; version 1 blobs are refused.
 const BLOB_VERSION: u8 = 2;
-const CRC: crc::Crc<u32> = crc::Crc::<u32>::new(&crc::CRC_32_ISO_HDLC);
 
 /// Why a settings blob was refused.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -191,7 +190,7 @@ impl Setup {
         put(&c.chatter_limit.to_le_bytes());
         put(&[0, 0]);
         put(&self.stage.to_bytes());
-        let crc = CRC.checksum(b.get(..BLOB_LEN - 4).unwrap_or(&[]));
+        let crc = crate::crc32::checksum(b.get(..BLOB_LEN - 4).unwrap_or(&[]));
         if let Some(dst) = b.get_mut(BLOB_LEN - 4..) {
             dst.copy_from_slice(&crc.to_le_bytes());
         }
@@ -215,7 +214,7 @@ impl Setup {
         }
         let body = blob.get(..BLOB_LEN - 4).ok_or(BlobError::Length)?;
         let crc = blob.get(BLOB_LEN - 4..).and_then(|c| <[u8; 4]>::try_from(c).ok()).ok_or(BlobError::Length)?;
-        if CRC.checksum(body) != u32::from_le_bytes(crc) {
+        if crate::crc32::checksum(body) != u32::from_le_bytes(crc) {
             return Err(BlobError::Crc);
         }
         let mut at = 8usize;

@@ -19,7 +19,6 @@
 //! Every update costs a fixed number of 64-bit operations: the square root
 //! of the limits is taken once, when the baseline completes.
 
-use heapless::HistoryBuf;
 use serde::{Deserialize, Serialize};
 
 /// Settings of the tracker.
@@ -104,7 +103,8 @@ pub fn isqrt(n: u64) -> u64 {
     }
     let mut x = 1u64 << ((64 - n.leading_zeros()).div_ceil(2));
     loop {
-        let y = (x + n / x) / 2;
+        // x ≥ 1 throughout (it starts above √n and never drops below ⌊√n⌋ ≥ 1).
+        let y = (x + n / x.max(1)) / 2;
         if y >= x {
             return x;
         }
@@ -112,11 +112,49 @@ pub fn isqrt(n: u64) -> u64 {
     }
 }
 
+/// The last `N` entries, oldest overwritten first. Written for the chip:
+/// every access is checked (`get`), so no panic path reaches the firmware
+/// (heapless' `HistoryBuf` indexes, and its bounds checks survive on thumbv6m).
+#[derive(Debug, Clone)]
+struct Ring<const N: usize> {
+    slots: [Entry; N],
+    /// Index the next entry goes to.
+    next: usize,
+    len: usize,
+}
+
+impl<const N: usize> Ring<N> {
+    const fn new() -> Self {
+        Ring { slots: [Entry { period: 0, value: 0 }; N], next: 0, len: 0 }
+    }
+
+    fn write(&mut self, e: Entry) {
+        if let Some(slot) = self.slots.get_mut(self.next) {
+            *slot = e;
+        }
+        self.next = if self.next + 1 >= N { 0 } else { self.next + 1 };
+        self.len = (self.len + 1).min(N);
+    }
+
+    /// Oldest first.
+    fn iter(&self) -> impl Iterator<Item = &Entry> {
+        let start = if self.len < N { 0 } else { self.next };
+        (0..self.len).filter_map(move |i| self.slots.get((start + i) % N.max(1)))
+    }
+
+    fn recent(&self) -> Option<&Entry> {
+        if self.len == 0 {
+            return None;
+        }
+        self.slots.get(if self.next == 0 { N.saturating_sub(1) } else { self.next - 1 })
+    }
+}
+
 /// The tracker, with a history of `N` samples.
 #[derive(Debug, Clone)]
 pub struct DriftTracker<const N: usize> {
     config: DriftConfig,
-    history: HistoryBuf<Entry, N>,
+    history: Ring<N>,
     periods: u32,
     base_n: u16,
     base_sum: i64,
@@ -153,7 +191,7 @@ impl<const N: usize> DriftTracker<N> {
         let sigma = i64::from(config.sigma.unwrap_or(0).clamp(0, SAMPLE_LIMIT));
         let mut t = DriftTracker {
             config,
-            history: HistoryBuf::new(),
+            history: Ring::new(),
             periods: 0,
             base_n: 0,
             base_sum: 0,
@@ -216,7 +254,7 @@ impl<const N: usize> DriftTracker<N> {
 
     /// The history, oldest first.
     pub fn history(&self) -> impl Iterator<Item = &Entry> {
-        self.history.oldest_ordered()
+        self.history.iter()
     }
 
     /// Adds one sample (one measurement period), clamped to ±[`SAMPLE_LIMIT`].
@@ -233,10 +271,11 @@ impl<const N: usize> DriftTracker<N> {
             self.base_sum += x;
             self.base_sq += x * x;
             if self.base_n == needed {
+                // n ≥ 2 (baseline_needed); the checked forms keep that off the chip's panic paths.
                 let n = i64::from(self.base_n);
-                self.center = self.base_sum / n;
+                self.center = self.base_sum.checked_div(n).unwrap_or(0);
                 if self.config.sigma.is_none() {
-                    let var = (self.base_sq * n - self.base_sum * self.base_sum) / (n * (n - 1));
+                    let var = (self.base_sq * n - self.base_sum * self.base_sum).checked_div(n * (n - 1)).unwrap_or(0);
                     let sd = i64::try_from(isqrt(var.unsigned_abs())).unwrap_or(i64::MAX);
                     self.sigma = sd.min(i64::from(SAMPLE_LIMIT));
                 }
@@ -293,16 +332,16 @@ impl<const N: usize> DriftTracker<N> {
     /// Σ(n·k − Σk)(n·v − Σv))` with `k` the period counted from the oldest
     /// entry (consecutive periods, so `k < N`). Bounds in the module docs.
     fn sums(&self) -> Option<(i64, i64, i64, i64, i64)> {
-        let n = i64::try_from(self.history.len()).ok()?;
-        let first = self.history.oldest_ordered().next()?.period;
+        let n = i64::try_from(self.history.len).ok()?;
+        let first = self.history.iter().next()?.period;
         let rel = |e: &Entry| i64::from(e.period.wrapping_sub(first));
         let (mut sk, mut sv) = (0i64, 0i64);
-        for e in self.history.oldest_ordered() {
+        for e in self.history.iter() {
             sk += rel(e);
             sv += i64::from(e.value);
         }
         let (mut skk, mut skv) = (0i64, 0i64);
-        for e in self.history.oldest_ordered() {
+        for e in self.history.iter() {
             let dk = rel(e) * n - sk; // n·(k − k̄)
             let dv = i64::from(e.value) * n - sv; // n·(v − v̄)
             skk += dk * dk;
@@ -316,12 +355,12 @@ impl<const N: usize> DriftTracker<N> {
     #[must_use]
     pub fn trend_q16(&self) -> Option<i64> {
         let (n, _, _, skk, skv) = self.sums()?;
-        if n < 3 || skk == 0 {
+        if n < 3 {
             return None;
         }
         // (skv << 16)/skk without a 2^73 intermediate: whole part, then remainder (< skk < 2^40).
-        let whole = (skv / skk).checked_mul(1 << 16)?;
-        whole.checked_add(((skv % skk) << 16) / skk)
+        let whole = skv.checked_div(skk)?.checked_mul(1 << 16)?;
+        whole.checked_add((skv.checked_rem(skk)? << 16).checked_div(skk)?)
     }
 
     /// Periods from the latest sample until the fitted trend reaches the
@@ -333,21 +372,33 @@ impl<const N: usize> DriftTracker<N> {
             return None;
         }
         let (n, sk, sv, _, _) = self.sums()?;
-        let first = self.history.oldest_ordered().next()?.period;
+        let first = self.history.iter().next()?.period;
         let last = i64::from(self.history.recent()?.period.wrapping_sub(first));
         // Fitted value at the latest period, Q16: v̄ + slope·(k_last − k̄).
-        let fit_q16 = (sv << 16) / n + slope.checked_mul(last * n - sk)? / n;
+        let fit_q16 = (sv << 16).checked_div(n)? + slope.checked_mul(last * n - sk)?.checked_div(n)?;
         let gap_q16 = fit_q16 - (i64::from(self.config.limit.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT)) << 16);
         if gap_q16 <= 0 {
             return Some(0);
         }
-        u32::try_from(gap_q16 / -slope).ok()
+        u32::try_from(gap_q16.checked_div(slope.checked_neg()?)?).ok()
     }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_ring_keeps_the_last_n_oldest_first() {
+        let mut r: Ring<3> = Ring::new();
+        assert!(r.recent().is_none() && r.iter().next().is_none());
+        for v in 0..5 {
+            r.write(Entry { period: v as u32, value: v });
+        }
+        let kept: heapless::Vec<i32, 3> = r.iter().map(|e| e.value).collect();
+        assert_eq!(kept.as_slice(), &[2, 3, 4]);
+        assert_eq!(r.recent().map(|e| e.value), Some(4));
+    }
 
     #[test]
     fn isqrt_is_the_floor_square_root() {

@@ -96,7 +96,7 @@ impl Filter {
 
 /// The measurement with its verdict's diagnosis: the cause hint and, for
 /// short and long holds, the capacitance the hold implies at `temp_mdeg_c`
-/// (the hot path: [`Prepared::inverse_at`]).
+/// (the hot path: [`Prepared::deviation_ppm_at`]).
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn outcome(
     config: &Config,
@@ -127,9 +127,9 @@ pub(crate) fn outcome(
             if hold.saturating_mul(20) < config.hold_min_ticks {
                 Hint::OpenCapacitorOrDiode
             } else {
-                match stage.inverse_at(hold, temp_mdeg_c) {
-                    Ok(c) => {
-                        let dev = i64::from(c.deviation_ppm);
+                match stage.deviation_ppm_at(hold, temp_mdeg_c) {
+                    Ok(dev) => {
+                        let dev = i64::from(dev);
                         m.c_deviation_ppm = Some(dev);
                         Hint::from_deviation_ppm(dev)
                     }

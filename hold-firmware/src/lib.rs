@@ -7,6 +7,7 @@
 #[cfg(feature = "async")]
 mod asynch;
 mod config;
+mod crc32;
 pub mod drift;
 mod engine;
 pub mod record;
