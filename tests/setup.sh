@@ -4,16 +4,20 @@
 set -euo pipefail
 
 have_target() { rustup target list --installed | grep -qx "$1"; }
-for t in thumbv6m-none-eabi thumbv7em-none-eabihf; do
+for t in thumbv6m-none-eabi thumbv7m-none-eabi thumbv7em-none-eabihf; do
     have_target "$t" || rustup target add "$t"
 done
 rustup component list --installed | grep -q '^llvm-tools' || rustup component add llvm-tools
 rustup component list --installed | grep -q '^clippy' || rustup component add clippy
 rustup component list --installed | grep -q '^rustfmt' || rustup component add rustfmt
 
-# Debian packages: the circuit simulator the model is checked against.
+# Debian packages: the circuit simulator the model is checked against, the
+# emulator the firmware runs on (mps2-an385: Cortex-M3, runs M0 code too), and
+# a C compiler for the emulator's instruction-count plugin.
 missing=()
 command -v ngspice >/dev/null 2>&1 || missing+=(ngspice)
+command -v qemu-system-arm >/dev/null 2>&1 || missing+=(qemu-system-arm)
+command -v gcc >/dev/null 2>&1 || missing+=(gcc)
 if [ "${#missing[@]}" -gt 0 ]; then
     if [ "$(id -u)" -ne 0 ]; then
         echo "tests/setup.sh: need root to apt-get install ${missing[*]}" >&2
