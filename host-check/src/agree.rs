@@ -44,11 +44,26 @@ pub struct Backend {
     pub inverse_ill_conditioned: usize,
 }
 
+/// The hot path (a stage prepared once, judged per measurement in 32/64-bit
+/// arithmetic) against the reference, at the prepared temperature.
+#[derive(Debug, Clone, Serialize)]
+pub struct HotPath {
+    /// Hold from the prepared stage.
+    pub hold: Stat,
+    /// Effective C from a measured hold in whole ticks (points whose press
+    /// charges the capacitor fully, where the hold is proportional to C).
+    pub inverse_c: Stat,
+    /// Stages the solver evaluates but prepare refuses.
+    pub refused: usize,
+}
+
 /// The whole report.
 #[derive(Debug, Clone, Serialize)]
 pub struct Report {
     /// Fixed-point model.
     pub fixed: Backend,
+    /// The fixed-point hot path.
+    pub hot: HotPath,
     /// `f32` model.
     pub f32: Backend,
     /// Points generated (grid + random).
@@ -173,6 +188,7 @@ struct Sample {
 struct PointResult {
     fixed: Sample,
     f32: Sample,
+    hot: Sample,
     evaluated: bool,
     refused: bool,
 }
@@ -186,7 +202,13 @@ fn compare_point(stage: &Stage) -> PointResult {
     let reference = reference::evaluate(&sf);
     let fixed = Model::new(stage).and_then(|m| m.evaluate().map(|e| (m, e)));
     let single = float::Model::new(stage).and_then(|m| m.evaluate().map(|e| (m, e)));
-    let mut out = PointResult { fixed: Sample::default(), f32: Sample::default(), evaluated: false, refused: false };
+    let mut out = PointResult {
+        fixed: Sample::default(),
+        f32: Sample::default(),
+        hot: Sample::default(),
+        evaluated: false,
+        refused: false,
+    };
     let Ok(r) = reference else {
         out.fixed.mismatch = fixed.is_ok() && !near_edge(stage);
         out.f32.mismatch = single.is_ok() && !near_edge(stage);
@@ -214,6 +236,7 @@ fn compare_point(stage: &Stage) -> PointResult {
                 _ => {}
             }
             out.evaluated = true;
+            out.hot = hot_path(stage, &r);
         }
         Err(_) => out.fixed.mismatch = in_domain,
     }
@@ -232,6 +255,41 @@ fn compare_point(stage: &Stage) -> PointResult {
         Err(_) => out.f32.mismatch = in_domain,
     }
     out
+}
+
+/// Clock of the hot-path comparison, Hz: the finest the domain allows, so a
+/// measured hold in whole ticks is as fine as a chip could give it.
+const HOT_CLOCK_HZ: u32 = 200_000_000;
+
+/// The hot path at the stage's own temperature against the reference: the
+/// hold, and the effective C from the reference hold rounded to whole ticks
+/// (for a full press the reference's own C for that hold is `C·ticks/(hold·f)`).
+fn hot_path(stage: &Stage, r: &reference::EvalF) -> Sample {
+    let mut out = Sample::default();
+    let spread = rc_model::window::Spread { ref_mdeg_c: stage.temp_mdeg_c, ..Default::default() };
+    let Ok(p) = rc_model::Prepared::prepare(stage, &spread, HOT_CLOCK_HZ) else {
+        out.mismatch = true;
+        return out;
+    };
+    let clock = f64::from(HOT_CLOCK_HZ);
+    if let Ok(h) = p.hold_at(stage.temp_mdeg_c) {
+        out.hold = Some(rel(norm_f64(h) / clock, r.hold));
+    }
+    let full = (r.charge_target - r.cap_at_release).abs() <= 1e-12 * r.charge_target;
+    let ticks = (r.hold * clock).round();
+    if full && ticks >= 1.0 && ticks < 2f64.powi(62) {
+        if let Ok(e) = p.inverse_at(ticks as u64, stage.temp_mdeg_c) {
+            let want = stage.c_ff as f64 * ticks / (r.hold * clock);
+            out.inv_c = Some(rel(norm_f64(e.c_ff), want));
+        }
+    }
+    out
+}
+
+/// A [`rc_model::Norm`] as `f64` (exact: 32 mantissa bits).
+#[must_use]
+pub fn norm_f64(n: rc_model::Norm) -> f64 {
+    f64::from(n.mantissa()) * 2f64.powi(n.exponent())
 }
 
 /// Whether a refused stage sits where rounding can decide refusal (hold near
@@ -293,8 +351,16 @@ pub fn run(random_points: usize, seed: u64, progress: &(dyn Fn(usize, usize) + S
             r
         })
         .collect();
+    let hot_col = |f: &dyn Fn(&Sample) -> Option<f64>| {
+        results.iter().enumerate().filter_map(|(i, r)| f(&r.hot).map(|a| (a, 0.0, i))).collect::<Vec<_>>()
+    };
     Report {
         fixed: backend(&results, &stages, |r| &r.fixed),
+        hot: HotPath {
+            hold: stat(hot_col(&|s| s.hold), &stages),
+            inverse_c: stat(hot_col(&|s| s.inv_c), &stages),
+            refused: results.iter().filter(|r| r.hot.mismatch).count(),
+        },
         f32: backend(&results, &stages, |r| &r.f32),
         cases: total,
         evaluated: results.iter().filter(|r| r.evaluated).count(),
@@ -326,6 +392,17 @@ pub fn render_text(r: &Report) -> String {
             b.verdict_mismatches, b.inverse_ill_conditioned
         );
     }
+    let _ = writeln!(out, "\n  fixed-point hot path (prepared stage, 32/64-bit) against the f64 reference");
+    let _ = writeln!(out, "    {:<16} {:>14} {:>14} {:>10}", "", "max (ppm)", "99.9 % (ppm)", "points");
+    for (label, s) in [("hold", &r.hot.hold), ("inverse C", &r.hot.inverse_c)] {
+        let _ = writeln!(out, "    {:<16} {:>14.6} {:>14.6} {:>10}", label, s.max_rel_ppm, s.p999_rel_ppm, s.points);
+    }
+    let _ = writeln!(
+        out,
+        "    inverse C over full presses only, from holds in whole ticks of {} MHz; stages prepare refused: {}",
+        HOT_CLOCK_HZ / 1_000_000,
+        r.hot.refused
+    );
     let _ = writeln!(out, "\n  worst fixed-point hold at: {}", r.fixed.hold.worst_case);
     out
 }

@@ -151,6 +151,12 @@ fn agree_sweep_meets_the_bound() {
     assert!(r.fixed.inverse_c.max_rel_ppm < 0.1, "{:?}", r.fixed.inverse_c);
     assert!(r.fixed.on_latency.max_rel_ppm < 0.1, "{:?}", r.fixed.on_latency);
     assert_eq!(r.fixed.verdict_mismatches, 0);
+    // The hot path: within 1 ppm of the same reference (aim 0.1 ppm) for the
+    // hold and the inverse, and prepared wherever the solver evaluates.
+    assert!(r.hot.hold.points > 2_000 && r.hot.inverse_c.points > 500, "{:?}", r.hot);
+    assert!(r.hot.hold.max_rel_ppm < 0.1, "{:?}", r.hot.hold);
+    assert!(r.hot.inverse_c.max_rel_ppm < 0.1, "{:?}", r.hot.inverse_c);
+    assert_eq!(r.hot.refused, 0);
 }
 
 /// Regression: a 9.35 mF junction stage whose 80 s press ends in the slow
