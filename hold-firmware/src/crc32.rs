@@ -29,17 +29,20 @@ const TABLE: [u32; 16] = {
     t
 };
 
+/// The CRC register after one more byte (start from `!0`, invert at the end).
+#[inline]
+#[must_use]
+pub fn update(register: u32, byte: u8) -> u32 {
+    let mut c = register ^ u32::from(byte);
+    // Masked to 4 bits: always inside the table (the compiler drops the check).
+    c = (c >> 4) ^ TABLE.get((c & 15) as usize).copied().unwrap_or(0);
+    (c >> 4) ^ TABLE.get((c & 15) as usize).copied().unwrap_or(0)
+}
+
 /// The CRC-32 of `bytes`.
 #[must_use]
 pub fn checksum(bytes: &[u8]) -> u32 {
-    let mut c = !0u32;
-    for &b in bytes {
-        c ^= u32::from(b);
-        // Masked to 4 bits: always inside the table (the compiler drops the check).
-        c = (c >> 4) ^ TABLE.get((c & 15) as usize).copied().unwrap_or(0);
-        c = (c >> 4) ^ TABLE.get((c & 15) as usize).copied().unwrap_or(0);
-    }
-    !c
+    !bytes.iter().fold(!0u32, |c, &b| update(c, b))
 }
 
 #[cfg(test)]

@@ -19,6 +19,7 @@
 //! Every update costs a fixed number of 64-bit operations: the square root
 //! of the limits is taken once, when the baseline completes.
 
+use rc_model::Norm;
 use serde::{Deserialize, Serialize};
 
 /// Settings of the tracker.
@@ -95,59 +96,81 @@ pub fn deviation_at(
     i32::try_from(inverse.deviation_ppm()).map_err(|_| rc_model::Error::OutOfDomain(rc_model::Quantity::C))
 }
 
-/// Integer square root (floor) of a `u64`, by Newton's method.
+/// Integer square root (floor) of a `u64`, digit by digit in base 4 (no
+/// division, so no 64-bit division routine on the chip).
 #[must_use]
 pub fn isqrt(n: u64) -> u64 {
-    if n < 2 {
-        return n;
+    let (mut rem, mut root) = (n, 0u64);
+    let mut bit = 1u64 << 62;
+    while bit > rem {
+        bit >>= 2;
     }
-    let mut x = 1u64 << ((64 - n.leading_zeros()).div_ceil(2));
-    loop {
-        // x ≥ 1 throughout (it starts above √n and never drops below ⌊√n⌋ ≥ 1).
-        let y = (x + n / x.max(1)) / 2;
-        if y >= x {
-            return x;
+    while bit != 0 {
+        if rem >= root + bit {
+            rem -= root + bit;
+            root = (root >> 1) + bit;
+        } else {
+            root >>= 1;
         }
-        x = y;
+        bit >>= 2;
     }
+    root
 }
 
-/// The last `N` entries, oldest overwritten first. Written for the chip:
-/// every access is checked (`get`), so no panic path reaches the firmware
-/// (heapless' `HistoryBuf` indexes, and its bounds checks survive on thumbv6m).
+/// The last `N` samples of consecutive periods, oldest overwritten first;
+/// the periods are not stored, they follow from the latest one. Written for
+/// the chip: every access is checked (`get`), so no panic path reaches the
+/// firmware (heapless' `HistoryBuf` indexes, and its bounds checks survive
+/// on thumbv6m).
 #[derive(Debug, Clone)]
 struct Ring<const N: usize> {
-    slots: [Entry; N],
-    /// Index the next entry goes to.
+    values: [i32; N],
+    /// Index the next sample goes to.
     next: usize,
     len: usize,
+    /// Period of the latest sample.
+    last_period: u32,
 }
 
 impl<const N: usize> Ring<N> {
     const fn new() -> Self {
-        Ring { slots: [Entry { period: 0, value: 0 }; N], next: 0, len: 0 }
+        Ring { values: [0; N], next: 0, len: 0, last_period: 0 }
     }
 
     fn write(&mut self, e: Entry) {
-        if let Some(slot) = self.slots.get_mut(self.next) {
-            *slot = e;
+        if let Some(slot) = self.values.get_mut(self.next) {
+            *slot = e.value;
         }
         self.next = if self.next + 1 >= N { 0 } else { self.next + 1 };
         self.len = (self.len + 1).min(N);
+        self.last_period = e.period;
     }
 
     /// Oldest first.
-    fn iter(&self) -> impl Iterator<Item = &Entry> {
+    fn iter(&self) -> impl Iterator<Item = Entry> + '_ {
         let start = if self.len < N { 0 } else { self.next };
-        (0..self.len).filter_map(move |i| self.slots.get((start + i) % N.max(1)))
+        let first = self.last_period.wrapping_sub(self.len.saturating_sub(1) as u32);
+        (0..self.len).filter_map(move |i| {
+            let at = if start + i >= N { start + i - N } else { start + i };
+            self.values.get(at).map(|&value| Entry { period: first.wrapping_add(i as u32), value })
+        })
     }
 
-    fn recent(&self) -> Option<&Entry> {
-        if self.len == 0 {
-            return None;
-        }
-        self.slots.get(if self.next == 0 { N.saturating_sub(1) } else { self.next - 1 })
+    fn recent(&self) -> Option<Entry> {
+        (self.len > 0).then_some(())?;
+        let at = if self.next == 0 { N.checked_sub(1)? } else { self.next - 1 };
+        self.values.get(at).map(|&value| Entry { period: self.last_period, value })
     }
+}
+
+/// `n / d` rounded to nearest, from 32-bit mantissas (relative error below
+/// 2^-30): the tracker's wide divisions without the 64-bit division routine,
+/// which would cost the field tester a kilobyte of flash. `None` for `d = 0`
+/// or a quotient beyond `i64`.
+fn ratio(n: i64, d: i64) -> Option<i64> {
+    let q = Norm::new(n.unsigned_abs(), 0).checked_div(Norm::new(d.unsigned_abs(), 0))?;
+    let v = i64::try_from(q.round()?).ok()?;
+    Some(if (n < 0) != (d < 0) { -v } else { v })
 }
 
 /// The tracker, with a history of `N` samples.
@@ -242,18 +265,18 @@ impl<const N: usize> DriftTracker<N> {
     /// (L clamped to 65.535, σ to [`SAMPLE_LIMIT`]).
     #[must_use]
     pub fn ewma_half_width(&self) -> i64 {
-        let l = u64::from(self.config.lambda_q16.min(65_536));
+        let l = i64::from(self.config.lambda_q16.min(65_536));
         // λ/(2 − λ) in Q32 (< 2^33), its square root in Q16 (< 2^17).
-        let ratio_q32 = (l << 32) / ((2u64 << 16) - l);
-        let root_q16 = isqrt(ratio_q32);
+        let ratio_q32 = ratio(l << 32, (2 << 16) - l).unwrap_or(0);
+        let root_q16 = isqrt(ratio_q32.unsigned_abs());
         let l_milli = u64::from(self.config.l_milli.min(65_535));
         // < 2^16 · 2^23 · 2^17 = 2^56.
         let w = l_milli * self.sigma.unsigned_abs() * root_q16;
-        i64::try_from((w + 500 * 65_536) / (1000 * 65_536)).unwrap_or(i64::MAX)
+        ratio(i64::try_from(w).unwrap_or(i64::MAX), 1000 * 65_536).unwrap_or(i64::MAX)
     }
 
     /// The history, oldest first.
-    pub fn history(&self) -> impl Iterator<Item = &Entry> {
+    pub fn history(&self) -> impl Iterator<Item = Entry> + '_ {
         self.history.iter()
     }
 
@@ -272,10 +295,12 @@ impl<const N: usize> DriftTracker<N> {
             self.base_sq += x * x;
             if self.base_n == needed {
                 // n ≥ 2 (baseline_needed); the checked forms keep that off the chip's panic paths.
+                // |Σx| ≤ 256·2^23 = 2^31 and n ≤ 256: a 32-bit division, truncating as before.
                 let n = i64::from(self.base_n);
-                self.center = self.base_sum.checked_div(n).unwrap_or(0);
+                let sum32 = i32::try_from(self.base_sum).unwrap_or(0);
+                self.center = i64::from(sum32.checked_div(i32::from(self.base_n)).unwrap_or(0));
                 if self.config.sigma.is_none() {
-                    let var = (self.base_sq * n - self.base_sum * self.base_sum).checked_div(n * (n - 1)).unwrap_or(0);
+                    let var = ratio(self.base_sq * n - self.base_sum * self.base_sum, n * (n - 1)).unwrap_or(0);
                     let sd = i64::try_from(isqrt(var.unsigned_abs())).unwrap_or(i64::MAX);
                     self.sigma = sd.min(i64::from(SAMPLE_LIMIT));
                 }
@@ -337,12 +362,12 @@ impl<const N: usize> DriftTracker<N> {
         let rel = |e: &Entry| i64::from(e.period.wrapping_sub(first));
         let (mut sk, mut sv) = (0i64, 0i64);
         for e in self.history.iter() {
-            sk += rel(e);
+            sk += rel(&e);
             sv += i64::from(e.value);
         }
         let (mut skk, mut skv) = (0i64, 0i64);
         for e in self.history.iter() {
-            let dk = rel(e) * n - sk; // n·(k − k̄)
+            let dk = rel(&e) * n - sk; // n·(k − k̄)
             let dv = i64::from(e.value) * n - sv; // n·(v − v̄)
             skk += dk * dk;
             skv += dk * dv;
@@ -358,9 +383,10 @@ impl<const N: usize> DriftTracker<N> {
         if n < 3 {
             return None;
         }
-        // (skv << 16)/skk without a 2^73 intermediate: whole part, then remainder (< skk < 2^40).
-        let whole = skv.checked_div(skk)?.checked_mul(1 << 16)?;
-        whole.checked_add((skv.checked_rem(skk)? << 16).checked_div(skk)?)
+        // (skv·2^16)/skk without a 2^73 intermediate: the Norm quotient carries the 2^16.
+        let q = Norm::new(skv.unsigned_abs(), 16).checked_div(Norm::new(skk.unsigned_abs(), 0))?;
+        let v = i64::try_from(q.round()?).ok()?;
+        Some(if (skv < 0) != (skk < 0) { -v } else { v })
     }
 
     /// Periods from the latest sample until the fitted trend reaches the
@@ -375,12 +401,15 @@ impl<const N: usize> DriftTracker<N> {
         let first = self.history.iter().next()?.period;
         let last = i64::from(self.history.recent()?.period.wrapping_sub(first));
         // Fitted value at the latest period, Q16: v̄ + slope·(k_last − k̄).
-        let fit_q16 = (sv << 16).checked_div(n)? + slope.checked_mul(last * n - sk)?.checked_div(n)?;
+        let fit_q16 = ratio(sv << 16, n)? + ratio(slope.checked_mul(last * n - sk)?, n)?;
         let gap_q16 = fit_q16 - (i64::from(self.config.limit.clamp(-SAMPLE_LIMIT, SAMPLE_LIMIT)) << 16);
         if gap_q16 <= 0 {
             return Some(0);
         }
-        u32::try_from(gap_q16.checked_div(slope.checked_neg()?)?).ok()
+        // Whole periods, rounded down like the division it replaces.
+        let periods = ratio(gap_q16, slope.checked_neg()?)?;
+        let periods = if periods.checked_mul(-slope)? > gap_q16 { periods - 1 } else { periods };
+        u32::try_from(periods).ok()
     }
 }
 
@@ -392,12 +421,15 @@ mod tests {
     fn the_ring_keeps_the_last_n_oldest_first() {
         let mut r: Ring<3> = Ring::new();
         assert!(r.recent().is_none() && r.iter().next().is_none());
-        for v in 0..5 {
-            r.write(Entry { period: v as u32, value: v });
+        r.write(Entry { period: 7, value: 70 });
+        assert_eq!(r.recent(), Some(Entry { period: 7, value: 70 }));
+        for v in 8..12 {
+            r.write(Entry { period: v as u32, value: v * 10 });
         }
-        let kept: heapless::Vec<i32, 3> = r.iter().map(|e| e.value).collect();
-        assert_eq!(kept.as_slice(), &[2, 3, 4]);
-        assert_eq!(r.recent().map(|e| e.value), Some(4));
+        let kept: heapless::Vec<Entry, 3> = r.iter().collect();
+        let want = [Entry { period: 9, value: 90 }, Entry { period: 10, value: 100 }, Entry { period: 11, value: 110 }];
+        assert_eq!(kept.as_slice(), &want);
+        assert_eq!(r.recent(), Some(Entry { period: 11, value: 110 }));
     }
 
     #[test]
@@ -405,6 +437,24 @@ mod tests {
         for n in [0u64, 1, 2, 3, 4, 15, 16, 17, 1 << 40, (1 << 62) - 1, u64::MAX] {
             let r = isqrt(n);
             assert!(r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|s| s > n), "{n}: {r}");
+        }
+    }
+
+    proptest::proptest! {
+        /// Invariant: the square root is the floor of the real one.
+        #[test]
+        fn isqrt_is_the_floor_for_any_input(n in proptest::prelude::any::<u64>()) {
+            let r = isqrt(n);
+            proptest::prop_assert!(r * r <= n && (r + 1).checked_mul(r + 1).is_none_or(|s| s > n));
+        }
+
+        /// Invariant: the wide division rounds to the nearest integer (within
+        /// its 2^-30 relative precision).
+        #[test]
+        fn ratio_rounds_the_quotient(n in -(1i64 << 62)..(1i64 << 62), d in 1i64..(1i64 << 40)) {
+            let exact = n as f64 / d as f64;
+            let got = ratio(n, d).unwrap_or(i64::MIN) as f64;
+            proptest::prop_assert!((got - exact).abs() <= 0.5 + exact.abs() * 2f64.powi(-30), "{} / {}: {}", n, d, got);
         }
     }
 

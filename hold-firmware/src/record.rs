@@ -72,7 +72,7 @@ impl core::error::Error for FrameError {}
 /// 5 + 5 + 10 + 11 + 11 + 5 + 6 + 3 + 6.
 const PAYLOAD_MAX: usize = 62;
 
-/// A fixed buffer written front to back; every write is checked.
+/// The payload and room for its CRC, written front to back; every write is checked.
 struct Out {
     buf: [u8; PAYLOAD_MAX + 4],
     at: usize,
@@ -118,6 +118,29 @@ impl Out {
     }
 }
 
+/// COBS: `data` stuffed into `frame` (each zero replaced by the distance to
+/// the next, a code byte ahead of each block of up to 254), then the 0x00
+/// delimiter; returns the frame's length. One pass, state in locals.
+fn stuff(data: &[u8], frame: &mut [u8; FRAME_MAX]) -> Result<usize, FrameError> {
+    let (mut code_at, mut at, mut code) = (0usize, 1usize, 1u8);
+    for &b in data {
+        if b != 0 {
+            *frame.get_mut(at).ok_or(FrameError::Encode)? = b;
+            at += 1;
+            code += 1;
+        }
+        if b == 0 || code == 0xFF {
+            *frame.get_mut(code_at).ok_or(FrameError::Encode)? = code;
+            code_at = at;
+            at += 1;
+            code = 1;
+        }
+    }
+    *frame.get_mut(code_at).ok_or(FrameError::Encode)? = code;
+    *frame.get_mut(at).ok_or(FrameError::Encode)? = 0;
+    Ok(at + 1)
+}
+
 /// The record in postcard's wire format (fields in declaration order;
 /// integers as LEB128, signed ones zigzagged; an `Option` as a 0/1 tag;
 /// an enum as its variant index), written without serde: postcard's own
@@ -143,17 +166,16 @@ fn payload(r: &Record, out: &mut Out) -> Result<(), FrameError> {
 /// # Errors
 /// [`FrameError::Encode`] if it does not fit (not reachable for a [`Record`]).
 pub fn encode(record: &Record) -> Result<heapless::Vec<u8, FRAME_MAX>, FrameError> {
-    let mut out = Out { buf: [0u8; PAYLOAD_MAX + 4], at: 0 };
+    let mut out = Out { buf: [0; PAYLOAD_MAX + 4], at: 0 };
     payload(record, &mut out)?;
-    let (used, mut raw) = (out.at, out.buf);
-    let crc = crate::crc32::checksum(raw.get(..used).ok_or(FrameError::Encode)?);
-    raw.get_mut(used..used + 4).ok_or(FrameError::Encode)?.copy_from_slice(&crc.to_le_bytes());
-    let mut stuffed = [0u8; FRAME_MAX];
-    let n = cobs::try_encode(raw.get(..used + 4).ok_or(FrameError::Encode)?, &mut stuffed)
-        .map_err(|_| FrameError::Encode)?;
-    let mut v = heapless::Vec::new();
-    v.extend_from_slice(stuffed.get(..n).ok_or(FrameError::Encode)?).map_err(|_| FrameError::Encode)?;
-    v.push(0).map_err(|_| FrameError::Encode)?;
+    let n = out.at;
+    let crc = crate::crc32::checksum(out.buf.get(..n).ok_or(FrameError::Encode)?);
+    out.buf.get_mut(n..n + 4).ok_or(FrameError::Encode)?.copy_from_slice(&crc.to_le_bytes());
+    let mut frame = [0u8; FRAME_MAX];
+    let len = stuff(out.buf.get(..n + 4).ok_or(FrameError::Encode)?, &mut frame)?;
+    // One block copy (from_slice would copy byte by byte), then cut to length.
+    let mut v = heapless::Vec::from_array(frame);
+    v.truncate(len);
     Ok(v)
 }
 
@@ -266,12 +288,18 @@ mod tests {
         /// Invariant: the hand-written encoder writes postcard's bytes exactly.
         #[test]
         fn the_encoder_writes_what_postcard_writes(r in any_record()) {
-            let mut out = Out { buf: [0u8; PAYLOAD_MAX + 4], at: 0 };
-            payload(&r, &mut out).unwrap_or_else(|e| panic!("{e}"));
-            let mut want = [0u8; PAYLOAD_MAX + 4];
-            let want = postcard::to_slice(&r, &mut want).unwrap_or_else(|e| panic!("{e}"));
-            proptest::prop_assert_eq!(&out.buf[..out.at], &want[..]);
-            proptest::prop_assert_eq!(decode(&encode(&r).unwrap_or_default()), Ok(r));
+            // The frame a three-pass encoder makes from postcard, the crc
+            // crate and the cobs crate, byte for byte.
+            let mut payload = [0u8; PAYLOAD_MAX + 4];
+            let used = postcard::to_slice(&r, &mut payload).unwrap_or_else(|e| panic!("{e}")).len();
+            let crc = crc::Crc::<u32>::new(&crc::CRC_32_ISO_HDLC).checksum(&payload[..used]);
+            payload[used..used + 4].copy_from_slice(&crc.to_le_bytes());
+            let mut want = [0u8; FRAME_MAX];
+            let n = cobs::encode(&payload[..used + 4], &mut want);
+            let got = encode(&r).unwrap_or_default();
+            proptest::prop_assert_eq!(&got[..got.len() - 1], &want[..n]);
+            proptest::prop_assert_eq!(got.last(), Some(&0));
+            proptest::prop_assert_eq!(decode(&got), Ok(r));
         }
     }
 

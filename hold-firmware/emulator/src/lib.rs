@@ -34,8 +34,8 @@ pub fn print(bytes: &[u8]) {
 }
 
 /// A line of text and a number, through semihosting: `label value\n`.
-pub fn print_value(label: &str, value: u64) {
-    let mut buf = [0u8; 20];
+pub fn print_value(label: &str, value: u32) {
+    let mut buf = [0u8; 10];
     print(label.as_bytes());
     print(b" ");
     print(decimal(value, &mut buf));
@@ -43,8 +43,9 @@ pub fn print_value(label: &str, value: u64) {
 }
 
 /// `value` in decimal, written into the end of `buf`; returns the digits.
-/// No formatting machinery and no panic path: the field tester uses it.
-pub fn decimal(mut value: u64, buf: &mut [u8; 20]) -> &[u8] {
+/// No formatting machinery, no panic path and no 64-bit division: the field
+/// tester uses it.
+pub fn decimal(mut value: u32, buf: &mut [u8; 10]) -> &[u8] {
     let mut start = buf.len();
     for slot in buf.iter_mut().rev() {
         *slot = b'0' + (value % 10) as u8;
@@ -245,7 +246,8 @@ impl DelayNs for Delay {
 /// field tester links it under a panic handler that does not exist.
 pub fn run_field(setup: Setup) -> ! {
     let stage = setup.stage;
-    let nominal = stage.hold_ticks_at(stage.ref_mdeg_c()).unwrap_or(0);
+    // In u32 (ticks of a slow clock): a 64-bit division would link its routine.
+    let nominal = u32::try_from(stage.hold_ticks_at(stage.ref_mdeg_c()).unwrap_or(0)).unwrap_or(u32::MAX);
     let (lo, hi) = stage.temp_range_mdeg_c();
     let mut uart = Uart0::new();
     let mut tester = Tester::new(Trigger, Output, Delay, Clock(setup.config.clock_hz), setup.config, stage);
@@ -260,8 +262,7 @@ pub fn run_field(setup: Setup) -> ! {
     });
     let mut sent = 0u32;
     for seq in 0..5u32 {
-        let hold = nominal / 100 * u64::from(100 - 4 * seq);
-        HOLD.store(u32::try_from(hold).unwrap_or(u32::MAX), Ordering::Relaxed);
+        HOLD.store(nominal / 100 * (100 - 4 * seq), Ordering::Relaxed);
         let temp = lo + (hi - lo) / 4 * seq as i32;
         tester.set_temperature(temp);
         let Ok(m) = tester.measure() else { exit(false) };
@@ -287,11 +288,11 @@ pub fn run_field(setup: Setup) -> ! {
     }
     let _ = tracker.periods_to_limit();
     // The report: after the last frame delimiter, one text line.
-    let mut digits = [0u8; 20];
+    let mut digits = [0u8; 10];
     uart.write(b"field-tester records ");
-    uart.write(decimal(u64::from(sent), &mut digits));
+    uart.write(decimal(sent, &mut digits));
     uart.write(b" stack-bytes ");
-    uart.write(decimal(u64::from(stack_used()), &mut digits));
+    uart.write(decimal(stack_used(), &mut digits));
     uart.write(b"\n");
     exit(sent == 5)
 }
