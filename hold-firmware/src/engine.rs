@@ -210,6 +210,11 @@ where
         &self.config
     }
 
+    /// The prepared stage holds are judged with.
+    pub const fn stage(&self) -> &Prepared {
+        &self.stage
+    }
+
     /// Mutable access to the tick source (e.g. to read it between measurements).
     pub fn clock_mut(&mut self) -> &mut K {
         &mut self.clock

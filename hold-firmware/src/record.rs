@@ -161,18 +161,28 @@ fn payload(r: &Record, out: &mut Out) -> Result<(), FrameError> {
     out.option(r.c_deviation_ppm, Out::signed)
 }
 
-/// Encodes a record into one frame, delimiter included.
+/// Encodes a record into one frame in `frame`, delimiter included; returns
+/// the frame's length. What a chip calls: no copy, nothing but `frame` and a
+/// 66-byte payload buffer on the stack.
 ///
 /// # Errors
 /// [`FrameError::Encode`] if it does not fit (not reachable for a [`Record`]).
-pub fn encode(record: &Record) -> Result<heapless::Vec<u8, FRAME_MAX>, FrameError> {
+pub fn encode_into(record: &Record, frame: &mut [u8; FRAME_MAX]) -> Result<usize, FrameError> {
     let mut out = Out { buf: [0; PAYLOAD_MAX + 4], at: 0 };
     payload(record, &mut out)?;
     let n = out.at;
     let crc = crate::crc32::checksum(out.buf.get(..n).ok_or(FrameError::Encode)?);
     out.buf.get_mut(n..n + 4).ok_or(FrameError::Encode)?.copy_from_slice(&crc.to_le_bytes());
+    stuff(out.buf.get(..n + 4).ok_or(FrameError::Encode)?, frame)
+}
+
+/// Encodes a record into one frame, delimiter included.
+///
+/// # Errors
+/// [`FrameError::Encode`] if it does not fit (not reachable for a [`Record`]).
+pub fn encode(record: &Record) -> Result<heapless::Vec<u8, FRAME_MAX>, FrameError> {
     let mut frame = [0u8; FRAME_MAX];
-    let len = stuff(out.buf.get(..n + 4).ok_or(FrameError::Encode)?, &mut frame)?;
+    let len = encode_into(record, &mut frame)?;
     // One block copy (from_slice would copy byte by byte), then cut to length.
     let mut v = heapless::Vec::from_array(frame);
     v.truncate(len);
@@ -297,6 +307,9 @@ mod tests {
             let mut want = [0u8; FRAME_MAX];
             let n = cobs::encode(&payload[..used + 4], &mut want);
             let got = encode(&r).unwrap_or_default();
+            let mut frame = [0u8; FRAME_MAX];
+            let len = encode_into(&r, &mut frame).unwrap_or(0);
+            proptest::prop_assert_eq!(&frame[..len], &got[..]);
             proptest::prop_assert_eq!(&got[..got.len() - 1], &want[..n]);
             proptest::prop_assert_eq!(got.last(), Some(&0));
             proptest::prop_assert_eq!(decode(&got), Ok(r));

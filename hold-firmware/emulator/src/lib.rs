@@ -244,13 +244,14 @@ impl DelayNs for Delay {
 /// line gives the records sent and the deepest stack use, and the emulation
 /// ends (success if all five records were sent). Free of panic paths: the
 /// field tester links it under a panic handler that does not exist.
-pub fn run_field(setup: Setup) -> ! {
-    let stage = setup.stage;
+pub fn run_field(setup: &Setup) -> ! {
+    let clock_hz = setup.config.clock_hz;
+    let mut tester = Tester::new(Trigger, Output, Delay, Clock(clock_hz), setup.config, setup.stage);
+    let stage = tester.stage();
     // In u32 (ticks of a slow clock): a 64-bit division would link its routine.
     let nominal = u32::try_from(stage.hold_ticks_at(stage.ref_mdeg_c()).unwrap_or(0)).unwrap_or(u32::MAX);
     let (lo, hi) = stage.temp_range_mdeg_c();
     let mut uart = Uart0::new();
-    let mut tester = Tester::new(Trigger, Output, Delay, Clock(setup.config.clock_hz), setup.config, stage);
     let mut tracker: DriftTracker<64> = DriftTracker::new(DriftConfig {
         baseline_count: 2,
         lambda_q16: 13_107,
@@ -266,7 +267,7 @@ pub fn run_field(setup: Setup) -> ! {
         let temp = lo + (hi - lo) / 4 * seq as i32;
         tester.set_temperature(temp);
         let Ok(m) = tester.measure() else { exit(false) };
-        let dev = m.hold_ticks.and_then(|h| stage.deviation_ppm_at(h, temp).ok());
+        let dev = m.hold_ticks.and_then(|h| tester.stage().deviation_ppm_at(h, temp).ok());
         let drift = tracker.update(dev.unwrap_or(0)).state;
         let rec = Record {
             seq,
@@ -274,15 +275,16 @@ pub fn run_field(setup: Setup) -> ! {
             press_ticks: m.press_ticks,
             on_ticks: m.on_ticks,
             hold_ticks: m.hold_ticks,
-            clock_hz: setup.config.clock_hz,
+            clock_hz,
             temp_mdeg_c: Some(temp),
             verdict: m.verdict,
             hint: m.hint,
             drift,
             c_deviation_ppm: dev,
         };
-        if let Ok(frame) = record::encode(&rec) {
-            uart.write(&frame);
+        let mut frame = [0u8; record::FRAME_MAX];
+        if let Ok(len) = record::encode_into(&rec, &mut frame) {
+            uart.write(frame.get(..len).unwrap_or(&[]));
             sent += 1;
         }
     }

@@ -58,7 +58,7 @@ fn main() -> ! {
         Some(Setup { config, stage: Prepared::prepare(&stage, &spread, clock_hz).ok()? })
     })();
     match setup {
-        Some(setup) => run_field(setup),
+        Some(setup) => run_field(&setup),
         None => exit(false),
     }
 }

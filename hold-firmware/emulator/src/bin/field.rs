@@ -29,11 +29,18 @@ fn panic(_: &core::panic::PanicInfo) -> ! {
     }
 }
 
+/// The settings from flash. Out of line, so that the loader's temporaries
+/// are gone from the stack before the measuring starts.
+#[inline(never)]
+fn load() -> Option<Setup> {
+    Setup::from_blob(SETUP).ok()
+}
+
 #[entry]
 fn main() -> ! {
     paint_stack();
-    match Setup::from_blob(SETUP) {
-        Ok(setup) => run_field(setup),
-        Err(_) => exit(false),
+    match load() {
+        Some(setup) => run_field(&setup),
+        None => exit(false),
     }
 }
