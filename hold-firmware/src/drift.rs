@@ -295,10 +295,20 @@ impl<const N: usize> DriftTracker<N> {
             self.base_sq += x * x;
             if self.base_n == needed {
                 // n ≥ 2 (baseline_needed); the checked forms keep that off the chip's panic paths.
-                // |Σx| ≤ 256·2^23 = 2^31 and n ≤ 256: a 32-bit division, truncating as before.
+                // Truncated toward zero, as an integer division would (the
+                // Norm quotient is exact to far below one sample unit here:
+                // |Σx| < 2^31, so 2^-30 of the mean is below 1/256).
                 let n = i64::from(self.base_n);
-                let sum32 = i32::try_from(self.base_sum).unwrap_or(0);
-                self.center = i64::from(sum32.checked_div(i32::from(self.base_n)).unwrap_or(0));
+                self.center = {
+                    let q = ratio(self.base_sum, n).unwrap_or(0);
+                    if q * n > self.base_sum && q > 0 {
+                        q - 1
+                    } else if q * n < self.base_sum && q < 0 {
+                        q + 1
+                    } else {
+                        q
+                    }
+                };
                 if self.config.sigma.is_none() {
                     let var = ratio(self.base_sq * n - self.base_sum * self.base_sum, n * (n - 1)).unwrap_or(0);
                     let sd = i64::try_from(isqrt(var.unsigned_abs())).unwrap_or(i64::MAX);

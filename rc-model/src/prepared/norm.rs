@@ -70,12 +70,52 @@ pub(crate) fn mul32s(a: i32, b: i32) -> i64 {
 }
 
 /// `(hi·2^32 + lo) / d` for `hi < d` and `d ≥ 2^31` (a normalised divisor),
-/// so the quotient fits 32 bits; rounded down. Two 32÷16-bit digit steps
-/// (Knuth's algorithm D as in Warren, *Hacker's Delight*, `divlu`), each a
-/// 32-bit division (one UDIV on Cortex-M3) and at most two corrections.
-/// Returns `u32::MAX` if the preconditions are broken.
+/// so the quotient fits 32 bits; rounded down. Returns `u32::MAX` if the
+/// preconditions are broken. Two 32÷16-bit digit steps where the core
+/// divides ([`div64_32_digits`]); on ARMv6-M, which does not, 32 steps of
+/// shift and subtract ([`div64_32_bits`]) — no library division routine
+/// (400 bytes of a field tester's flash) and fewer instructions than it.
 #[inline]
 pub(crate) fn div64_32(hi: u32, lo: u32, d: u32) -> u32 {
+    if d < (1 << 31) || hi >= d {
+        return u32::MAX;
+    }
+    #[cfg(all(target_arch = "arm", not(target_has_atomic = "32")))]
+    {
+        div64_32_bits(hi, lo, d)
+    }
+    #[cfg(not(all(target_arch = "arm", not(target_has_atomic = "32"))))]
+    {
+        div64_32_digits(hi, lo, d)
+    }
+}
+
+/// [`div64_32`] bit by bit: the remainder stays below `d`, so after each
+/// left shift it is below 2^33, and one compare decides the quotient bit.
+#[cfg(any(test, all(target_arch = "arm", not(target_has_atomic = "32"))))]
+#[inline]
+pub(crate) fn div64_32_bits(hi: u32, lo: u32, d: u32) -> u32 {
+    let (mut r, mut l, mut q) = (hi, lo, 0u32);
+    for _ in 0..32 {
+        let carry = r >> 31;
+        r = (r << 1) | (l >> 31);
+        l <<= 1;
+        q <<= 1;
+        // With the carry the true remainder is r + 2^32 ≥ d: subtract (wrapping gives it).
+        if carry != 0 || r >= d {
+            r = r.wrapping_sub(d);
+            q |= 1;
+        }
+    }
+    q
+}
+
+/// [`div64_32`] in two 16-bit quotient digits (Knuth's algorithm D as in
+/// Warren, *Hacker's Delight*, `divlu`), each a 32-bit division (one UDIV on
+/// Cortex-M3) and at most two corrections.
+#[cfg(any(test, not(all(target_arch = "arm", not(target_has_atomic = "32")))))]
+#[inline]
+pub(crate) fn div64_32_digits(hi: u32, lo: u32, d: u32) -> u32 {
     if d < (1 << 31) || hi >= d {
         return u32::MAX;
     }
@@ -256,6 +296,7 @@ mod tests {
                 for lo in [0, 1, 0xFFFF, 0xFFFF_0000, u32::MAX] {
                     let n = (u64::from(hi) << 32) | u64::from(lo);
                     assert_eq!(u64::from(div64_32(hi, lo, d)), n / u64::from(d), "{n:#x}/{d:#x}");
+                    assert_eq!(u64::from(div64_32_bits(hi, lo, d)), n / u64::from(d), "bits {n:#x}/{d:#x}");
                 }
             }
         }
@@ -275,6 +316,8 @@ mod tests {
             let hi = ((u64::from(hi_frac) * u64::from(d)) >> 32) as u32; // < d
             let n = (u64::from(hi) << 32) | u64::from(lo);
             prop_assert_eq!(u64::from(div64_32(hi, lo, d)), n / u64::from(d));
+            prop_assert_eq!(u64::from(div64_32_bits(hi, lo, d)), n / u64::from(d));
+            prop_assert_eq!(u64::from(div64_32_digits(hi, lo, d)), n / u64::from(d));
         }
 
         /// Invariant: both products equal the compiler's.
