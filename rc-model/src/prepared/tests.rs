@@ -142,3 +142,39 @@ proptest! {
         prop_assert!((got / want - 1.0).abs() < 6e-9, "{} vs {}", got, want);
     }
 }
+
+proptest! {
+    /// Invariant: any bytes at all are refused or accepted, never a panic.
+    #[test]
+    fn any_bytes_are_refused_or_accepted_without_panic(bytes in proptest::collection::vec(any::<u8>(), PREPARED_LEN)) {
+        let _ = Prepared::from_bytes(&bytes);
+    }
+
+    /// Invariant: a prepared stage with damaged coefficients is either refused
+    /// when loaded or evaluates at every temperature of its range and any
+    /// measured hold without a panic or an overflow (tests run with overflow
+    /// checks on).
+    #[test]
+    fn a_damaged_stage_is_refused_or_evaluates_everywhere(
+        flips in proptest::collection::vec((0usize..PREPARED_LEN, 0u8..8), 1..6),
+        temps in proptest::collection::vec(any::<u32>(), 8),
+        holds in proptest::collection::vec(any::<u64>(), 8),
+    ) {
+        let p = Prepared::prepare(&junction_stage(), &warm_spread(), 1_000_000).unwrap_or_else(|e| panic!("{e}"));
+        let mut b = p.to_bytes();
+        for (at, bit) in flips {
+            b[at] ^= 1 << bit;
+        }
+        if let Ok(q) = Prepared::from_bytes(&b) {
+            let (lo, hi) = q.temp_range_mdeg_c();
+            let span = u64::from((hi - lo).unsigned_abs()) + 1;
+            for (t, h) in temps.iter().zip(&holds) {
+                let temp = lo + (u64::from(*t) % span) as i32;
+                let _ = q.hold_at(temp);
+                let _ = q.inverse_at(*h, temp);
+                let _ = q.deviation_ppm_at(*h, temp);
+                let _ = q.outcome_bytes(temp, *h);
+            }
+        }
+    }
+}
