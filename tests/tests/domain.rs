@@ -109,3 +109,71 @@ fn inputs_outside_the_domain_are_refused_by_name() {
     assert_eq!(m.inverse_c(Span::from_ns(999)).err(), Some(Error::OutOfDomain(rc_model::Quantity::Hold)));
     assert_eq!(Span::from_ticks(10, 999).err(), Some(Error::OutOfDomain(rc_model::Quantity::Clock)));
 }
+
+/// Prepares `s` at both clock extremes; evaluates the hot path at both ends of
+/// its range, the reference and between, for holds from 1 tick to `u64::MAX`.
+/// Returns whether it was prepared (a typed refusal is fine; `Arithmetic`,
+/// `NoConvergence` or a panic is not).
+fn prepare_and_evaluate(s: &Stage, spread: &rc_model::window::Spread) -> bool {
+    let mut any = false;
+    for clock_hz in [limits::CLOCK_HZ.0, limits::CLOCK_HZ.1] {
+        let p = match rc_model::Prepared::prepare(s, spread, clock_hz) {
+            Ok(p) => p,
+            Err(e) => {
+                assert!(is_typed_refusal(e), "prepare at {s:?}: {e:?}");
+                continue;
+            }
+        };
+        any = true;
+        let (lo, hi) = p.temp_range_mdeg_c();
+        for temp in [lo, (lo + p.ref_mdeg_c()) / 2, p.ref_mdeg_c(), (p.ref_mdeg_c() + hi) / 2, hi] {
+            let hold = match p.hold_at(temp) {
+                Ok(h) => h.round().unwrap_or(u64::MAX),
+                Err(e) => {
+                    assert!(is_typed_refusal(e), "hold at {temp} m°C, {s:?}: {e:?}");
+                    continue;
+                }
+            };
+            for ticks in [1, hold / 2 + 1, hold.max(1), hold.saturating_mul(3), u64::MAX] {
+                for r in [p.inverse_at(ticks, temp).map(|e| e.deviation_ppm), p.deviation_ppm_at(ticks, temp)] {
+                    if let Err(e) = r {
+                        assert!(is_typed_refusal(e), "inverse at {temp} m°C, {ticks} ticks, {s:?}: {e:?}");
+                    }
+                }
+            }
+        }
+    }
+    any
+}
+
+/// The hot path's overflow claim (`rc_model::prepared` module docs): a
+/// stage is either refused by `Prepared::prepare` with a typed error or,
+/// once prepared, evaluates at both ends of its range, at the reference and
+/// between — hold, inverse and deviation, at the slowest and the fastest
+/// clock — without the `Arithmetic` error or an overflow (tests run with
+/// overflow checks on). The domain's value corners over the whole
+/// temperature range with no coefficients (any coefficient moves a corner
+/// out of the domain, a correct refusal), and the sweep's grid and random
+/// stages with strong coefficients over the whole range.
+#[test]
+fn every_prepared_stage_evaluates_at_its_range_ends() {
+    use rc_model::window::{Spread, Tempco};
+    let flat = Spread {
+        temp_mdeg_c: Some(limits::TEMP_MDEG_C),
+        tempco: Tempco { r_ppm_per_c: 0, c_ppm_per_c: 0, drop_uv_per_c: 0, threshold_ppm_per_c: 0 },
+        ..Spread::default()
+    };
+    let strong = Spread {
+        tempco: Tempco { r_ppm_per_c: 250, c_ppm_per_c: -1_500, drop_uv_per_c: -2_500, threshold_ppm_per_c: 400 },
+        ..flat
+    };
+    let corners: Vec<Stage> =
+        corners().into_iter().filter(|s| Model::new(s).and_then(|m| m.evaluate()).is_ok()).collect();
+    let at_corners = corners.iter().filter(|s| prepare_and_evaluate(s, &flat)).count();
+    let mut inner = host_check::agree::grid();
+    inner.extend((0..1_500).map(|i| host_check::agree::random_stage(5, i)));
+    let at_inner = inner.iter().filter(|s| prepare_and_evaluate(s, &strong)).count();
+    // Both parts must prepare a good share, or the test proves little.
+    assert!(at_corners > corners.len() / 3, "corners prepared: {at_corners} of {}", corners.len());
+    assert!(at_inner > 500, "grid and random stages prepared: {at_inner} of {}", inner.len());
+}

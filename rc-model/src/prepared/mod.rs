@@ -42,7 +42,8 @@
 //! `(σ + …)·Δ` are 32×32-bit products below 2^49; `y0` plus that stays
 //! inside `i64`. The one narrowing, `σ + κ·Δ` to `i32`, is checked (an error,
 //! not reached in the prepared range: prepare evaluates both ends). The test
-//! `every_prepared_stage_evaluates_at_its_range_ends` sweeps the domain's corners.
+//! `every_prepared_stage_evaluates_at_its_range_ends` (`tests/tests/domain.rs`) prepares the
+//! domain's corners and the sweep's stages and evaluates each across its range.
 //!
 //! # Inverse
 //!
