@@ -72,9 +72,15 @@ where
         (self.trigger, self.output, self.delay, self.clock)
     }
 
+    /// `ticks` as ns for the delay, saturated at `u32::MAX` (4.29 s): a wait
+    /// of five seconds' ticks or more saturates at once, so the product below
+    /// stays under 5·clock·10^9 ≤ 10^18 < 2^64 (no `u128` on the chip).
     fn ticks_to_ns(&self, ticks: u64) -> u32 {
-        let ns = u128::from(ticks) * 1_000_000_000 / u128::from(self.config.clock_hz.max(1));
-        u32::try_from(ns).unwrap_or(u32::MAX)
+        let clock = u64::from(self.config.clock_hz.max(1));
+        if ticks >= clock.saturating_mul(5) {
+            return u32::MAX;
+        }
+        u32::try_from(ticks * 1_000_000_000 / clock).unwrap_or(u32::MAX)
     }
 
     /// Waits up to `ticks` for the output to reach `active`; `true` if it did.
