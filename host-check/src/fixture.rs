@@ -82,8 +82,13 @@ pub fn settings_from_text(
 
 /// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).
 #[must_use]
-pub fn render(c: &Config, emit: Emit, name: &str) -> String {
+pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
+    let c = &setup.config;
     let secs = |t: u64| t as f64 / f64::from(c.clock_hz);
+    let stage = &setup.stage;
+    let hold_ref = stage.hold_ticks_at(stage.ref_mdeg_c()).unwrap_or(0);
+    let (lo, hi) = stage.temp_range_mdeg_c();
+    let deg = |m: i32| f64::from(m) / 1000.0;
     match emit {
         Emit::Text => {
             let mut o = String::new();
@@ -100,6 +105,13 @@ pub fn render(c: &Config, emit: Emit, name: &str) -> String {
             row(&mut o, "glitch filter", c.glitch_ticks);
             let _ = writeln!(o, "  {:<22} {:>14} ns", "poll every", c.poll_ns);
             let _ = writeln!(o, "  {:<22} {:>14} level changes", "chatter above", c.chatter_limit);
+            let _ = writeln!(
+                o,
+                "  prepared stage: {hold_ref} ticks of hold at {} °C; holds judged from {} °C to {} °C",
+                deg(stage.ref_mdeg_c()),
+                deg(lo),
+                deg(hi)
+            );
             o
         }
         Emit::Rust => format!(
@@ -107,7 +119,10 @@ pub fn render(c: &Config, emit: Emit, name: &str) -> String {
              pub const HOLD_WINDOW: hold_firmware::Config = hold_firmware::Config {{\n    \
              clock_hz: {},\n    settle_ticks: {},\n    press_ticks: {},\n    glitch_ticks: {},\n    poll_ns: {},\n    \
              on_timeout_ticks: {},\n    hold_min_ticks: {},\n    hold_max_ticks: {},\n    hold_timeout_ticks: {},\n    \
-             chatter_limit: {},\n}};\n",
+             chatter_limit: {},\n}};\n\n\
+             /// The same timings and the stage prepared for the hot path, as the settings blob:\n\
+             /// `hold_firmware::Setup::from_blob(&HOLD_SETUP)` (CRC-checked, versioned).\n\
+             pub const HOLD_SETUP: [u8; hold_firmware::BLOB_LEN] = [{}];\n",
             c.clock_hz,
             c.settle_ticks,
             c.press_ticks,
@@ -117,7 +132,8 @@ pub fn render(c: &Config, emit: Emit, name: &str) -> String {
             c.hold_min_ticks,
             c.hold_max_ticks,
             c.hold_timeout_ticks,
-            c.chatter_limit
+            c.chatter_limit,
+            setup.to_blob().iter().map(|b| format!("{b:#04x}")).collect::<Vec<_>>().join(", ")
         ),
         Emit::Json | Emit::Bin => {
             let v = json!({
@@ -134,6 +150,12 @@ pub fn render(c: &Config, emit: Emit, name: &str) -> String {
                 "chatter_limit": c.chatter_limit,
                 "hold_min_s": secs(c.hold_min_ticks),
                 "hold_max_s": secs(c.hold_max_ticks),
+                "prepared_stage": {
+                    "hold_at_reference_ticks": hold_ref,
+                    "reference_mdeg_c": stage.ref_mdeg_c(),
+                    "temp_range_mdeg_c": [lo, hi],
+                    "bytes_hex": stage.to_bytes().iter().map(|b| format!("{b:02x}")).collect::<String>(),
+                },
             });
             format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default())
         }

@@ -373,7 +373,6 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             let sf = stagefile::load(&stage).map_err(|e| BadInput(e.to_string()))?;
             let (setup, _, _) =
                 host_check::fixture::settings_from_text(&sf, &clock, &guard, poll.as_deref()).map_err(BadInput)?;
-            let config = setup.config;
             let name = sf.name.clone().unwrap_or_else(|| stage.display().to_string());
             match what.as_str() {
                 "bin" => {
@@ -388,7 +387,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                         "json" => host_check::fixture::Emit::Json,
                         _ => host_check::fixture::Emit::Text,
                     };
-                    let text = host_check::fixture::render(&config, e, &name);
+                    let text = host_check::fixture::render(&setup, e, &name);
                     match out {
                         Some(path) => {
                             std::fs::write(&path, text).with_context(|| format!("writing {}", path.display()))?

@@ -213,6 +213,19 @@ fn window_blob_round_trips_through_the_firmware_loader() {
     let json = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--poll", "100us", "--emit", "json"]);
     let v: serde_json::Value = serde_json::from_slice(&json.stdout).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!(v["hold_min_ticks"].as_u64(), Some(loaded.hold_min_ticks));
+    assert_eq!(v["prepared_stage"]["hold_at_reference_ticks"].as_u64(), Some(nominal));
+    let hex: String = setup.stage.to_bytes().iter().map(|b| format!("{b:02x}")).collect();
+    assert_eq!(v["prepared_stage"]["bytes_hex"].as_str(), Some(hex.as_str()));
+    // The Rust emit carries the same blob, byte for byte.
+    let rust = run(dir.path(), &["window", "stage.toml", "--clock", "1MHz", "--poll", "100us", "--emit", "rust"]);
+    let rust = text(&rust.stdout);
+    let listed = rust.rsplit("HOLD_SETUP").next().and_then(|t| t.split('[').nth(2)).and_then(|t| t.split(']').next());
+    let bytes: Vec<u8> = listed
+        .unwrap_or_default()
+        .split(',')
+        .filter_map(|b| u8::from_str_radix(b.trim().trim_start_matches("0x"), 16).ok())
+        .collect();
+    assert_eq!(bytes, blob, "HOLD_SETUP in the Rust emit");
     assert_eq!(v["hold_max_ticks"].as_u64(), Some(loaded.hold_max_ticks));
     assert_eq!(loaded.clock_hz, 1_000_000);
     assert_eq!(loaded.poll_ns, 100_000);
