@@ -19,10 +19,13 @@
 //! (measured by the tests: see `temperature_fit_follows_the_solver`).
 //!
 //! *Per measurement* (the hot path, always built): [`Prepared::hold_at`],
-//! [`Prepared::inverse_at`]. No `u128`, no division inside a loop: two
-//! quadratics (two 32×32→64-bit products each), one [`ln_ratio`] (one
-//! 64÷32 division), a few 32×32-bit products; the inverse adds one division
-//! and two linear factors.
+//! [`Prepared::inverse`], [`Prepared::inverse_at`],
+//! [`Prepared::deviation_ppm_at`]. No `u128`, no division inside a loop: a
+//! hold is three quadratics (two 32×32→64-bit products each), one
+//! [`ln_ratio`] (table lookups; a 64÷32 division only for a ratio below
+//! 1.125) and two [`Norm`] products; an inverse is one [`Norm`] quotient by
+//! that hold — at the reference temperature by the hold cached when the
+//! stage was prepared or loaded — and a product or two.
 //!
 //! # Q formats of the stored quadratics
 //!
@@ -48,12 +51,13 @@
 //! # Inverse
 //!
 //! A measured hold `h` at temperature `T` gives the ratio `h / hold(T)`. For a
-//! press that charges the capacitor fully (what [`crate`]'s users configure:
-//! the firmware presses for at least five charge time constants), the hold
-//! is proportional to `C`, so the effective capacitance is exactly
-//! `C(T)·ratio`; after a partial press the release voltage falls as `C`
-//! rises and the ratio is a first-order estimate (use the solver's
-//! `Model::inverse_c` there). The resistor estimate `R(T)·ratio` is exact
+//! press that charges the capacitor fully (a stage file's press is commonly
+//! many charge time constants long), the hold is proportional to `C`, so the
+//! effective capacitance is exactly `C(T)·ratio`; after a partial press the
+//! release voltage falls as `C` rises and the ratio is a first-order
+//! estimate (use the solver's `Model::inverse_c` there; after five time
+//! constants, the least the firmware presses, the release voltage is 0.7 %
+//! short and the hold's elasticity in `C` about 0.99). The resistor estimate `R(T)·ratio` is exact
 //! only where the discharge ratio does not depend on `R` (no constant
 //! leakage current, no charge-path divider); otherwise it is first order.
 
