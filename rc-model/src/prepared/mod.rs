@@ -55,9 +55,11 @@
 //! many charge time constants long), the hold is proportional to `C`, so the
 //! effective capacitance is exactly `C(T)·ratio`; after a partial press the
 //! release voltage falls as `C` rises and the ratio is a first-order
-//! estimate (use the solver's `Model::inverse_c` there; after five time
+//! estimate (use the solver's `Model::inverse_c` there). After five time
 //! constants, the least the firmware presses, the release voltage is 0.7 %
-//! short and the hold's elasticity in `C` about 0.99). The resistor estimate `R(T)·ratio` is exact
+//! short and the hold's elasticity in `C` is `1 − 5·e^−5/ln(S/E)`, about
+//! 0.95 for a typical `ln(S/E)` of 0.7: a 10 % capacitance change then reads
+//! as about 9.5 %. The resistor estimate `R(T)·ratio` is exact
 //! only where the discharge ratio does not depend on `R` (no constant
 //! leakage current, no charge-path divider); otherwise it is first order.
 
