@@ -44,4 +44,10 @@ bash tests/no-soft-float.sh
 step "on the emulated chips: golden vectors (M0, M3), the field tester (no panic path, no soft float, no solver)"
 bash tests/emulator.sh
 
+step "the Raspberry Pi Pico example builds (compile check; not flashed here)"
+cargo run -q -p host-check --bin rchold -- window examples/kestrel-meter.toml --clock 1MHz \
+    --emit bin --out hold-firmware/boards/rp-pico/setup.bin
+(cd hold-firmware/boards/rp-pico && cargo fmt -- --check && cargo clippy -q --release -- -D warnings \
+    && cargo build -q --release)
+
 printf '\nall checks passed\n'
