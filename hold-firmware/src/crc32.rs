@@ -51,7 +51,8 @@ mod tests {
     use proptest::prelude::*;
 
     /// The catalogue's check value: CRC-32/ISO-HDLC of "123456789" is
-    /// 0xCBF43926 (Greg Cook's CRC catalogue, also the `crc` crate's `check`).
+    /// 0xCBF43926 (Greg Cook's CRC catalogue; typed from memory, and asserted
+    /// against the `crc` crate's own entry for the algorithm on the next line).
     #[test]
     fn check_value() {
         assert_eq!(checksum(b"123456789"), 0xCBF4_3926);
