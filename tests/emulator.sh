@@ -60,4 +60,48 @@ case "$stored" in
     *": 5 records stored, 0 already stored, 1 bad frames"*) echo "rchold listen on the chip's UART: $stored" ;;
     *) echo "emulator: rchold listen did not store the chip's five records: $stored" >&2; exit 1 ;;
 esac
+# The fixture on the chip: the real engine measures 206 simulated boards (200
+# healthy across the tolerance spread, the fault matrix) on both chips.
+for t in $M0 $M3; do
+    (cd $EMU && cargo build -q --release --bin scenarios --target $t)
+    qemu $EMU/target/$t/release/scenarios -serial file:"$GEN/fixture-$t.bin"
+done
+if ! cmp -s "$GEN/fixture-$M0.bin" "$GEN/fixture-$M3.bin"; then
+    echo "emulator: the M0 and the M3 sent different records for the same boards" >&2
+    exit 1
+fi
+echo "fixture scenario: the M0 and the M3 sent identical bytes"
+boards() { cargo run -q -p host-check --example emulator_boards -- "$@"; }
+boards check "$GEN/fixture-$M0.bin" "$GEN/boards.bin.expect"
+# The snapshot beside the firmware: the decoded records, reviewable as text.
+snapshot=$EMU/snapshots/fixture-lumen.txt
+boards render "$GEN/fixture-$M0.bin" > "$GEN/fixture-records.txt"
+if [ "${UPDATE_SNAPSHOTS:-}" = 1 ]; then
+    cp "$GEN/fixture-records.txt" "$snapshot"
+elif ! diff -u "$snapshot" "$GEN/fixture-records.txt"; then
+    echo "emulator: the records differ from $snapshot (UPDATE_SNAPSHOTS=1 rewrites it, on purpose only)" >&2
+    exit 1
+fi
+echo "fixture scenario: the records equal the snapshot $snapshot"
+# The station: every record stored once, and the f64 re-check confirms every verdict.
+rm -f "$GEN/fixture.db" "$GEN/fixture.db-wal" "$GEN/fixture.db-shm"
+cargo run -q -p host-check --bin rchold -- listen "$GEN/fixture-$M0.bin" --station emulated-fixture \
+    --stage examples/lumen-keypad.toml --clock 10k --db "$GEN/fixture.db" --quiet
+cargo run -q -p host-check --bin rchold -- yield --db "$GEN/fixture.db" --json > "$GEN/fixture-yield.json"
+python3 - "$GEN/fixture-yield.json" <<'PY'
+import json, sys
+v = json.load(open(sys.argv[1]))
+total, passed = v["all"]["total"], v["all"]["verdicts"][0]
+rc = v["recheck"]
+problems = []
+if (total, passed) != (206, 200):
+    problems.append(f"{total} stored and {passed} passed, where the scenario sends 206 with 200 healthy")
+if rc["disagreements_total"] != 0 or rc["agreed"] != rc["checked"] or rc["checked"] < 200:
+    problems.append(f"the f64 re-check agreed on {rc['agreed']} of {rc['checked']} verdicts")
+if problems:
+    sys.exit("emulator: the fixture report: " + "; ".join(problems))
+print(f"fixture scenario: {total} stored, {passed} pass, the f64 re-check confirms {rc['agreed']} of {rc['checked']} "
+      f"verdicts ({rc['not_checkable']} a hold does not decide)")
+PY
+
 echo "emulator checks passed"

@@ -24,6 +24,11 @@ generate_inputs() {
     cargo run -q --release -p rc-model --example golden_vectors -- "$GEN/vectors.bin"
     cargo run -q -p host-check --bin rchold -- window examples/kestrel-meter.toml --clock 10k \
         --emit bin --out "$GEN/field-setup.bin"
+    # The fixture scenario: the Lumen-3 stage at 10 kHz, its boards drawn on the host.
+    cargo run -q -p host-check --bin rchold -- window examples/lumen-keypad.toml --clock 10k \
+        --emit bin --out "$GEN/fixture-setup.bin"
+    cargo run -q -p host-check --example emulator_boards -- write examples/lumen-keypad.toml 10000 \
+        "$GEN/boards.bin"
 }
 
 # Soft-float routines a Cortex-M0 build would call, among an ELF's symbols.

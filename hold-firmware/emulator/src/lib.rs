@@ -6,6 +6,8 @@
 #![no_std]
 #![deny(missing_docs)]
 
+pub mod plant;
+
 use core::convert::Infallible;
 use core::sync::atomic::{AtomicBool, AtomicU32, Ordering};
 
