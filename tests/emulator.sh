@@ -104,4 +104,36 @@ print(f"fixture scenario: {total} stored, {passed} pass, the f64 re-check confir
       f"verdicts ({rc['not_checkable']} a hold does not decide)")
 PY
 
+# The field unit on the chip: 700 daily measurements through the drift tracker.
+for t in $M0 $M3; do
+    (cd $EMU && cargo build -q --release --bin aging --target $t)
+    qemu $EMU/target/$t/release/aging -serial file:"$GEN/aging-$t.bin"
+done
+if ! cmp -s "$GEN/aging-$M0.bin" "$GEN/aging-$M3.bin"; then
+    echo "emulator: the M0 and the M3 sent different records for the same days" >&2
+    exit 1
+fi
+echo "field unit: the M0 and the M3 sent identical bytes"
+boards aging-check "$GEN/aging-$M0.bin"
+rm -f "$GEN/aging.db" "$GEN/aging.db-wal" "$GEN/aging.db-shm"
+cargo run -q -p host-check --bin rchold -- listen "$GEN/aging-$M0.bin" --station emulated-field \
+    --stage examples/kestrel-meter.toml --clock 10k --seq-start 2024-01-01T06:00:00Z --seq-period 1d \
+    --db "$GEN/aging.db" --quiet
+# The forecast from the first year alone, against the simulated truth (C/C0 = 0.80 on day 608.75).
+cargo run -q -p host-check --bin rchold -- aging --db "$GEN/aging.db" --to 2025-01-01 --json > "$GEN/aging.json"
+python3 - "$GEN/aging.json" <<'PY'
+import datetime, json, sys
+units = json.load(open(sys.argv[1]))["units"]
+start = datetime.datetime(2024, 1, 1, 6, tzinfo=datetime.timezone.utc).timestamp() * 1000
+truth = 608.75 * 86_400_000
+if len(units) != 1 or units[0]["forecast_ms"] is None:
+    sys.exit(f"emulator: the aging report has no forecast for the field unit: {units}")
+got = units[0]["forecast_ms"] - start
+err = abs(got - truth) / truth
+if err > 0.2:
+    sys.exit(f"emulator: forecast day {got / 86_400_000:.1f} against the truth's 608.75 ({err:.1%} off; at most 20 %)")
+print(f"field unit: forecast from the first year, day {got / 86_400_000:.1f} against the truth's 608.75 "
+      f"({err:.2%} off), rate {units[0]['rate_pct_per_year']:.2f} %/year")
+PY
+
 echo "emulator checks passed"

@@ -29,6 +29,9 @@ generate_inputs() {
         --emit bin --out "$GEN/fixture-setup.bin"
     cargo run -q -p host-check --example emulator_boards -- write examples/lumen-keypad.toml 10000 \
         "$GEN/boards.bin"
+    # The field unit: Kestrel-5, 700 days, its capacitor losing 1 % a month.
+    cargo run -q -p host-check --example emulator_boards -- aging examples/kestrel-meter.toml 10000 \
+        "$GEN/aging-days.bin"
 }
 
 # Soft-float routines a Cortex-M0 build would call, among an ELF's symbols.

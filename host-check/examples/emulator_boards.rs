@@ -18,6 +18,15 @@
 //! `emulator_boards render UART.bin` prints the decoded records one per
 //! line, the form of the snapshot kept beside the emulator firmware.
 //!
+//! `emulator_boards aging STAGE.toml CLOCK_HZ OUT.bin` writes one field
+//! unit's daily measurements for 700 days: its capacitor loses 1 % a month
+//! (12 %/year, so C/C₀ reaches the 0.80 end-of-life limit on day 608.75, the
+//! simulated truth), the day's temperature follows the seasons with noise
+//! and moves the parts through the stage file's coefficients, and the unit's
+//! own sensor reads it within ±1.5 °C (as the demo's fleet). `aging-check
+//! UART.bin` fails unless the unit's drift states reach "drifting" before
+//! "beyond limit", and both are reached.
+//!
 //! Fixed-drop stages only: the chip's plant charges toward one target
 //! through one time constant.
 
@@ -25,9 +34,12 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::process::ExitCode;
 
+use hold_firmware::drift::DriftState;
 use hold_firmware::record;
 use host_check::spread::{draw, Dist};
 use host_check::stagefile;
+use rand::{Rng, SeedableRng};
+use rand_xoshiro::Xoshiro256PlusPlus;
 use rc_model::{Diode, Stage};
 
 /// Healthy boards in the file.
@@ -112,6 +124,7 @@ fn write(stage: &Path, clock_hz: u32, out: &Path) -> Result<(), String> {
         for v in [*unit, p[0], p[1], p[2], p[3], p[4], p[5], unit.wrapping_mul(0x9E37_79B9) | 1] {
             bytes.extend_from_slice(&v.to_le_bytes());
         }
+        bytes.extend_from_slice(&sf.spread.ref_mdeg_c.to_le_bytes());
         expect.push_str(&format!("{unit} {verdict} {hint}\n"));
     }
     std::fs::write(out, bytes).map_err(|e| format!("{}: {e}", out.display()))?;
@@ -153,6 +166,65 @@ fn check(uart: &Path, expect: &Path) -> Result<(), String> {
     }
 }
 
+/// Capacitance lost per year by the aging unit (1 % a month).
+const AGING_RATE: f64 = 0.12;
+/// Days the aging unit reports.
+const AGING_DAYS: u32 = 700;
+
+fn aging(stage: &Path, clock_hz: u32, out: &Path) -> Result<(), String> {
+    let sf = stagefile::load(stage).map_err(|e| e.to_string())?;
+    let (lo, hi) = sf.spread.temp_mdeg_c.unwrap_or((sf.spread.ref_mdeg_c, sf.spread.ref_mdeg_c));
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(0xA6E_D0A7);
+    let mut bytes = b"RCSB".to_vec();
+    bytes.extend_from_slice(&1u32.to_le_bytes());
+    bytes.extend_from_slice(&AGING_DAYS.to_le_bytes());
+    for day in 0..AGING_DAYS {
+        let years = f64::from(day) / 365.25;
+        let season = (2.0 * std::f64::consts::PI * (years - 0.3)).sin();
+        let temp_c = 18.0 + 12.0 * season + rng.random_range(-3.0..3.0);
+        let temp = ((temp_c * 1000.0).round() as i32).clamp(lo, hi);
+        let mut aged = sf.stage;
+        aged.c_ff = (sf.stage.c_ff as f64 * (1.0 - AGING_RATE * years)).round() as u64;
+        let at = sf.spread.at_temperature(&aged, temp).map_err(|e| e.to_string())?;
+        let p = plant(&at, None, clock_hz)?;
+        let sensor = (temp + rng.random_range(-1_500..=1_500)).clamp(lo, hi);
+        for v in [7_000, p[0], p[1], p[2], p[3], p[4], p[5], day | 1] {
+            bytes.extend_from_slice(&v.to_le_bytes());
+        }
+        bytes.extend_from_slice(&sensor.to_le_bytes());
+    }
+    std::fs::write(out, bytes).map_err(|e| format!("{}: {e}", out.display()))?;
+    println!(
+        "{}: unit 7000, {AGING_DAYS} days, C falling {:.0} %/year: end of life (C/C0 = 0.80) on day {:.2}",
+        out.display(),
+        AGING_RATE * 100.0,
+        0.2 / AGING_RATE * 365.25
+    );
+    Ok(())
+}
+
+fn aging_check(uart: &Path) -> Result<(), String> {
+    let bytes = std::fs::read(uart).map_err(|e| format!("{}: {e}", uart.display()))?;
+    let (mut drifting, mut beyond) = (None, None);
+    let mut n = 0u32;
+    for frame in bytes.split(|&b| b == 0).filter(|f| !f.is_empty()) {
+        let r = record::decode(frame).map_err(|e| format!("{}: a frame that does not decode: {e}", uart.display()))?;
+        n += 1;
+        match r.drift {
+            DriftState::Drifting => drifting = drifting.or(Some(r.seq)),
+            DriftState::BeyondLimit => beyond = beyond.or(Some(r.seq)),
+            _ => {}
+        }
+    }
+    match (drifting, beyond) {
+        (Some(d), Some(b)) if d < b && n == AGING_DAYS => {
+            println!("{}: {n} days; drifting from day {d}, beyond the limit from day {b}", uart.display());
+            Ok(())
+        }
+        other => Err(format!("{n} records; (first drifting day, first beyond-limit day) = {other:?}")),
+    }
+}
+
 fn render(uart: &Path) -> Result<(), String> {
     let bytes = std::fs::read(uart).map_err(|e| format!("{}: {e}", uart.display()))?;
     println!("# seq unit verdict hint press_ticks on_ticks hold_ticks c_deviation_ppm");
@@ -183,8 +255,13 @@ fn main() -> ExitCode {
         },
         ["check", uart, expect] => check(Path::new(uart), Path::new(expect)),
         ["render", uart] => render(Path::new(uart)),
+        ["aging", stage, clock, out] => match clock.parse() {
+            Ok(hz) => aging(Path::new(stage), hz, Path::new(out)),
+            Err(_) => Err(format!("clock {clock:?}: a whole number of Hz")),
+        },
+        ["aging-check", uart] => aging_check(Path::new(uart)),
         _ => Err(
-            "usage: emulator_boards write STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin"
+            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin"
                 .into(),
         ),
     };

@@ -19,7 +19,7 @@ use embedded_hal::delay::DelayNs;
 use embedded_hal::digital::{ErrorType, InputPin, OutputPin};
 use hold_firmware::TickSource;
 
-/// One simulated board, as the host writes it (all little-endian u32).
+/// One simulated board, as the host writes it (little-endian u32, the last i32).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub struct Board {
     /// Unit identifier for its record.
@@ -38,10 +38,12 @@ pub struct Board {
     pub noise_uv: u32,
     /// Seed of the noise.
     pub seed: u32,
+    /// The unit's own temperature reading at this measurement, m°C.
+    pub temp_mdeg_c: i32,
 }
 
 /// Bytes of one [`Board`] in the scenario file.
-pub const BOARD_LEN: usize = 32;
+pub const BOARD_LEN: usize = 36;
 
 impl Board {
     /// Reads one board from `BOARD_LEN` bytes.
@@ -57,6 +59,7 @@ impl Board {
             fall_uv: w(5)?,
             noise_uv: w(6)?,
             seed: w(7)?,
+            temp_mdeg_c: w(8)? as i32,
         })
     }
 }
