@@ -317,6 +317,9 @@ impl<const N: usize> DriftTracker<N> {
                 self.half_width = self.ewma_half_width();
                 self.ewma_q16 = self.center << 16;
                 self.state = DriftState::Steady;
+                // The baseline's completion is a state change like any other.
+                #[cfg(feature = "defmt")]
+                defmt::info!("drift state {} → {}", before, self.state);
             }
             return Update { state: self.state, ewma_q16: self.ewma_q16, cusum: (0, 0), changed: self.state != before };
         }

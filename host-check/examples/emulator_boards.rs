@@ -18,6 +18,13 @@
 //! `emulator_boards render UART.bin` prints the decoded records one per
 //! line, the form of the snapshot kept beside the emulator firmware.
 //!
+//! `emulator_boards defmt-check FIRMWARE.elf LOG.bin UART.bin` decodes the
+//! defmt frames the firmware wrote over semihosting (its log-string table
+//! read from the ELF by `defmt-decoder`) and fails unless there is one
+//! "hold measurement" line per record, naming the same verdict and hint,
+//! in the same order, and one "drift state" line per change of the drift
+//! state from record to record.
+//!
 //! `emulator_boards aging STAGE.toml CLOCK_HZ OUT.bin` writes one field
 //! unit's daily measurements for 700 days: its capacitor loses 1 % a month
 //! (12 %/year, so C/C₀ reaches the 0.80 end-of-life limit on day 608.75, the
@@ -225,6 +232,55 @@ fn aging_check(uart: &Path) -> Result<(), String> {
     }
 }
 
+fn defmt_check(elf: &Path, log: &Path, uart: &Path) -> Result<(), String> {
+    let elf_bytes = std::fs::read(elf).map_err(|e| format!("{}: {e}", elf.display()))?;
+    let table = defmt_decoder::Table::parse(&elf_bytes)
+        .map_err(|e| format!("{}: {e}", elf.display()))?
+        .ok_or_else(|| format!("{}: no defmt table (built without the defmt feature?)", elf.display()))?;
+    let bytes = std::fs::read(log).map_err(|e| format!("{}: {e}", log.display()))?;
+    let mut decoder = table.new_stream_decoder();
+    decoder.received(&bytes);
+    let mut lines = Vec::new();
+    loop {
+        match decoder.decode() {
+            Ok(frame) => lines.push(frame.display_message().to_string()),
+            Err(defmt_decoder::DecodeError::UnexpectedEof) => break,
+            Err(e) => return Err(format!("{}: frame {} does not decode: {e}", log.display(), lines.len())),
+        }
+    }
+    let logged: Vec<&String> = lines.iter().filter(|l| l.starts_with("hold measurement: ")).collect();
+    let changes: Vec<&String> = lines.iter().filter(|l| l.starts_with("drift state ")).collect();
+    let uart_bytes = std::fs::read(uart).map_err(|e| format!("{}: {e}", uart.display()))?;
+    let (mut sent, mut sent_changes) = (Vec::new(), Vec::new());
+    let mut state = DriftState::Settling;
+    for frame in uart_bytes.split(|&b| b == 0).filter(|f| !f.is_empty()) {
+        let r = record::decode(frame).map_err(|e| format!("{}: a frame that does not decode: {e}", uart.display()))?;
+        sent.push(format!("hold measurement: {} (hint {})", r.verdict.name(), r.hint.name()));
+        if r.drift != state {
+            sent_changes.push(format!("drift state {state:?} → {:?}", r.drift));
+            state = r.drift;
+        }
+    }
+    if logged.len() != sent.len() {
+        return Err(format!("{} measurements logged, {} records sent", logged.len(), sent.len()));
+    }
+    if let Some((i, (l, s))) = logged.iter().zip(&sent).enumerate().find(|(_, (l, s))| l.as_str() != s.as_str()) {
+        return Err(format!("record {i}: logged {l:?}, sent {s:?}"));
+    }
+    let changes: Vec<&str> = changes.iter().map(|c| c.as_str()).collect();
+    if changes != sent_changes.iter().map(String::as_str).collect::<Vec<_>>() {
+        return Err(format!("drift state changes logged {changes:?}, in the records {sent_changes:?}"));
+    }
+    println!(
+        "{}: {} defmt lines decoded; the {} measurements and {} drift state changes they log match the records, in order",
+        log.display(),
+        lines.len(),
+        logged.len(),
+        changes.len()
+    );
+    Ok(())
+}
+
 fn render(uart: &Path) -> Result<(), String> {
     let bytes = std::fs::read(uart).map_err(|e| format!("{}: {e}", uart.display()))?;
     println!("# seq unit verdict hint press_ticks on_ticks hold_ticks c_deviation_ppm");
@@ -260,8 +316,9 @@ fn main() -> ExitCode {
             Err(_) => Err(format!("clock {clock:?}: a whole number of Hz")),
         },
         ["aging-check", uart] => aging_check(Path::new(uart)),
+        ["defmt-check", elf, log, uart] => defmt_check(Path::new(elf), Path::new(log), Path::new(uart)),
         _ => Err(
-            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin"
+            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin | defmt-check ELF LOG.bin UART.bin"
                 .into(),
         ),
     };

@@ -4,13 +4,19 @@
 //! reading, measures the simulated stage, turns the hold into the
 //! capacitance deviation at that temperature (the hot path), updates the
 //! drift tracker and sends the record over UART0, as a unit in the field does.
+//! With the `defmt` feature its log points (verdicts, drift state changes) go
+//! out over semihosting as defmt frames.
 #![no_std]
 #![no_main]
 #![forbid(unsafe_code)]
 
 use cortex_m_rt::entry;
+#[cfg(feature = "defmt")]
+use defmt_semihosting as _;
 use hold_emulator::plant::{self, Board, Clock, Delay, Output, Trigger, BOARD_LEN};
-use hold_emulator::{exit, print, print_value, Uart0};
+#[cfg(not(feature = "defmt"))]
+use hold_emulator::print_value;
+use hold_emulator::{exit, print, Uart0};
 use hold_firmware::drift::{DriftConfig, DriftTracker};
 use hold_firmware::record::{self, Record};
 use hold_firmware::{Setup, Tester};
@@ -88,6 +94,10 @@ fn main() -> ! {
             sent += 1;
         }
     }
+    // With defmt the semihosting output carries its frames: the summary goes there too.
+    #[cfg(feature = "defmt")]
+    defmt::info!("aging: {} days measured and sent", sent);
+    #[cfg(not(feature = "defmt"))]
     print_value("aging: days measured and sent", sent);
     exit(sent == count)
 }

@@ -2,14 +2,20 @@
 //! boards drawn across the tolerance spread, and the fault matrix) is put
 //! behind the pins as a simulated stage (`hold_emulator::plant`), measured
 //! by the real engine with the fixture's settings blob, and its record goes
-//! out of UART0 as a frame, as a fixture sends it to its station.
+//! out of UART0 as a frame, as a fixture sends it to its station. With the
+//! `defmt` feature the engine's log points go out over semihosting as defmt
+//! frames.
 #![no_std]
 #![no_main]
 #![forbid(unsafe_code)]
 
 use cortex_m_rt::entry;
+#[cfg(feature = "defmt")]
+use defmt_semihosting as _;
 use hold_emulator::plant::{self, Board, Clock, Delay, Output, Trigger, BOARD_LEN};
-use hold_emulator::{exit, print, print_value, Uart0};
+#[cfg(not(feature = "defmt"))]
+use hold_emulator::print_value;
+use hold_emulator::{exit, print, Uart0};
 use hold_firmware::drift::DriftState;
 use hold_firmware::record::{self, Record};
 use hold_firmware::{Setup, Tester};
@@ -64,6 +70,10 @@ fn main() -> ! {
             sent += 1;
         }
     }
+    // With defmt the semihosting output carries its frames: the summary goes there too.
+    #[cfg(feature = "defmt")]
+    defmt::info!("scenarios: {} boards measured and sent", sent);
+    #[cfg(not(feature = "defmt"))]
     print_value("scenarios: boards measured and sent", sent);
     exit(sent == count)
 }
