@@ -72,6 +72,12 @@ if ! cmp -s "$GEN/fixture-$M0.bin" "$GEN/fixture-$M3.bin"; then
 fi
 echo "fixture scenario: the M0 and the M3 sent identical bytes"
 boards() { cargo run -q -p host-check --example emulator_boards -- "$@"; }
+boards host-run boards "$GEN/fixture-setup.bin" "$GEN/boards.bin" "$GEN/fixture-host.bin"
+if ! cmp -s "$GEN/fixture-$M0.bin" "$GEN/fixture-host.bin"; then
+    echo "emulator: the host's run of the same loop sent other records than the chips" >&2
+    exit 1
+fi
+echo "fixture scenario: the host's run of the same engine and simulated stage sent the same bytes"
 boards check "$GEN/fixture-$M0.bin" "$GEN/boards.bin.expect"
 # The snapshot beside the firmware: the decoded records, reviewable as text.
 snapshot=$EMU/snapshots/fixture-lumen.txt
@@ -114,6 +120,12 @@ if ! cmp -s "$GEN/aging-$M0.bin" "$GEN/aging-$M3.bin"; then
     exit 1
 fi
 echo "field unit: the M0 and the M3 sent identical bytes"
+boards host-run days "$GEN/field-setup.bin" "$GEN/aging-days.bin" "$GEN/aging-host.bin"
+if ! cmp -s "$GEN/aging-$M0.bin" "$GEN/aging-host.bin"; then
+    echo "emulator: the host's run of the same days sent other records than the chips" >&2
+    exit 1
+fi
+echo "field unit: the host's run sent the same bytes"
 boards aging-check "$GEN/aging-$M0.bin"
 rm -f "$GEN/aging.db" "$GEN/aging.db-wal" "$GEN/aging.db-shm"
 cargo run -q -p host-check --bin rchold -- listen "$GEN/aging-$M0.bin" --station emulated-field \

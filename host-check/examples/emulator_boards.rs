@@ -25,6 +25,11 @@
 //! in the same order, and one "drift state" line per change of the drift
 //! state from record to record.
 //!
+//! `emulator_boards host-run boards|days SETUP.bin FILE.bin OUT.bin` runs
+//! the same loops as the chips (`hold_sim::run_boards` or `run_days`, the
+//! engine behind the same simulated stage) on this host and writes the
+//! frames it would send: the chips' bytes must equal them.
+//!
 //! `emulator_boards aging STAGE.toml CLOCK_HZ OUT.bin` writes one field
 //! unit's daily measurements for 700 days: its capacitor loses 1 % a month
 //! (12 %/year, so C/C₀ reaches the 0.80 end-of-life limit on day 608.75, the
@@ -281,6 +286,23 @@ fn defmt_check(elf: &Path, log: &Path, uart: &Path) -> Result<(), String> {
     Ok(())
 }
 
+fn host_run(kind: &str, setup: &Path, file: &Path, out: &Path) -> Result<(), String> {
+    let blob = std::fs::read(setup).map_err(|e| format!("{}: {e}", setup.display()))?;
+    let setup = hold_firmware::Setup::from_blob(&blob).map_err(|e| format!("{}: {e}", setup.display()))?;
+    let bytes = std::fs::read(file).map_err(|e| format!("{}: {e}", file.display()))?;
+    let mut frames = Vec::new();
+    let sink = |frame: &[u8]| frames.extend_from_slice(frame);
+    let sent = match kind {
+        "boards" => hold_sim::run_boards(&setup, &bytes, sink),
+        "days" => hold_sim::run_days(&setup, &bytes, sink),
+        other => return Err(format!("{other:?}: boards or days")),
+    }
+    .map_err(|e| format!("{}: {e:?}", file.display()))?;
+    std::fs::write(out, &frames).map_err(|e| format!("{}: {e}", out.display()))?;
+    println!("{}: {sent} records from the host's run of the same loop", out.display());
+    Ok(())
+}
+
 fn render(uart: &Path) -> Result<(), String> {
     let bytes = std::fs::read(uart).map_err(|e| format!("{}: {e}", uart.display()))?;
     println!("# seq unit verdict hint press_ticks on_ticks hold_ticks c_deviation_ppm");
@@ -317,8 +339,9 @@ fn main() -> ExitCode {
         },
         ["aging-check", uart] => aging_check(Path::new(uart)),
         ["defmt-check", elf, log, uart] => defmt_check(Path::new(elf), Path::new(log), Path::new(uart)),
+        ["host-run", kind, setup, file, out] => host_run(kind, Path::new(setup), Path::new(file), Path::new(out)),
         _ => Err(
-            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin | defmt-check ELF LOG.bin UART.bin"
+            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin | defmt-check ELF LOG.bin UART.bin | host-run boards|days SETUP.bin FILE.bin OUT.bin"
                 .into(),
         ),
     };

@@ -6,7 +6,7 @@
 #![no_std]
 #![deny(missing_docs)]
 
-pub mod plant;
+pub use hold_sim::plant;
 
 use core::convert::Infallible;
 use core::sync::atomic::{AtomicBool, AtomicU32, Ordering};

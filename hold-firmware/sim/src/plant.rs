@@ -1,13 +1,13 @@
-//! A hold stage simulated on the chip: the node voltage integrated tick by
+//! A hold stage simulated in integers: the node voltage integrated tick by
 //! tick from the tick counter, behind embedded-hal pins, so that the real
-//! engine measures it as it would a board.
+//! engine measures it as it would a board — on an emulated chip or the host.
 //!
 //! Per tick, while the trigger is pressed the node moves toward the charge
 //! target `V∞` by the fraction `1 − e^(−1/τc)`; released, it falls toward 0
 //! by `1 − e^(−1/τd)` (τ in ticks). Both fractions, `V∞` and the thresholds
 //! come from the host (`host-check/examples/emulator_boards.rs`), which draws
 //! the boards and applies the faults, so the physics stays in one place and
-//! the chip only integrates. The comparator is the stage's second inverter:
+//! the simulation only integrates. The comparator is the stage's second inverter:
 //! active once the node (plus optional noise) rises above the rising
 //! threshold, inactive once it falls below the falling one. Time advances
 //! only in the delay between the engine's polls.
@@ -59,7 +59,7 @@ impl Board {
             fall_uv: w(5)?,
             noise_uv: w(6)?,
             seed: w(7)?,
-            temp_mdeg_c: w(8)? as i32,
+            temp_mdeg_c: i32::from_le_bytes(w(8)?.to_le_bytes()),
         })
     }
 }
