@@ -43,6 +43,22 @@ pub struct DriftConfig {
     pub limit: i32,
 }
 
+impl DriftConfig {
+    /// Settings for a field unit that measures its stage once a day and
+    /// tracks the capacitance deviation in ppm: a 20-day baseline, EWMA with
+    /// λ = 0.2 and L = 3, CUSUM with k = 0.5 % and h = 5 %, end of life at
+    /// −20 % (the demo's fleet and the emulated field unit use it).
+    pub const FIELD_UNIT: DriftConfig = DriftConfig {
+        baseline_count: 20,
+        lambda_q16: 13_107,
+        l_milli: 3_000,
+        sigma: None,
+        cusum_k: 5_000,
+        cusum_h: 50_000,
+        limit: -200_000,
+    };
+}
+
 /// Where the stage stands.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]

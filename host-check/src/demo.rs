@@ -236,18 +236,6 @@ fn fixture_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Record>, S
     Ok((records, setup))
 }
 
-/// The fleet's drift settings: baseline of 20 days, EWMA λ = 0.2 with 3σ
-/// limits, CUSUM k = 0.5 %, h = 5 %, end of life at −20 %.
-pub const FLEET_DRIFT: DriftConfig = DriftConfig {
-    baseline_count: 20,
-    lambda_q16: 13_107,
-    l_milli: 3_000,
-    sigma: None,
-    cusum_k: 5_000,
-    cusum_h: 50_000,
-    limit: -200_000,
-};
-
 /// One unit's aging: its rate (fraction of nominal per year) and hot offset.
 fn unit_profile(seed: u64, unit: u32) -> (f64, f64) {
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed ^ 0xA6E ^ u64::from(unit).wrapping_mul(0x9E37_79B9));
@@ -280,7 +268,7 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
             let board =
                 spread::draw(&sf.stage, &sf.spread, Dist::Normal { k_sigma: 3.0 }, sc.seed ^ 0xF1EE7, u64::from(u));
             let mut rng = Xoshiro256PlusPlus::seed_from_u64(sc.seed ^ 0x7E ^ u64::from(id));
-            let mut tracker: DriftTracker<64> = DriftTracker::new(FLEET_DRIFT);
+            let mut tracker: DriftTracker<64> = DriftTracker::new(DriftConfig::FIELD_UNIT);
             let mut out = Vec::with_capacity(sc.days as usize);
             for day in 0..sc.days {
                 let years = f64::from(day) / 365.25;

@@ -28,17 +28,6 @@ pub enum SimError {
     Engine,
 }
 
-/// The drift tracker of a field unit (the demo fleet's settings).
-pub const FIELD_DRIFT: DriftConfig = DriftConfig {
-    baseline_count: 20,
-    lambda_q16: 13_107,
-    l_milli: 3_000,
-    sigma: None,
-    cusum_k: 5_000,
-    cusum_h: 50_000,
-    limit: -200_000,
-};
-
 /// The boards of a file, checked and split.
 fn boards(file: &[u8]) -> Result<impl Iterator<Item = Option<Board>> + '_, SimError> {
     let count = match (file.get(..4), file.get(4..8), file.get(8..12)) {
@@ -98,7 +87,7 @@ pub fn run_boards(setup: &Setup, file: &[u8], mut send: impl FnMut(&[u8])) -> Re
 
 /// A field unit: each board of `file` is one day of the same unit, measured
 /// at the day's temperature reading; the hold's deviation at that
-/// temperature (the hot path) feeds the drift tracker ([`FIELD_DRIFT`]); each
+/// temperature (the hot path) feeds the drift tracker ([`DriftConfig::FIELD_UNIT`]); each
 /// record (sequence = day) goes to `send` as a frame. The unit tracks drift,
 /// not a production window: it accepts any hold up to its timeout. Returns
 /// the records sent.
@@ -111,7 +100,7 @@ pub fn run_days(setup: &Setup, file: &[u8], mut send: impl FnMut(&[u8])) -> Resu
     config.hold_max_ticks = config.hold_timeout_ticks.saturating_sub(1);
     let clock_hz = config.clock_hz;
     let mut tester = Tester::new(Trigger, Output, Delay, Clock, config, setup.stage);
-    let mut tracker: DriftTracker<64> = DriftTracker::new(FIELD_DRIFT);
+    let mut tracker: DriftTracker<64> = DriftTracker::new(DriftConfig::FIELD_UNIT);
     let mut sent = 0u32;
     for (day, board) in boards(file)?.enumerate() {
         let board = board.ok_or(SimError::File)?;
