@@ -11,6 +11,11 @@
 //! active once the node (plus optional noise) rises above the rising
 //! threshold, inactive once it falls below the falling one. Time advances
 //! only in the delay between the engine's polls.
+//!
+//! The stage lives in statics, as a chip's pins and counter would: a program
+//! simulates one stage at a time (the emulator firmware and the host's
+//! single-threaded `emulator_boards host-run`); tests running in parallel
+//! threads must not share it.
 
 use core::convert::Infallible;
 use core::sync::atomic::{AtomicBool, AtomicU32, Ordering};
