@@ -72,30 +72,50 @@ where
         (self.trigger, self.output, self.delay, self.clock)
     }
 
-    /// `ticks` as ns for the delay, saturated at `u32::MAX` (4.29 s): a wait
-    /// of five seconds' ticks or more saturates at once, so the product below
-    /// stays under 5·clock·10^9 ≤ 10^18 < 2^64 (no `u128` on the chip).
+    /// The longest delay asked for at once, ticks: four seconds' worth, under
+    /// the 4.29 s (`u32::MAX` ns) one `DelayNs` call can wait.
+    fn chunk_ticks(&self) -> u64 {
+        u64::from(self.config.clock_hz.max(1)) * 4
+    }
+
+    /// `ticks` (at most [`Self::chunk_ticks`]) as ns: below 4·10^9, and
+    /// ticks·10^9 below 4·clock·10^9 ≤ 8·10^17 < 2^64 (no `u128` on the chip).
     fn ticks_to_ns(&self, ticks: u64) -> u32 {
         let clock = u64::from(self.config.clock_hz.max(1));
-        if ticks >= clock.saturating_mul(5) {
-            return u32::MAX;
+        u32::try_from(ticks.min(self.chunk_ticks()) * 1_000_000_000 / clock).unwrap_or(u32::MAX)
+    }
+
+    /// Waits `ticks`, in delays of at most four seconds each.
+    async fn wait_ticks(&mut self, mut ticks: u64) {
+        while ticks > 0 {
+            let chunk = ticks.min(self.chunk_ticks());
+            self.delay.delay_ns(self.ticks_to_ns(chunk)).await;
+            ticks -= chunk;
         }
-        u32::try_from(ticks * 1_000_000_000 / clock).unwrap_or(u32::MAX)
     }
 
     /// Waits up to `ticks` for the output to reach `active`; `true` if it did.
-    async fn edge(&mut self, active: bool, ticks: u64) -> Result<bool, Error<E>> {
-        let ns = self.ticks_to_ns(ticks);
-        let wait = async {
-            if active {
-                self.output.wait_for_low().await
-            } else {
-                self.output.wait_for_high().await
+    /// A wait longer than one delay can last is raced in four-second pieces
+    /// (one race with a single delay would give up after 4.29 s).
+    async fn edge(&mut self, active: bool, mut ticks: u64) -> Result<bool, Error<E>> {
+        loop {
+            let chunk = ticks.min(self.chunk_ticks());
+            let ns = self.ticks_to_ns(chunk);
+            let wait = async {
+                if active {
+                    self.output.wait_for_low().await
+                } else {
+                    self.output.wait_for_high().await
+                }
+            };
+            match first(wait, self.delay.delay_ns(ns)).await {
+                Either::Left(r) => return r.map(|()| true).map_err(Error::Pin),
+                Either::Right(()) => {}
             }
-        };
-        match first(wait, self.delay.delay_ns(ns)).await {
-            Either::Left(r) => r.map(|()| true).map_err(Error::Pin),
-            Either::Right(()) => Ok(false),
+            ticks -= chunk;
+            if ticks == 0 {
+                return Ok(false);
+            }
         }
     }
 
@@ -153,7 +173,7 @@ where
         let dropped = self.settle(false, &mut sw, config.press_ticks, &mut glitches).await?.is_some();
         let t = sw.update(self.clock.now());
         if t < config.press_ticks {
-            self.delay.delay_ns(self.ticks_to_ns(config.press_ticks - t)).await;
+            self.wait_ticks(config.press_ticks - t).await;
         }
         let press = sw.update(self.clock.now());
         self.trigger.set_high().map_err(Error::Pin)?;
