@@ -79,6 +79,19 @@ if ! cmp -s "$GEN/fixture-$M0.bin" "$GEN/fixture-host.bin"; then
 fi
 echo "fixture scenario: the host's run of the same engine and simulated stage sent the same bytes"
 boards check "$GEN/fixture-$M0.bin" "$GEN/boards.bin.expect"
+# The async engine under embassy's executor on the M3: the same boards, each
+# edge awaited and raced against a delay; the same bytes as the host's run of
+# the same future, and every unit's expected verdict and hint (its holds are
+# timed at the edge, so its ticks differ from the blocking engine's).
+(cd $EMU && cargo build -q --release --features async --bin scenarios-async --target $M3)
+qemu $EMU/target/$M3/release/scenarios-async -serial file:"$GEN/fixture-async-$M3.bin"
+boards host-run boards-async "$GEN/fixture-setup.bin" "$GEN/boards.bin" "$GEN/fixture-async-host.bin"
+if ! cmp -s "$GEN/fixture-async-$M3.bin" "$GEN/fixture-async-host.bin"; then
+    echo "emulator: the M3's async engine sent other records than the host's run of it" >&2
+    exit 1
+fi
+boards check "$GEN/fixture-async-$M3.bin" "$GEN/boards.bin.expect"
+echo "fixture scenario, async engine: the M3 under the executor and the host sent the same bytes"
 # The snapshot beside the firmware: the decoded records, reviewable as text.
 snapshot=$EMU/snapshots/fixture-lumen.txt
 boards render "$GEN/fixture-$M0.bin" > "$GEN/fixture-records.txt"

@@ -22,6 +22,7 @@ generate_inputs >/dev/null
 for t in thumbv6m-none-eabi thumbv7m-none-eabi; do
     (cd hold-firmware/emulator && cargo clippy -q --release --features solver --target "$t" --bins -- -D warnings)
 done
+(cd hold-firmware/emulator && cargo clippy -q --release --features async --target thumbv7m-none-eabi --bins -- -D warnings)
 
 step "docs"
 RUSTDOCFLAGS="-D warnings" cargo doc -q --workspace --no-deps

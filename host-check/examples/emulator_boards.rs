@@ -25,8 +25,8 @@
 //! in the same order, and one "drift state" line per change of the drift
 //! state from record to record.
 //!
-//! `emulator_boards host-run boards|days SETUP.bin FILE.bin OUT.bin` runs
-//! the same loops as the chips (`hold_sim::run_boards` or `run_days`, the
+//! `emulator_boards host-run boards|boards-async|days SETUP.bin FILE.bin OUT.bin`
+//! runs the same loops as the chips (`hold_sim::run_boards`, `run_boards_async` or `run_days`, the
 //! engine behind the same simulated stage) on this host and writes the
 //! frames it would send: the chips' bytes must equal them.
 //!
@@ -294,8 +294,9 @@ fn host_run(kind: &str, setup: &Path, file: &Path, out: &Path) -> Result<(), Str
     let sink = |frame: &[u8]| frames.extend_from_slice(frame);
     let sent = match kind {
         "boards" => hold_sim::run_boards(&setup, &bytes, sink),
+        "boards-async" => host_check::twin::block_on(hold_sim::run_boards_async(&setup, &bytes, sink)),
         "days" => hold_sim::run_days(&setup, &bytes, sink),
-        other => return Err(format!("{other:?}: boards or days")),
+        other => return Err(format!("{other:?}: boards, boards-async or days")),
     }
     .map_err(|e| format!("{}: {e:?}", file.display()))?;
     std::fs::write(out, &frames).map_err(|e| format!("{}: {e}", out.display()))?;
@@ -341,7 +342,7 @@ fn main() -> ExitCode {
         ["defmt-check", elf, log, uart] => defmt_check(Path::new(elf), Path::new(log), Path::new(uart)),
         ["host-run", kind, setup, file, out] => host_run(kind, Path::new(setup), Path::new(file), Path::new(out)),
         _ => Err(
-            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin | defmt-check ELF LOG.bin UART.bin | host-run boards|days SETUP.bin FILE.bin OUT.bin"
+            "usage: emulator_boards write|aging STAGE.toml CLOCK_HZ OUT.bin | check UART.bin OUT.bin.expect | render UART.bin | aging-check UART.bin | defmt-check ELF LOG.bin UART.bin | host-run boards|boards-async|days SETUP.bin FILE.bin OUT.bin"
                 .into(),
         ),
     };

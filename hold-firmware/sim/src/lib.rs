@@ -53,6 +53,24 @@ fn send_record(rec: &Record, send: &mut impl FnMut(&[u8])) -> bool {
     }
 }
 
+/// A fixture's record of one board: sequence = board index, no temperature,
+/// no drift tracking.
+fn fixture_record(seq: usize, board: &Board, m: &hold_firmware::Measurement, clock_hz: u32) -> Record {
+    Record {
+        seq: seq as u32,
+        unit_id: board.unit_id,
+        press_ticks: m.press_ticks,
+        on_ticks: m.on_ticks,
+        hold_ticks: m.hold_ticks,
+        clock_hz,
+        temp_mdeg_c: None,
+        verdict: m.verdict,
+        hint: m.hint,
+        drift: DriftState::Settling,
+        c_deviation_ppm: m.c_deviation_ppm.and_then(|d| i32::try_from(d).ok()),
+    }
+}
+
 /// The fixture: each board of `file` behind the pins, measured once with
 /// `setup`; each record (sequence = board index, no temperature, no drift)
 /// goes to `send` as a frame. Returns the records sent.
@@ -67,20 +85,29 @@ pub fn run_boards(setup: &Setup, file: &[u8], mut send: impl FnMut(&[u8])) -> Re
         let board = board.ok_or(SimError::File)?;
         plant::fit(&board, clock_hz);
         let m = tester.measure().map_err(|_| SimError::Engine)?;
-        let rec = Record {
-            seq: seq as u32,
-            unit_id: board.unit_id,
-            press_ticks: m.press_ticks,
-            on_ticks: m.on_ticks,
-            hold_ticks: m.hold_ticks,
-            clock_hz,
-            temp_mdeg_c: None,
-            verdict: m.verdict,
-            hint: m.hint,
-            drift: DriftState::Settling,
-            c_deviation_ppm: m.c_deviation_ppm.and_then(|d| i32::try_from(d).ok()),
-        };
-        sent += u32::from(send_record(&rec, &mut send));
+        sent += u32::from(send_record(&fixture_record(seq, &board, &m, clock_hz), &mut send));
+    }
+    Ok(sent)
+}
+
+/// [`run_boards`] with the async engine (`hold_firmware::AsyncTester`): the
+/// same boards behind the same stage, each wait raced against a delay. The
+/// records name the same verdicts and hints; its holds are timed at the
+/// edge, the blocking engine's at its polls, so the ticks differ by less
+/// than a poll.
+///
+/// # Errors
+/// As [`run_boards`].
+#[cfg(feature = "async")]
+pub async fn run_boards_async(setup: &Setup, file: &[u8], mut send: impl FnMut(&[u8])) -> Result<u32, SimError> {
+    let clock_hz = setup.config.clock_hz;
+    let mut tester = hold_firmware::AsyncTester::new(Trigger, Output, Delay, Clock, setup.config, setup.stage);
+    let mut sent = 0u32;
+    for (seq, board) in boards(file)?.enumerate() {
+        let board = board.ok_or(SimError::File)?;
+        plant::fit(&board, clock_hz);
+        let m = tester.measure().await.map_err(|_| SimError::Engine)?;
+        sent += u32::from(send_record(&fixture_record(seq, &board, &m, clock_hz), &mut send));
     }
     Ok(sent)
 }

@@ -207,3 +207,79 @@ impl DelayNs for Delay {
         }
     }
 }
+
+/// The async side of the same stage: only the delay advances time, one tick
+/// per poll, and `Wait` only looks at the level, so a wait raced against a
+/// delay sees the output change within the tick it happens.
+#[cfg(feature = "async")]
+mod asynch {
+    use core::convert::Infallible;
+    use core::future::poll_fn;
+    use core::task::Poll;
+
+    use embedded_hal::digital::InputPin;
+
+    use super::{step, Delay, Output, CLOCK_HZ, NS_REMAINDER};
+    use core::sync::atomic::Ordering;
+
+    impl Output {
+        /// Resolves once the output is `active`; never advances time itself.
+        async fn until(&mut self, active: bool) {
+            poll_fn(|cx| {
+                if self.is_low().unwrap_or(false) == active {
+                    return Poll::Ready(());
+                }
+                cx.waker().wake_by_ref();
+                Poll::Pending
+            })
+            .await;
+        }
+    }
+
+    impl embedded_hal_async::digital::Wait for Output {
+        async fn wait_for_high(&mut self) -> Result<(), Infallible> {
+            self.until(false).await;
+            Ok(())
+        }
+        async fn wait_for_low(&mut self) -> Result<(), Infallible> {
+            self.until(true).await;
+            Ok(())
+        }
+        async fn wait_for_rising_edge(&mut self) -> Result<(), Infallible> {
+            self.until(true).await;
+            self.until(false).await;
+            Ok(())
+        }
+        async fn wait_for_falling_edge(&mut self) -> Result<(), Infallible> {
+            self.until(false).await;
+            self.until(true).await;
+            Ok(())
+        }
+        async fn wait_for_any_edge(&mut self) -> Result<(), Infallible> {
+            let now = self.is_low().unwrap_or(false);
+            self.until(!now).await;
+            Ok(())
+        }
+    }
+
+    impl embedded_hal_async::delay::DelayNs for Delay {
+        /// Whole ticks of `ns` (at least one), one per poll, carrying the
+        /// remainder as the blocking delay does.
+        async fn delay_ns(&mut self, ns: u32) {
+            let clock = u64::from(CLOCK_HZ.load(Ordering::Relaxed));
+            let total = u64::from(ns) * clock + u64::from(NS_REMAINDER.load(Ordering::Relaxed));
+            let mut left = (total / 1_000_000_000).max(1);
+            NS_REMAINDER.store(u32::try_from(total % 1_000_000_000).unwrap_or(0), Ordering::Relaxed);
+            poll_fn(|cx| {
+                step();
+                left -= 1;
+                if left == 0 {
+                    return Poll::Ready(());
+                }
+                cx.waker().wake_by_ref();
+                Poll::Pending
+            })
+            .await;
+        }
+    }
+}
