@@ -281,7 +281,11 @@ impl Prepared {
     /// # Errors
     /// As [`Prepared::hold_at`]'s temperature check.
     pub fn c_at(&self, temp_mdeg_c: i32) -> Result<Norm, Error> {
-        Ok(Norm::new(self.c_ff, 0) * Self::factor(&self.c_factor, self.delta(temp_mdeg_c)?)?)
+        self.c_at_delta(self.delta(temp_mdeg_c)?)
+    }
+
+    fn c_at_delta(&self, delta: i32) -> Result<Norm, Error> {
+        Ok(Norm::new(self.c_ff, 0) * Self::factor(&self.c_factor, delta)?)
     }
 
     /// The discharge resistor the part should have at `temp_mdeg_c`, mΩ.
@@ -329,11 +333,7 @@ impl Prepared {
     pub fn inverse_at(&self, hold_ticks: u64, temp_mdeg_c: i32) -> Result<Estimate, Error> {
         let delta = self.delta(temp_mdeg_c)?;
         let ratio = self.ratio(hold_ticks, delta)?;
-        Ok(Estimate {
-            ratio,
-            c_ff: Norm::new(self.c_ff, 0) * Self::factor(&self.c_factor, delta)? * ratio,
-            deviation_ppm: Self::deviation(ratio),
-        })
+        Ok(Estimate { ratio, c_ff: self.c_at_delta(delta)? * ratio, deviation_ppm: Self::deviation(ratio) })
     }
 
     /// [`Prepared::inverse_at`] at the reference temperature (no compensation:

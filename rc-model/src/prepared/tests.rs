@@ -134,8 +134,9 @@ proptest! {
         s.rise_uv = s.fall_uv.max(s.rise_uv);
         s.press_ns = crate::stage::limits::DAY_NS;
         let spread = Spread::default();
-        let Ok(m) = Model::new(&s).and_then(|m| m.evaluate()) else { return Ok(()) };
-        let _ = m;
+        if Model::new(&s).and_then(|m| m.evaluate()).is_err() {
+            return Ok(());
+        }
         let p = Prepared::prepare(&s, &spread, clock).unwrap_or_else(|e| panic!("{e}"));
         let want = solver_ticks(&s, &spread, 25_000, clock);
         let got = to_f64(p.hold_at(25_000).unwrap_or_else(|e| panic!("{e}")));
