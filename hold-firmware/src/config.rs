@@ -37,6 +37,31 @@ fn ticks(span: Span, clock_hz: u32) -> Result<u64, ModelError> {
     span.ticks(clock_hz)
 }
 
+/// Ticks of a `clock_hz` timer in one poll of `poll_ns`, rounded down.
+#[must_use]
+pub const fn poll_ticks(poll_ns: u32, clock_hz: u32) -> u64 {
+    poll_ns as u64 * clock_hz as u64 / 1_000_000_000
+}
+
+/// The pass window in ticks from the model's shortest and longest hold in
+/// ticks: each side widened by `guard_ppm` of itself, one tick of timer
+/// quantisation and one poll of latency (`poll_ticks`). The one definition
+/// of the widening: [`Config::from_window`] and the host's `f64` re-check
+/// both use it. Saturates instead of wrapping.
+#[must_use]
+pub const fn widen(min_ticks: u64, max_ticks: u64, guard_ppm: u32, poll_ticks: u64) -> (u64, u64) {
+    let slack = poll_ticks.saturating_add(1);
+    (
+        min_ticks.saturating_sub(guard(min_ticks, guard_ppm)).saturating_sub(slack),
+        max_ticks.saturating_add(guard(max_ticks, guard_ppm)).saturating_add(slack),
+    )
+}
+
+/// `guard_ppm` of `t`, rounded down, without overflow in the product.
+const fn guard(t: u64, guard_ppm: u32) -> u64 {
+    (t / 1_000_000).saturating_mul(guard_ppm as u64) + t % 1_000_000 * guard_ppm as u64 / 1_000_000
+}
+
 #[cfg(feature = "solver")]
 impl Config {
     /// Settings for a stage: the press lasts the stage's press, but at least
@@ -60,11 +85,11 @@ impl Config {
     ) -> Result<Config, ModelError> {
         let min = ticks(window.min, clock_hz)?;
         let max = ticks(window.max, clock_hz)?;
-        let guard = |t: u64| t / 1_000_000 * u64::from(guard_ppm) + t % 1_000_000 * u64::from(guard_ppm) / 1_000_000;
         let latency = ticks(nominal.on_latency, clock_hz)?;
         let full_charge = ticks(nominal.charge_tau, clock_hz)?.saturating_mul(5).saturating_add(latency);
         let press_ticks = ticks(press, clock_hz)?.max(full_charge);
-        let poll_ticks = u64::from(poll_ns) * u64::from(clock_hz) / 1_000_000_000;
+        let poll_ticks = poll_ticks(poll_ns, clock_hz);
+        let (hold_min_ticks, hold_max_ticks) = widen(min, max, guard_ppm, poll_ticks);
         Ok(Config {
             clock_hz,
             settle_ticks: (max / 20).max(4 * poll_ticks).max(1),
@@ -72,9 +97,8 @@ impl Config {
             glitch_ticks: (4 * poll_ticks).max(1).min(min / 50 + 1),
             poll_ns,
             on_timeout_ticks: (latency.saturating_mul(10)).max(press_ticks / 2).min(press_ticks).max(1),
-            // Timer quantisation (1 tick) and polling latency (1 poll) widen each side.
-            hold_min_ticks: min.saturating_sub(guard(min)).saturating_sub(poll_ticks + 1),
-            hold_max_ticks: max.saturating_add(guard(max)).saturating_add(poll_ticks + 1),
+            hold_min_ticks,
+            hold_max_ticks,
             hold_timeout_ticks: max.saturating_mul(16).max(1),
             chatter_limit: 8,
         })

@@ -48,8 +48,8 @@ use std::process::ExitCode;
 
 use hold_firmware::drift::DriftState;
 use hold_firmware::record;
-use host_check::spread::{draw, Dist};
-use host_check::stagefile;
+use host_check::design::spread::{draw, Dist};
+use host_check::stage::file as stagefile;
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rc_model::{Diode, Stage};
@@ -294,7 +294,7 @@ fn host_run(kind: &str, setup: &Path, file: &Path, out: &Path) -> Result<(), Str
     let sink = |frame: &[u8]| frames.extend_from_slice(frame);
     let sent = match kind {
         "boards" => hold_sim::run_boards(&setup, &bytes, sink),
-        "boards-async" => host_check::twin::block_on(hold_sim::run_boards_async(&setup, &bytes, sink)),
+        "boards-async" => host_check::sim::twin::block_on(hold_sim::run_boards_async(&setup, &bytes, sink)),
         "days" => hold_sim::run_days(&setup, &bytes, sink),
         other => return Err(format!("{other:?}: boards, boards-async or days")),
     }

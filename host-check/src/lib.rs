@@ -1,27 +1,11 @@
 #![doc = include_str!("../README.md")]
 
-pub mod agree;
-pub mod chart;
-pub mod codes;
-pub mod collect;
-pub mod compare;
-pub mod demo;
-pub mod eseries;
-pub mod eval;
-pub mod fixture;
-pub mod fleet;
-pub mod frames;
-pub mod html;
-mod lanes;
-pub mod log;
-pub mod netlist;
-pub mod pick;
-pub mod production;
+pub mod data;
+pub mod design;
+pub mod error;
+pub mod fmt;
 pub mod reference;
-pub mod spread;
-pub mod stagefile;
-pub mod stats;
-pub mod store;
-pub mod timestamp;
-pub mod twin;
-pub mod values;
+pub mod report;
+pub mod sim;
+pub mod stage;
+pub use error::{Error, Kind, Result};

@@ -19,7 +19,7 @@ fn text(b: &[u8]) -> String {
 }
 
 fn count(db: &Path) -> u64 {
-    host_check::store::Store::open(db).and_then(|s| s.count()).unwrap_or_else(|e| panic!("{e}"))
+    host_check::data::store::Store::open(db).and_then(|s| s.count()).unwrap_or_else(|e| panic!("{e}"))
 }
 
 fn synth(dir: &Path, name: &str, records: u64, seed: u64) {
@@ -108,7 +108,7 @@ fn a_killed_ingest_leaves_nothing_behind() {
     }
     child.kill().unwrap_or_else(|e| panic!("{e}"));
     let _ = child.wait();
-    let store = host_check::store::Store::open(&dir.path().join("rchold.db")).unwrap_or_else(|e| panic!("{e}"));
+    let store = host_check::data::store::Store::open(&dir.path().join("rchold.db")).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!(store.integrity().ok().as_deref(), Some("ok"));
     assert_eq!(store.count().ok(), Some(1_000));
     assert_eq!(store.sources().map(|s| s.len()).ok(), Some(1), "the killed file left a source row");

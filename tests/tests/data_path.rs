@@ -8,10 +8,10 @@ use std::io::Cursor;
 use hold_firmware::drift::DriftState;
 use hold_firmware::record::{self, Record};
 use hold_firmware::{Hint, Verdict};
-use host_check::collect::{self, Ingested, Labels, TimeRule};
-use host_check::demo::{self, Scenario};
-use host_check::store::{Filter, Store};
-use host_check::{log, timestamp};
+use host_check::data::collect::{self, Ingested, Labels, TimeRule};
+use host_check::data::store::{Filter, Store};
+use host_check::data::{log, time};
+use host_check::sim::demo::{self, Scenario};
 use proptest::prelude::*;
 
 fn tmp() -> tempfile::TempDir {
@@ -41,13 +41,13 @@ fn demo_scenario_end_to_end() {
     assert_eq!(store.integrity().ok().as_deref(), Some("ok"));
     // What the store's sources say matches what the demo counted.
     let sources = store.sources().unwrap_or_else(|e| panic!("{e}"));
-    let (stored, bad): (u64, u64) = sources.iter().fold((0, 0), |a, s| (a.0 + s.3, a.1 + s.5));
+    let (stored, bad): (u64, u64) = sources.iter().fold((0, 0), |a, s| (a.0 + s.records, a.1 + s.bad_frames));
     assert_eq!(stored, l.bay_a_stored + l.bay_b_stored + l.fleet_stored);
     assert_eq!(bad, l.bay_a_bad + l.fleet_bad);
 
     // The whole store re-checked against every setup (the meters' window is set by hand).
     let setups = store.setups().unwrap_or_else(|e| panic!("{e}"));
-    let mut all = host_check::production::Tally::new(&setups, true, None);
+    let mut all = host_check::report::yields::Tally::new(&setups, true, None);
     store
         .for_each(&Filter::default(), |s| all.add("any", &s.batch, s.measured_ms, &s.record, s.setup_id))
         .unwrap_or_else(|e| panic!("{e}"));
@@ -87,7 +87,7 @@ fn demo_scenario_end_to_end() {
     // Fleet: forecasts against the simulated truth (crossing of 80 % of the commissioning value).
     let f = &out.fleet;
     assert_eq!(f.units.len(), sc.units as usize);
-    let start = timestamp::parse_ms(demo::FLEET_START.as_bytes()).unwrap_or(0);
+    let start = time::parse_ms(demo::FLEET_START.as_bytes()).unwrap_or(0);
     let mut compared = 0;
     for u in &f.units {
         let truth = l.truth_ms.iter().find(|t| t.0 == u.unit).and_then(|t| t.1);
@@ -98,8 +98,8 @@ fn demo_scenario_end_to_end() {
             err <= 0.2,
             "unit {}: forecast {} vs truth {} ({:.1} %)",
             u.unit,
-            timestamp::date_of(fc),
-            timestamp::date_of(truth),
+            time::date_of(fc),
+            time::date_of(truth),
             err * 100.0
         );
         compared += 1;
@@ -274,7 +274,7 @@ fn two_writers_lose_nothing() {
 /// a bad line deep in a later piece is reported with its true line number.
 #[test]
 fn parallel_log_reading_matches_one_piece() {
-    use host_check::production::tally_logs;
+    use host_check::report::yields::tally_logs;
     let dir = tmp();
     let path = dir.path().join("p.csv");
     let mut out = Vec::new();
@@ -309,7 +309,7 @@ fn parallel_log_reading_matches_one_piece() {
         assert!((a.hold_s.mean - b.hold_s.mean).abs() <= 1e-12 * a.hold_s.mean.abs());
         assert!((a.hold_s.sd() - b.hold_s.sd()).abs() <= 1e-9 * a.hold_s.sd());
     }
-    let key = |p: &host_check::production::Part| (p.station.clone(), p.key.clone(), p.total, p.passed);
+    let key = |p: &host_check::report::yields::Part| (p.station.clone(), p.key.clone(), p.total, p.passed);
     assert_eq!(one.batches.iter().map(key).collect::<Vec<_>>(), four.batches.iter().map(key).collect::<Vec<_>>());
     assert_eq!(one.days.iter().map(key).collect::<Vec<_>>(), four.days.iter().map(key).collect::<Vec<_>>());
     // Break line 17,001 (data line 17,000): every split reports that line.
@@ -321,8 +321,10 @@ fn parallel_log_reading_matches_one_piece() {
     }
     std::fs::write(&path, lines.join("\n") + "\n").unwrap_or_else(|e| panic!("{e}"));
     for threads in [1, 2, 3, 8] {
-        let e =
-            tally_logs(std::slice::from_ref(&path), &none, None, false, None, &all, threads).err().unwrap_or_default();
+        let e = tally_logs(std::slice::from_ref(&path), &none, None, false, None, &all, threads)
+            .err()
+            .map(|e| e.to_string())
+            .unwrap_or_default();
         assert!(e.contains("p.csv:17001: clock_hz: \"1000000x\" is not a whole number"), "{threads} threads: {e}");
     }
 }

@@ -1,7 +1,7 @@
 //! The design tools: worst case, root-sum-square and Monte Carlo against each
 //! other and against reference distributions (the `statrs` crate).
 
-use host_check::spread::{self, Dist};
+use host_check::design::spread::{self, Dist};
 use rc_model::window::{Spread, Tempco, ThresholdSpread, Tolerance};
 use rc_model::{Model, Stage};
 use statrs::distribution::{ContinuousCDF, Normal, Uniform};
@@ -29,7 +29,7 @@ fn worst_case_contains_every_monte_carlo_sample() {
         ..Spread::default()
     };
     let w = sp.window(&stage()).unwrap_or_else(|f| panic!("{f:?}"));
-    let (lo, hi) = (host_check::eval::secs(w.min), host_check::eval::secs(w.max));
+    let (lo, hi) = (host_check::fmt::secs(w.min), host_check::fmt::secs(w.max));
     for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
         let m = spread::monte_carlo(&stage(), &sp, dist, 50_000, 9, &|_, _| {});
         assert_eq!(m.refused, 0);
@@ -124,9 +124,9 @@ fn histogram_marks_window_and_spec() {
 /// reference, holds within the asked tolerance, and its worst case does too.
 #[test]
 fn picked_parts_meet_the_target_by_the_reference() {
-    use host_check::eseries::Series;
-    use host_check::pick::{pick, template, Target};
+    use host_check::design::pick::{pick, template, Target};
     use host_check::reference::{evaluate, StageF};
+    use host_check::stage::eseries::Series;
     let targets = [
         (2e-3, 0.45, 5.0, "hc-schmitt"),
         (30.0, 0.5, 3.3, "hc-schmitt"),
@@ -172,7 +172,7 @@ fn picked_parts_meet_the_target_by_the_reference() {
 /// sample within 1e-4 relative, so percentiles agree far inside Monte Carlo error.
 #[test]
 fn fast_and_exact_monte_carlo_agree() {
-    use host_check::spread::{monte_carlo_with, Eval};
+    use host_check::design::spread::{monte_carlo_with, Eval};
     let sp = Spread {
         r: Tolerance::symmetric(10_000),
         c: Tolerance::symmetric(100_000),

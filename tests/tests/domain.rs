@@ -170,8 +170,8 @@ fn every_prepared_stage_evaluates_at_its_range_ends() {
     let corners: Vec<Stage> =
         corners().into_iter().filter(|s| Model::new(s).and_then(|m| m.evaluate()).is_ok()).collect();
     let at_corners = corners.iter().filter(|s| prepare_and_evaluate(s, &flat)).count();
-    let mut inner = host_check::agree::grid();
-    inner.extend((0..1_500).map(|i| host_check::agree::random_stage(5, i)));
+    let mut inner = host_check::design::agree::grid();
+    inner.extend((0..1_500).map(|i| host_check::design::agree::random_stage(5, i)));
     let at_inner = inner.iter().filter(|s| prepare_and_evaluate(s, &strong)).count();
     // Both parts must prepare a good share, or the test proves little.
     assert!(at_corners > corners.len() / 3, "corners prepared: {at_corners} of {}", corners.len());

@@ -4,7 +4,7 @@
 
 use hold_firmware::drift::{deviation_at, DriftConfig, DriftState, DriftTracker};
 use hold_firmware::{Config, Hint, SoftHold, Step, Tester, Verdict};
-use host_check::twin::{Fault, Twin};
+use host_check::sim::twin::{Fault, Twin};
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rc_model::presets;
@@ -327,7 +327,7 @@ fn async_engine_gives_the_same_verdicts() {
         let twin = Twin::new(&nominal, faults, CLOCK_HZ, 5);
         let (trig, out, delay, clock) = twin.handles();
         let mut t = AsyncTester::new(trig, out, delay, clock, config, model);
-        let m = host_check::twin::block_on(t.measure()).unwrap_or_else(|e| panic!("{e}"));
+        let m = host_check::sim::twin::block_on(t.measure()).unwrap_or_else(|e| panic!("{e}"));
         assert_eq!((m.verdict, m.hint), (blocking.verdict, blocking.hint), "{faults:?}: {m:?} vs {blocking:?}");
         if let (Some(a), Some(b)) = (m.hold_ticks, blocking.hold_ticks) {
             // Edge timestamps and polls differ by at most a few poll quanta.

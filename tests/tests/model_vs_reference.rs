@@ -145,7 +145,7 @@ proptest! {
 /// fixed-point model within 0.1 ppm of the reference for hold and inverse C.
 #[test]
 fn agree_sweep_meets_the_bound() {
-    let r = host_check::agree::run(3_000, 11, &|_, _| {});
+    let r = host_check::design::agree::run(3_000, 11, &|_, _| {});
     assert!(r.fixed.hold.points > 2_000, "too few points evaluated: {}", r.fixed.hold.points);
     assert!(r.fixed.hold.max_rel_ppm < 0.1, "{:?}", r.fixed.hold);
     assert!(r.fixed.inverse_c.max_rel_ppm < 0.1, "{:?}", r.fixed.inverse_c);

@@ -5,7 +5,7 @@
 use hold_firmware::drift::DriftState;
 use hold_firmware::record::{encode, Record};
 use hold_firmware::{Hint, Verdict};
-use host_check::frames::FrameReader;
+use host_check::data::frames::FrameReader;
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 
@@ -31,7 +31,7 @@ fn stream(n: u32) -> (Vec<Record>, Vec<u8>) {
     (recs, bytes)
 }
 
-fn read_all(bytes: &[u8]) -> (Vec<Record>, host_check::frames::Counts) {
+fn read_all(bytes: &[u8]) -> (Vec<Record>, host_check::data::frames::Counts) {
     let mut r = FrameReader::new(bytes);
     let got: Vec<Record> = r.by_ref().map(|x| x.unwrap_or_else(|e| panic!("{e}"))).collect();
     (got, r.counts())

@@ -9,8 +9,8 @@ use std::path::Path;
 use std::process::Command;
 use std::sync::Mutex;
 
-use host_check::eval::secs;
-use host_check::netlist::{self, meas, Press};
+use host_check::fmt::secs;
+use host_check::stage::netlist::{self, meas, Press};
 use rc_model::{Diode, Model, Stage, Voltage};
 
 #[derive(Clone, Copy)]

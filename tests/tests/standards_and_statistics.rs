@@ -2,8 +2,8 @@
 //! examples and an open dataset. Each check names its source.
 
 use approx::assert_abs_diff_eq;
-use host_check::eseries::{Series, ALL};
-use host_check::stats;
+use host_check::report::stats;
+use host_check::stage::eseries::{Series, ALL};
 
 fn data(name: &str) -> String {
     let p = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("data").join(name);

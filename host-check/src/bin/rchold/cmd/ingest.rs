@@ -1,0 +1,55 @@
+//! `rchold ingest LOG…`: measurement logs into the store, each file all or
+//! nothing and each file once.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use host_check::data::collect::{self, Ingested};
+use host_check::data::store::Store;
+
+use crate::args::{bar, emit, SetupArgs};
+
+/// Options of `rchold ingest`.
+#[derive(clap::Args)]
+pub struct Args {
+    /// Log files.
+    #[arg(required = true)]
+    files: Vec<PathBuf>,
+    #[command(flatten)]
+    setup: SetupArgs,
+    /// The measurement store (SQLite).
+    #[arg(long, default_value = "rchold.db")]
+    db: PathBuf,
+}
+
+/// Stores each file and prints what it did; exit code 2 when any file was refused.
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let mut store = Store::open(&a.db)?;
+    let setup_id = a.setup.id_in(&mut store)?;
+    let progress = bar(a.files.len() as u64, "files");
+    let mut failed = 0;
+    for f in &a.files {
+        progress.set_message(f.display().to_string());
+        let line = match collect::ingest(&mut store, f, setup_id) {
+            Ok(Ingested::Stored { written, lines }) => format!(
+                "{}: {lines} lines, {} stored, {} already stored (source {})\n",
+                f.display(),
+                written.stored,
+                written.duplicates,
+                written.source_id
+            ),
+            Ok(Ingested::AlreadyStored { source_id }) => {
+                format!("{}: already stored as source {source_id}; nothing to do\n", f.display())
+            }
+            Err(e) => {
+                failed += 1;
+                progress.suspend(|| eprintln!("rchold: {e} (nothing of this file was stored)"));
+                String::new()
+            }
+        };
+        progress.suspend(|| emit(&line))?;
+        progress.inc(1);
+    }
+    progress.finish_and_clear();
+    Ok(if failed > 0 { ExitCode::from(2) } else { ExitCode::SUCCESS })
+}

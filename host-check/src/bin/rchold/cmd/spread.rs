@@ -1,0 +1,101 @@
+//! `rchold spread STAGE.toml`: worst case, root-sum-square and Monte Carlo
+//! spread of the hold over the stage file's tolerances.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use host_check::design::spread::{self, aged, Dist, Eval, Parts};
+use host_check::stage::values::parse_value;
+use host_check::Error;
+
+use crate::args::{bar, emit, stage, stage_name, within, write};
+
+/// Options of `rchold spread`.
+#[derive(clap::Args)]
+pub struct Args {
+    /// The stage file (TOML).
+    stage: PathBuf,
+    /// Monte Carlo samples.
+    #[arg(long, default_value_t = 100_000)]
+    samples: usize,
+    /// Seed of the draws (results do not depend on the thread count).
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// How a tolerance is read: uniform, or normal with the tolerance at --k-sigma.
+    #[arg(long, default_value = "uniform", value_parser = ["uniform", "normal"])]
+    dist: String,
+    /// Standard deviations a tolerance spans when --dist normal.
+    #[arg(long, default_value_t = 3.0)]
+    k_sigma: f64,
+    /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2").
+    #[arg(long)]
+    spec: Option<String>,
+    /// Age the capacitor this many years first, by the stage file's `[aging]` law: class 2
+    /// (log of hours), or an electrolytic's end-of-life loss reached at its rated life,
+    /// scaled to --at-temp by the 10 °C rule.
+    #[arg(long)]
+    years: Option<f64>,
+    /// Operating temperature for an electrolytic's aging, °C (needs `rated_hours` and `rated_temp` in `[aging]`).
+    #[arg(long)]
+    at_temp: Option<f64>,
+    /// Write a histogram with the window and spec marked (SVG).
+    #[arg(long, value_name = "FILE")]
+    plot: Option<PathBuf>,
+    /// Evaluate every sample with the fixed-point model instead of the fast vector closed form (slower, same statistics).
+    #[arg(long)]
+    exact: bool,
+    /// Print JSON instead of the text report.
+    #[arg(long)]
+    json: bool,
+}
+
+/// `LOW..HIGH` in seconds.
+fn spec(text: &str) -> Result<(f64, f64), Error> {
+    let bad =
+        |why: String| Error::Input(format!("--spec {text:?}: {why} (accepted: LOW..HIGH in seconds, LOW < HIGH)"));
+    let (a, b) = text.split_once("..").ok_or_else(|| bad("no \"..\"".into()))?;
+    let a = parse_value(a, &["s"]).map_err(|e| bad(e.to_string()))?;
+    let b = parse_value(b, &["s"]).map_err(|e| bad(e.to_string()))?;
+    if a >= 0.0 && a < b {
+        Ok((a, b))
+    } else {
+        Err(bad("LOW must be below HIGH".into()))
+    }
+}
+
+/// Prints the spread.
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let mut sf = stage(&a.stage)?;
+    let samples = within("samples", a.samples, 1..=100_000_000, "1 to 100000000")?;
+    let dist = if a.dist == "normal" {
+        let k_sigma = within("k-sigma", a.k_sigma, f64::MIN_POSITIVE..=10.0, "above 0 up to 10")?;
+        Dist::Normal { k_sigma }
+    } else {
+        Dist::Uniform
+    };
+    let spec = a.spec.as_deref().map(spec).transpose()?;
+    let parts = match (a.years, sf.spread.aging) {
+        (Some(years), _) => Parts::Aged { years },
+        (None, Some(law)) => Parts::NewBesideAging(law),
+        (None, None) => Parts::New,
+    };
+    if let Some(years) = a.years {
+        aged::age_parts(&mut sf, years, a.at_temp)?;
+    }
+    let window = sf.spread.window(&sf.stage).ok();
+    let rss = spread::rss(&sf.stage, &sf.spread, dist).map_err(|e| sf.model_error(e))?;
+    let progress = bar(samples as u64, "boards");
+    let how = if a.exact { Eval::Exact } else { Eval::Fast };
+    let mc = spread::monte_carlo_with(&sf.stage, &sf.spread, dist, samples, a.seed, how, &|done, _| {
+        progress.set_position(done as u64);
+    });
+    progress.finish_and_clear();
+    let cap = spec.map(|(lo, hi)| spread::capability(&mc, lo, hi));
+    let name = stage_name(&sf, &a.stage);
+    if let Some(path) = &a.plot {
+        let title = format!("hold of {name}, {samples} boards");
+        write(path, spread::histogram_svg(&mc, window.as_ref(), spec, &title))?;
+    }
+    emit(&spread::render(&name, &mc, parts, rss, window.as_ref(), spec, cap.as_ref(), a.json))?;
+    Ok(ExitCode::SUCCESS)
+}

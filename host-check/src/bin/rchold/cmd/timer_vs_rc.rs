@@ -1,0 +1,74 @@
+//! `rchold timer-vs-rc STAGE.toml --clock F --clock-tolerance T`: the
+//! stage's worst-case spread against a software timer's.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use host_check::design::timer_vs_rc::{compare, render_comparison, Currents, TimerClock};
+use host_check::fmt::{corner_text, secs};
+use host_check::Error;
+
+use crate::args::{bad, emit, fraction, stage, stage_name, value};
+
+/// Options of `rchold timer-vs-rc`.
+#[derive(clap::Args)]
+pub struct Args {
+    /// The stage file (TOML).
+    stage: PathBuf,
+    /// The software timer's tick clock ("32.768k", "1MHz").
+    #[arg(long)]
+    clock: String,
+    /// Its frequency tolerance over temperature and life ("50ppm" for a crystal, "2%" for an internal RC oscillator).
+    #[arg(long)]
+    clock_tolerance: String,
+    /// Quiescent current of the stage's two gates, for the standby estimate ("2u").
+    #[arg(long)]
+    stage_current: Option<String>,
+    /// Current of the MCU asleep with one timer running ("1.5u").
+    #[arg(long)]
+    sleep_current: Option<String>,
+}
+
+/// `"50ppm"` or `"2%"` as a fraction, 0 … 50 %.
+fn clock_tolerance(text: &str) -> Result<f64, Error> {
+    let accepted = "0 ppm to 50 %";
+    let t = text.trim();
+    match t.strip_suffix("ppm") {
+        Some(ppm) => {
+            let f = ppm.trim().parse::<f64>().map_err(|e| bad("clock-tolerance", t, e, accepted))? * 1e-6;
+            if (0.0..=0.5).contains(&f) {
+                Ok(f)
+            } else {
+                Err(bad("clock-tolerance", t, "out of range", accepted))
+            }
+        }
+        None => fraction("clock-tolerance", t, 0.0, 0.5, accepted),
+    }
+}
+
+/// Prints the comparison.
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let sf = stage(&a.stage)?;
+    let hz = value("clock", &a.clock, &["Hz"], 1.0, 1e9, "1 Hz to 1 GHz")?;
+    let tolerance = clock_tolerance(&a.clock_tolerance)?;
+    let amps =
+        |opt: &str, v: &Option<String>| v.as_deref().map(|t| value(opt, t, &["A"], 0.0, 1.0, "0 A to 1 A")).transpose();
+    let currents = match (amps("stage-current", &a.stage_current)?, amps("sleep-current", &a.sleep_current)?) {
+        (Some(stage_quiescent_a), Some(timer_sleep_a)) => Some(Currents { stage_quiescent_a, timer_sleep_a }),
+        (None, None) => None,
+        _ => {
+            return Err(
+                Error::Input("give both --stage-current and --sleep-current for the standby estimate".into()).into()
+            )
+        }
+    };
+    let nominal = rc_model::Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    let window = sf.spread.window(&sf.stage).map_err(|f| {
+        Error::Input(format!("{}: the corner {} fails: {}", a.stage.display(), corner_text(f.corner), f.error))
+    })?;
+    let clock = TimerClock { hz, tolerance };
+    let c = compare(secs(nominal.hold), &window, clock);
+    let vdd_v = f64::from(sf.stage.vdd_uv) * 1e-6;
+    emit(&render_comparison(&stage_name(&sf, &a.stage), &c, clock, currents, vdd_v, &window))?;
+    Ok(ExitCode::SUCCESS)
+}

@@ -1,0 +1,51 @@
+//! `rchold window STAGE.toml --clock F`: the firmware's pass window and
+//! timings in ticks, as text, a Rust constant, JSON or the settings blob.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use host_check::design::window::{render, Emit};
+use host_check::Error;
+
+use crate::args::{emit, stage, stage_name, tester, write};
+
+/// Options of `rchold window`.
+#[derive(clap::Args)]
+pub struct Args {
+    /// The stage file (TOML).
+    stage: PathBuf,
+    /// The firmware's tick clock ("1MHz", "32.768k", "16e6").
+    #[arg(long)]
+    clock: String,
+    /// Extra margin on each side of the window ("2%").
+    #[arg(long, default_value = "2%")]
+    guard: String,
+    /// Time between two reads of the output ("100us"); default: 1/1000 of the shortest hold.
+    #[arg(long)]
+    poll: Option<String>,
+    /// What to write: text, rust (a const), json, or bin (the blob the firmware loads; needs --out).
+    #[arg(long, default_value = "text", value_parser = ["text", "rust", "json", "bin"])]
+    emit: String,
+    /// Write to this file instead of standard output.
+    #[arg(long)]
+    out: Option<PathBuf>,
+}
+
+/// Writes the window.
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let sf = stage(&a.stage)?;
+    let (setup, _, _) = tester(&sf, &a.clock, &a.guard, a.poll.as_deref())?;
+    let how = match a.emit.as_str() {
+        "rust" => Emit::Rust,
+        "json" => Emit::Json,
+        "bin" => Emit::Bin,
+        _ => Emit::Text,
+    };
+    match (how, &a.out) {
+        (Emit::Bin, Some(out)) => write(out, setup.to_blob())?,
+        (Emit::Bin, None) => return Err(Error::Input("--emit bin writes a binary blob: give --out FILE".into()).into()),
+        (_, Some(out)) => write(out, render(&setup, how, &stage_name(&sf, &a.stage)))?,
+        (_, None) => emit(&render(&setup, how, &stage_name(&sf, &a.stage)))?,
+    }
+    Ok(ExitCode::SUCCESS)
+}

@@ -1,0 +1,97 @@
+//! `rchold yield`: fixture yield from the store or straight from logs —
+//! verdicts, yield per station, batch and day, Cp/Cpk, rejects and the
+//! `f64` re-check.
+
+use std::io::Write;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use host_check::data::log;
+use host_check::data::store::{Filter, Store};
+use host_check::report::files::ReportDir;
+use host_check::report::yields::{self, Tally, YieldReport};
+use host_check::Error;
+
+use crate::args::{emit, emit_json, Select, SetupArgs};
+
+/// Options of `rchold yield`.
+#[derive(clap::Args)]
+pub struct Args {
+    /// The measurement store (SQLite).
+    #[arg(long, default_value = "rchold.db")]
+    db: PathBuf,
+    /// Read these measurement logs directly instead of the store.
+    #[arg(long, value_name = "FILE", num_args = 1..)]
+    csv: Vec<PathBuf>,
+    #[command(flatten)]
+    select: Select,
+    #[command(flatten)]
+    setup: SetupArgs,
+    /// Write yield.txt, the hold histograms and rejects.csv into this folder.
+    #[arg(long, value_name = "DIR")]
+    out: Option<PathBuf>,
+    /// Skip the f64 re-check of every verdict.
+    #[arg(long)]
+    skip_recheck: bool,
+    /// Print JSON instead of the text report.
+    #[arg(long)]
+    json: bool,
+    /// Rows per table in the text report.
+    #[arg(long, default_value_t = 20)]
+    rows: usize,
+}
+
+type RejectLog = Option<Box<dyn Write + Send>>;
+
+fn from_store(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldReport, Error> {
+    let store = Store::open_existing(&a.db)?;
+    let (given, override_id) = a.setup.replacing()?;
+    // A --stage given here replaces the stored setups (id 0 for all records).
+    let setups = if override_id.is_some() { given } else { store.setups()? };
+    let stations = store.stations()?;
+    let mut tally = Tally::new(&setups, !a.skip_recheck, reject_log);
+    let unknown = String::from("?");
+    store.for_each(filter, |s| {
+        let name = stations.get(&s.station_id).unwrap_or(&unknown);
+        tally.add(name, &s.batch, s.measured_ms, &s.record, override_id.or(s.setup_id));
+    })?;
+    tally.finish().map_err(|e| Error::io("rejects.csv", e))
+}
+
+fn from_logs(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldReport, Error> {
+    let (setups, id) = a.setup.replacing()?;
+    let keep = |l: &log::Line<'_>| {
+        filter.station.as_deref().is_none_or(|s| s == l.station)
+            && filter.batch.as_deref().is_none_or(|b| b == l.batch)
+            && filter.from_ms.is_none_or(|t| l.measured_ms >= t)
+            && filter.to_ms.is_none_or(|t| l.measured_ms < t)
+    };
+    let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
+    yields::tally_logs(&a.csv, &setups, id, !a.skip_recheck, reject_log, &keep, threads)
+}
+
+/// Prints the report; exit code 1 when the `f64` re-check disagrees with a verdict.
+pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let filter = a.select.filter()?;
+    a.setup.setup()?;
+    let mut dir = a.out.as_deref().map(ReportDir::create).transpose()?;
+    let reject_log: RejectLog = match &dir {
+        Some(d) => {
+            let p = d.path("rejects.csv");
+            Some(Box::new(std::io::BufWriter::new(std::fs::File::create(&p).map_err(|e| Error::io(&p, e))?)))
+        }
+        None => None,
+    };
+    let report =
+        if a.csv.is_empty() { from_store(&a, &filter, reject_log)? } else { from_logs(&a, &filter, reject_log)? };
+    if let Some(d) = &mut dir {
+        d.yields(&report, a.rows)?;
+    }
+    if a.json {
+        emit_json(&report)?;
+    } else {
+        emit(&yields::render_text(&report, a.rows))?;
+    }
+    let disagree = report.recheck.as_ref().is_some_and(|r| r.disagreements_total > 0);
+    Ok(if disagree { ExitCode::from(1) } else { ExitCode::SUCCESS })
+}

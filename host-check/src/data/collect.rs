@@ -1,0 +1,300 @@
+//! Getting measurements into the store: `listen` (the firmware's framed
+//! record stream, from a serial port, a file or standard input) and `ingest`
+//! (measurement logs, see [`crate::data::log`]).
+//!
+//! `listen` commits every [`COMMIT_RECORDS`] records or [`COMMIT_MS`] ms,
+//! whichever comes first, and before it returns for any reason, so a stream
+//! that ends or fails keeps every record received; a killed process loses at
+//! most the uncommitted part of the last interval. `ingest` stores each file
+//! in one transaction: all of it or none of it.
+
+use std::fmt;
+use std::io::{self, Read};
+use std::path::{Path, PathBuf};
+use std::time::{Duration, Instant};
+
+use hold_firmware::record::Record;
+use sha2::{Digest as _, Sha256};
+
+use crate::data::frames::{Counts, FrameReader};
+use crate::data::log::{self, LogError};
+use crate::data::store::{hex, Store, StoreError, Written};
+use crate::data::time;
+
+/// Records per commit while listening.
+pub const COMMIT_RECORDS: u64 = 4_096;
+/// Longest time between commits while listening, ms.
+pub const COMMIT_MS: u64 = 250;
+
+/// Why collecting failed.
+#[derive(Debug)]
+pub enum CollectError {
+    /// The store refused.
+    Store(StoreError),
+    /// A log line is bad (nothing of that file was stored).
+    Log(LogError),
+    /// Reading the input failed.
+    Io {
+        /// What was being read.
+        what: String,
+        /// The error.
+        error: io::Error,
+    },
+}
+
+impl fmt::Display for CollectError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            CollectError::Store(e) => e.fmt(f),
+            CollectError::Log(e) => e.fmt(f),
+            CollectError::Io { what, error } => write!(f, "{what}: {error}"),
+        }
+    }
+}
+
+impl std::error::Error for CollectError {}
+
+impl From<StoreError> for CollectError {
+    fn from(e: StoreError) -> Self {
+        CollectError::Store(e)
+    }
+}
+
+/// How a streamed record gets its time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TimeRule {
+    /// The time it arrived (wall clock, UTC).
+    Arrival,
+    /// `start_ms + seq × period_ms`: for a unit replaying its stored history
+    /// that it measured at a fixed period from a known start.
+    Sequence {
+        /// Time of seq 0, ms since the epoch.
+        start_ms: i64,
+        /// Period, ms.
+        period_ms: i64,
+    },
+}
+
+/// What a stream's records are filed under.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Labels {
+    /// Station name.
+    pub station: String,
+    /// Batch label.
+    pub batch: String,
+    /// The setup measured against, if known.
+    pub setup_id: Option<i64>,
+    /// How records get their time.
+    pub time: TimeRule,
+}
+
+/// Where a stream stands.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Progress {
+    /// Frame counts so far.
+    pub counts: Counts,
+    /// Records stored so far (committed or pending).
+    pub stored: u64,
+    /// Records that were already stored.
+    pub duplicates: u64,
+    /// The last good record.
+    pub last: Option<Record>,
+    /// Time since the stream started.
+    pub elapsed: Duration,
+}
+
+/// A finished stream.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Listened {
+    /// Source id in the store.
+    pub source_id: i64,
+    /// Frame counts.
+    pub counts: Counts,
+    /// Records stored.
+    pub stored: u64,
+    /// Records already stored.
+    pub duplicates: u64,
+}
+
+/// Whether an I/O error is a read timeout (a quiet serial line), not a failure.
+fn quiet(e: &io::Error) -> bool {
+    matches!(e.kind(), io::ErrorKind::TimedOut | io::ErrorKind::WouldBlock)
+}
+
+/// Reads framed records from `input` until it ends (or `stop` returns true,
+/// checked after each commit and whenever the input times out) and stores them under `labels`; `status` is called
+/// after every commit.
+///
+/// # Errors
+/// Store errors; a read error other than a timeout (the records before it
+/// are committed first).
+pub fn listen<R: Read>(
+    store: &mut Store,
+    name: &str,
+    input: R,
+    labels: &Labels,
+    mut status: impl FnMut(&Progress),
+    stop: impl Fn() -> bool,
+) -> Result<Listened, CollectError> {
+    let started = Instant::now();
+    let source_id = store.begin_stream(name, time::now_ms())?;
+    let mut reader = FrameReader::new(input);
+    let mut committed = Counts::default();
+    let (mut stored, mut duplicates) = (0u64, 0u64);
+    let mut last = None;
+    let mut failure = None;
+    let mut ended = false;
+    while !ended && failure.is_none() {
+        let mut batch = store.batch()?;
+        let station = batch.station(&labels.station)?;
+        let since = Instant::now();
+        let mut n = 0u64;
+        loop {
+            match reader.next_record() {
+                Ok(Some(r)) => {
+                    let at = match labels.time {
+                        TimeRule::Arrival => time::now_ms(),
+                        TimeRule::Sequence { start_ms, period_ms } => {
+                            start_ms.saturating_add(i64::from(r.seq).saturating_mul(period_ms))
+                        }
+                    };
+                    if batch.insert(station, &labels.batch, at, &r, labels.setup_id, source_id)? {
+                        stored += 1;
+                    } else {
+                        duplicates += 1;
+                    }
+                    last = Some(r);
+                    n += 1;
+                }
+                Ok(None) => {
+                    ended = true;
+                    break;
+                }
+                Err(e) if quiet(&e) => {
+                    if stop() {
+                        ended = true;
+                    }
+                    break;
+                }
+                Err(e) => {
+                    failure = Some(CollectError::Io { what: name.to_owned(), error: e });
+                    break;
+                }
+            }
+            if n >= COMMIT_RECORDS || since.elapsed() >= Duration::from_millis(COMMIT_MS) {
+                break;
+            }
+        }
+        let c = reader.counts();
+        batch.commit(source_id, c.bad_frames - committed.bad_frames, c.bytes - committed.bytes)?;
+        committed = c;
+        status(&Progress { counts: c, stored, duplicates, last, elapsed: started.elapsed() });
+        if stop() {
+            ended = true;
+        }
+    }
+    if let Some(f) = failure {
+        return Err(f);
+    }
+    Ok(Listened { source_id, counts: reader.counts(), stored, duplicates })
+}
+
+/// The outcome of ingesting one log file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Ingested {
+    /// The file was stored.
+    Stored {
+        /// Counts.
+        written: Written,
+        /// Data lines read.
+        lines: u64,
+    },
+    /// A file with the same contents was stored before, as this source.
+    AlreadyStored {
+        /// The earlier source's id.
+        source_id: i64,
+    },
+}
+
+fn io_err(path: &Path) -> impl Fn(io::Error) -> CollectError + '_ {
+    move |error| CollectError::Io { what: path.display().to_string(), error }
+}
+
+/// SHA-256 of a file, hex, and its length.
+///
+/// # Errors
+/// Read errors.
+pub fn file_digest(path: &Path) -> Result<(String, u64), CollectError> {
+    let mut f = std::fs::File::open(path).map_err(io_err(path))?;
+    let mut h = Sha256::new();
+    let mut buf = vec![0u8; 1 << 20];
+    let mut len = 0u64;
+    loop {
+        let n = f.read(&mut buf).map_err(io_err(path))?;
+        if n == 0 {
+            break;
+        }
+        len += n as u64;
+        h.update(buf.get(..n).unwrap_or(&[]));
+    }
+    Ok((hex(&h.finalize()), len))
+}
+
+/// Stores a log file in one transaction. A file stored before (same
+/// SHA-256) is skipped. On any error nothing of the file is stored.
+///
+/// # Errors
+/// The first bad line ([`CollectError::Log`]), read or store errors.
+pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<Ingested, CollectError> {
+    let (digest, bytes) = file_digest(path)?;
+    if let Some(source_id) = store.log_source(&digest)? {
+        return Ok(Ingested::AlreadyStored { source_id });
+    }
+    let mut batch = store.batch()?;
+    let name = path.display().to_string();
+    let Some(source_id) = batch.begin_log(&name, &digest, time::now_ms(), bytes)? else {
+        // Another writer stored the same file meanwhile.
+        drop(batch);
+        let source_id = store.log_source(&digest)?.unwrap_or(0);
+        return Ok(Ingested::AlreadyStored { source_id });
+    };
+    let file = std::fs::File::open(path).map_err(io_err(path))?;
+    let mut store_error = None;
+    let mut last_station: Option<(String, i64)> = None;
+    let lines = log::read(path, file, |_, l| {
+        let station = match &last_station {
+            Some((name, id)) if name == l.station => *id,
+            _ => {
+                let id = batch.station(l.station).map_err(|e| {
+                    let m = e.to_string();
+                    store_error = Some(e);
+                    m
+                })?;
+                last_station = Some((l.station.to_owned(), id));
+                id
+            }
+        };
+        batch.insert(station, l.batch, l.measured_ms, &l.record, setup_id, source_id).map(|_| ()).map_err(|e| {
+            let m = e.to_string();
+            store_error = Some(e);
+            m
+        })
+    });
+    if let Some(e) = store_error {
+        return Err(CollectError::Store(e));
+    }
+    let lines = lines.map_err(CollectError::Log)?;
+    let written = batch.commit(source_id, 0, 0)?;
+    Ok(Ingested::Stored { written, lines })
+}
+
+/// Where a listened stream comes from, for messages.
+#[must_use]
+pub fn source_name(path: Option<&PathBuf>, port: Option<&str>) -> String {
+    match (port, path) {
+        (Some(p), _) => format!("serial {p}"),
+        (None, Some(p)) if p.as_os_str() == "-" => "standard input".to_owned(),
+        (None, Some(p)) => p.display().to_string(),
+        (None, None) => "standard input".to_owned(),
+    }
+}

@@ -1,0 +1,290 @@
+//! `rchold pick`: choose R and C from IEC 60063 series for a target hold.
+//!
+//! For every capacitor value of the C series (100 pF … 10 mF) and every
+//! dielectric class that offers it, the model gives the ideal R; the two
+//! nearest values of the R series are tried. A candidate is kept when its
+//! worst-case window — over R and C tolerance, supply, diode, the input's
+//! threshold band and, where the class has one, end-of-life capacitance loss
+//! — lies inside the target ± the allowed spread. Candidates are ranked by how
+//! much of the allowed spread is left, then by capacitor size.
+
+use rc_model::window::{Aging, Spread, ThresholdSpread, Tolerance};
+use rc_model::{Diode, Model, Stage};
+use serde::Serialize;
+
+use crate::fmt::secs;
+use crate::stage::eseries::Series;
+use crate::Error;
+
+/// A capacitor dielectric family (tolerances and ranges: common practice, no source).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub enum Dielectric {
+    /// Class 1 ceramic: ±5 %, stable, up to 100 nF.
+    C0g,
+    /// Class 2 ceramic: ±10 %, ages 2.5 %/decade-hour (10 years counted), up to 22 µF.
+    X7r,
+    /// Aluminium electrolytic: ±20 %, −20 % at end of life, 1 µF and up.
+    Electrolytic,
+}
+
+impl Dielectric {
+    /// Name.
+    #[must_use]
+    pub const fn name(self) -> &'static str {
+        match self {
+            Dielectric::C0g => "C0G",
+            Dielectric::X7r => "X7R",
+            Dielectric::Electrolytic => "electrolytic",
+        }
+    }
+
+    fn range_f(self) -> (f64, f64) {
+        match self {
+            Dielectric::C0g => (100e-12, 100e-9),
+            Dielectric::X7r => (100e-12, 22e-6),
+            Dielectric::Electrolytic => (1e-6, 10e-3),
+        }
+    }
+
+    fn tolerance(self) -> Tolerance {
+        match self {
+            Dielectric::C0g => Tolerance::symmetric(50_000),
+            Dielectric::X7r => Tolerance::symmetric(100_000),
+            Dielectric::Electrolytic => Tolerance::symmetric(200_000),
+        }
+    }
+
+    fn aging(self) -> Option<Aging> {
+        match self {
+            Dielectric::C0g => None,
+            Dielectric::X7r => Some(Aging::Class2 { k_milli_pct: 2_500, ref_hours: 1_000, hours: 87_660 }),
+            Dielectric::Electrolytic => Some(Aging::EndOfLife { loss_ppm: 200_000 }),
+        }
+    }
+}
+
+/// What to look for.
+#[derive(Debug, Clone, Copy)]
+pub struct Target {
+    /// Wanted hold, s.
+    pub hold_s: f64,
+    /// Allowed relative spread each way (0.15 for ±15 %).
+    pub within: f64,
+    /// Series for R.
+    pub r_series: Series,
+    /// R tolerance, ppm.
+    pub r_tol_ppm: u32,
+    /// Series for C.
+    pub c_series: Series,
+    /// The stage apart from R and C (supply, diode, driver, thresholds).
+    pub template: Stage,
+    /// Supply tolerance, ppm.
+    pub vdd_tol_ppm: u32,
+    /// Threshold band of the input, if known.
+    pub thresholds: Option<ThresholdSpread>,
+}
+
+/// One candidate.
+#[derive(Debug, Clone, Serialize)]
+pub struct Candidate {
+    /// R, Ω.
+    pub r_ohm: f64,
+    /// C, F.
+    pub c_f: f64,
+    /// Dielectric family.
+    pub dielectric: Dielectric,
+    /// Nominal hold, s.
+    pub hold_s: f64,
+    /// Worst-case shortest hold, s.
+    pub min_s: f64,
+    /// Worst-case longest hold, s.
+    pub max_s: f64,
+    /// Share of the allowed spread left on the tighter side (0 … 1).
+    pub margin: f64,
+    /// R above 10 MΩ: board and input leakage start to matter.
+    pub leakage_risk: bool,
+}
+
+fn series_values(s: Series, lo: f64, hi: f64) -> Vec<f64> {
+    let mut v = Vec::new();
+    for decade in -12..=8 {
+        let scale = 10f64.powi(decade);
+        for m in s.values() {
+            let x = m * scale;
+            if x >= lo * (1.0 - 1e-9) && x <= hi * (1.0 + 1e-9) {
+                v.push(x);
+            }
+        }
+    }
+    v
+}
+
+/// Searches the series; returns the candidates that meet the target, best first.
+#[must_use]
+pub fn pick(t: &Target) -> Vec<Candidate> {
+    let lo_t = t.hold_s * (1.0 - t.within);
+    let hi_t = t.hold_s * (1.0 + t.within);
+    let r_values = series_values(t.r_series, 1e3, 1e8);
+    let mut out = Vec::new();
+    for c in series_values(t.c_series, 100e-12, 10e-3) {
+        let mut s = t.template;
+        s.c_ff = (c * 1e15).round() as u64;
+        for d in [Dielectric::C0g, Dielectric::X7r, Dielectric::Electrolytic] {
+            let (cl, ch) = d.range_f();
+            if c < cl * (1.0 - 1e-9) || c > ch * (1.0 + 1e-9) {
+                continue;
+            }
+            let sp = Spread {
+                r: Tolerance::symmetric(t.r_tol_ppm),
+                c: d.tolerance(),
+                vdd: Tolerance::symmetric(t.vdd_tol_ppm),
+                thresholds: t.thresholds,
+                aging: d.aging(),
+                ..Spread::default()
+            };
+            // The window scales with R (to the driver's 1e-4 share): centre it
+            // geometrically on the target from its position at 1 MΩ.
+            s.r_mohm = 1_000_000_000;
+            let Ok(w_ref) = sp.window(&s) else { continue };
+            let centre_ref = (secs(w_ref.min) * secs(w_ref.max)).sqrt();
+            let r_ideal = 1e6 * t.hold_s / centre_ref;
+            if !(1e3..=1e8).contains(&r_ideal) {
+                continue;
+            }
+            let idx = r_values.partition_point(|&r| r < r_ideal);
+            for r in [idx.checked_sub(1).and_then(|i| r_values.get(i)), r_values.get(idx)].into_iter().flatten() {
+                let mut st = s;
+                st.r_mohm = (r * 1e3).round() as u64;
+                let Ok(w) = sp.window(&st) else { continue };
+                let Some(h) = Model::new(&st).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold)) else { continue };
+                let (min_s, max_s) = (secs(w.min), secs(w.max));
+                if min_s < lo_t || max_s > hi_t {
+                    continue;
+                }
+                let allowed = t.hold_s * t.within;
+                let margin = ((min_s - lo_t).min(hi_t - max_s) / allowed).clamp(0.0, 1.0);
+                out.push(Candidate {
+                    r_ohm: *r,
+                    c_f: c,
+                    dielectric: d,
+                    hold_s: h,
+                    min_s,
+                    max_s,
+                    margin,
+                    leakage_risk: *r > 10e6,
+                });
+            }
+        }
+    }
+    out.sort_by(|a, b| b.margin.total_cmp(&a.margin).then(a.c_f.total_cmp(&b.c_f)));
+    out
+}
+
+/// A template stage: supply, fixed diode drop, driver resistance, and the
+/// thresholds of an input preset (typical point) or of fractions of the supply.
+///
+/// # Errors
+/// A message when the preset does not cover the supply.
+pub fn template(
+    vdd_v: f64,
+    drop_v: f64,
+    driver_ohm: f64,
+    preset: &str,
+) -> Result<(Stage, Option<ThresholdSpread>), Error> {
+    let vdd_uv = (vdd_v * 1e6).round() as u32;
+    let p = rc_model::presets::preset(preset).ok_or_else(|| {
+        let names: Vec<&str> = rc_model::presets::PRESETS.iter().map(|p| p.name).collect();
+        Error::Input(format!("--input {preset:?}: unknown family (one of: {})", names.join(", ")))
+    })?;
+    let b = p.bands(vdd_uv).map_err(|_| {
+        Error::Input(format!(
+            "--input {preset}: defined for supplies of {} V to {} V, not {vdd_v} V",
+            f64::from(p.vdd_mv.0) / 1e3,
+            f64::from(p.vdd_mv.1) / 1e3
+        ))
+    })?;
+    let stage = Stage {
+        vdd_uv,
+        r_mohm: 1_000_000_000,
+        c_ff: 1_000_000_000,
+        series_mohm: 0,
+        charge_mohm: 0,
+        driver_mohm: (driver_ohm * 1e3).round() as u64,
+        leak_mohm: None,
+        leak_fa: 0,
+        diode: Diode::Drop { drop_uv: (drop_v * 1e6).round() as u32 },
+        rise_uv: b.rise.typ_uv,
+        fall_uv: b.fall.typ_uv,
+        press_ns: 86_400_000_000_000,
+        temp_mdeg_c: 25_000,
+    };
+    let spread = if b.schmitt {
+        ThresholdSpread::Schmitt { rise_uv: (b.rise.min_uv, b.rise.max_uv), fall_uv: (b.fall.min_uv, b.fall.max_uv) }
+    } else {
+        ThresholdSpread::Single { min_uv: b.rise.min_uv, max_uv: b.rise.max_uv }
+    };
+    Ok((stage, Some(spread)))
+}
+
+/// The report, as text or JSON.
+#[must_use]
+pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bool) -> String {
+    use crate::fmt::si;
+    use std::fmt::Write as _;
+    let shown: Vec<&Candidate> = found.iter().take(top).collect();
+    if json {
+        let v = serde_json::json!({
+            "hold_s": t.hold_s,
+            "within": t.within,
+            "found": found.len(),
+            "candidates": shown,
+        });
+        return format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default());
+    }
+    let mut o = String::new();
+    let _ = writeln!(
+        o,
+        "parts for a {} hold within ±{:.1} % \u{b7} {} supply \u{b7} input {input} \u{b7} R from E{} at ±{:.1} % \u{b7} C from E{}",
+        si(t.hold_s, "s"),
+        t.within * 100.0,
+        si(f64::from(t.template.vdd_uv) * 1e-6, "V"),
+        t.r_series.per_decade(),
+        f64::from(t.r_tol_ppm) / 1e4,
+        t.c_series.per_decade()
+    );
+    if found.is_empty() {
+        let _ = writeln!(
+            o,
+            "  no pair of preferred values keeps the worst case inside the target; widen --within, use tighter parts, or a Schmitt input"
+        );
+        return o;
+    }
+    let _ = writeln!(
+        o,
+        "  {:>10} {:>10} {:<13} {:>11} {:>11} {:>11} {:>8}",
+        "R", "C", "dielectric", "nominal", "shortest", "longest", "margin"
+    );
+    for c in shown {
+        let _ = writeln!(
+            o,
+            "  {:>10} {:>10} {:<13} {:>11} {:>11} {:>11} {:>7.0}%{}",
+            si(c.r_ohm, "Ω"),
+            si(c.c_f, "F"),
+            c.dielectric.name(),
+            si(c.hold_s, "s"),
+            si(c.min_s, "s"),
+            si(c.max_s, "s"),
+            c.margin * 100.0,
+            if c.leakage_risk { "  (R above 10 MΩ: mind leakage)" } else { "" }
+        );
+    }
+    let _ = writeln!(
+        o,
+        "  {} candidates in all; dielectric tolerances and aging are common practice, check the part's data",
+        found.len()
+    );
+    if found.iter().take(top).any(|c| c.c_f >= 1e-3) {
+        let _ = writeln!(o, "  caution: large capacitors store energy and can deliver large inrush currents; follow local codes and licensed practice");
+    }
+    o
+}

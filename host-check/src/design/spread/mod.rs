@@ -1,0 +1,389 @@
+//! `rchold spread`: how the hold spreads over the parts' tolerances —
+//! worst case over every corner, root-sum-square, and Monte Carlo with
+//! percentiles and process capability against a specification window.
+//!
+//! Monte Carlo draws every toleranced parameter independently: uniformly
+//! within its tolerance, or normally with the tolerance at `k_sigma`
+//! standard deviations (clipped to the tolerance). Thresholds are drawn
+//! inside their bands, temperature uniformly over the file's range.
+//!
+//! The boards come in blocks of [`BLOCK`]: block `b` is drawn column by
+//! column (all its R factors, then all its C factors, …) by four
+//! xoshiro256++ generators seeded from (seed, `b`), so a run is reproducible
+//! whatever the number of threads, and both models see the same boards.
+//! [`Eval::Exact`] evaluates each board with the fixed-point model.
+//! [`Eval::Fast`] evaluates the model's closed form in `f64` four boards at
+//! a time in vector registers, when the diode is a fixed drop and every
+//! corner of the spread lies inside the model's domain (then every board
+//! does); otherwise the `f32` backend board by board. Each block's sums and
+//! histogram are taken while it is hot; the percentiles are exact order
+//! statistics found from the histogram without sorting the holds.
+
+pub mod aged;
+mod blocks;
+mod board;
+mod lanes;
+mod order;
+
+use rand::SeedableRng;
+use rand_xoshiro::Xoshiro256PlusPlus;
+use rayon::prelude::*;
+use rc_model::window::{Aging, Spread, Window};
+use rc_model::{Model, Stage};
+use serde::Serialize;
+
+use crate::fmt::secs;
+use crate::report::chart::{self, Histogram, Ink, Mark};
+use crate::report::stats::{self, Capability};
+pub use blocks::BLOCK;
+use blocks::{plan, run_block, Columns};
+use board::{draw_factors, stage_from};
+use order::{order_statistics, Bins, BlockSum, BINS};
+
+/// How each tolerance is read.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Dist {
+    /// Uniform over the tolerance.
+    Uniform,
+    /// Normal with the tolerance at `k_sigma` standard deviations, clipped there.
+    Normal {
+        /// How many σ the tolerance spans.
+        k_sigma: f64,
+    },
+}
+
+/// Monte Carlo result.
+#[derive(Debug, Clone, Serialize)]
+pub struct Monte {
+    /// Samples drawn.
+    pub samples: usize,
+    /// Samples the model refused (the stage does not work there).
+    pub refused: usize,
+    /// Mean hold, s.
+    pub mean_s: f64,
+    /// Sample standard deviation, s.
+    pub sd_s: f64,
+    /// Shortest and longest hold, s.
+    pub min_s: f64,
+    /// Longest hold, s.
+    pub max_s: f64,
+    /// (percent, hold in s) for 0.135, 1, 5, 50, 95, 99, 99.865 %.
+    pub percentiles: Vec<(f64, f64)>,
+    /// The holds in sample order, refused samples left out (kept for plots and tests; not serialised).
+    #[serde(skip)]
+    pub holds: Vec<f64>,
+}
+
+/// One random board, from its own generator seeded from (`seed`, `index`).
+#[must_use]
+pub fn draw(nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, index: u64) -> Stage {
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed ^ index.wrapping_mul(0x9E37_79B9_7F4A_7C15));
+    stage_from(nominal, spread, &draw_factors(&mut rng, spread, dist))
+}
+
+/// Hold of one board by the fixed-point model, s (`None` where it refuses).
+#[must_use]
+pub fn hold_s(s: &Stage) -> Option<f64> {
+    Model::new(s).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold))
+}
+
+/// Which model evaluates the Monte Carlo samples.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Eval {
+    /// The fixed-point model, every path (as the firmware computes it).
+    Exact,
+    /// The closed form in `f64` on the drawn values, four boards at a time
+    /// (fixed-drop diode, every corner of the spread inside the model's
+    /// domain; a press not certainly full goes to the fixed-point model),
+    /// else the `f32` backend board by board: within 1e-4 of the fixed-point
+    /// model on every sample, far below Monte Carlo error, and many times faster.
+    Fast,
+}
+
+/// Runs the Monte Carlo. `progress` is called with (done, total) now and then.
+#[must_use]
+pub fn monte_carlo(
+    nominal: &Stage,
+    spread: &Spread,
+    dist: Dist,
+    samples: usize,
+    seed: u64,
+    progress: &(dyn Fn(usize, usize) + Sync),
+) -> Monte {
+    monte_carlo_with(nominal, spread, dist, samples, seed, Eval::Exact, progress)
+}
+
+/// [`monte_carlo`] with the choice of model for the samples. Both choices
+/// draw the same boards for a given seed.
+#[must_use]
+pub fn monte_carlo_with(
+    nominal: &Stage,
+    spread: &Spread,
+    dist: Dist,
+    samples: usize,
+    seed: u64,
+    how: Eval,
+    progress: &(dyn Fn(usize, usize) + Sync),
+) -> Monte {
+    let done = std::sync::atomic::AtomicUsize::new(0);
+    let plan = plan(nominal, spread, how);
+    // Zeroed memory comes from the allocator untouched; each thread faults in its own pages.
+    let mut v = vec![0.0f64; samples];
+    // Block 0 first: its spread sets the histogram's bins, so the other
+    // blocks are counted while they are hot. Values outside the bins count
+    // in the end bins; the order statistics stay exact whatever the bins.
+    let (first, rest) = v.split_at_mut(BLOCK.min(samples));
+    let mut cols = Columns::default();
+    run_block(nominal, spread, dist, seed, 0, &plan, &mut cols, first);
+    let (min0, max0) = first
+        .iter()
+        .filter(|x| !x.is_nan())
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| (a.min(x), b.max(x)));
+    let bins = Bins::around(min0, max0);
+    let mut counts = vec![0u32; BINS];
+    let first_sum = BlockSum::tally(first, &bins, &mut counts);
+    done.fetch_add(first.len(), std::sync::atomic::Ordering::Relaxed);
+    progress(first.len(), samples);
+    let (mut sums, rest_counts) = rest
+        .par_chunks_mut(BLOCK)
+        .enumerate()
+        // Each piece of work carries a histogram: a few dozen pieces, not thousands.
+        .with_min_len(32)
+        .fold(
+            || (Vec::new(), vec![0u32; BINS], Columns::default()),
+            |(mut sums, mut counts, mut cols), (b, out)| {
+                run_block(nominal, spread, dist, seed, b + 1, &plan, &mut cols, out);
+                sums.push((b + 1, BlockSum::tally(out, &bins, &mut counts)));
+                let n = done.fetch_add(out.len(), std::sync::atomic::Ordering::Relaxed) + out.len();
+                if b % 16 == 15 || n == samples {
+                    progress(n, samples);
+                }
+                (sums, counts, cols)
+            },
+        )
+        .map(|(sums, counts, _)| (sums, counts))
+        .reduce(
+            || (Vec::new(), vec![0u32; BINS]),
+            |(mut a, mut ca), (b, cb)| {
+                a.extend(b);
+                ca.iter_mut().zip(cb).for_each(|(x, y)| *x += y);
+                (a, ca)
+            },
+        );
+    counts.iter_mut().zip(rest_counts).for_each(|(x, y)| *x += y);
+    // Merged in block order: the same sums whatever the threads did.
+    sums.sort_unstable_by_key(|&(b, _)| b);
+    let total = sums.into_iter().map(|(_, s)| s).fold(first_sum, BlockSum::merge);
+    if total.refused > 0 {
+        v.retain(|h| !h.is_nan());
+    }
+    let refused = total.refused;
+    let mean = if total.moments.n == 0 { f64::NAN } else { total.moments.mean };
+    let sd = total.moments.sd();
+    let (min_s, max_s) = (total.min, total.max);
+    let levels = [0.135, 1.0, 5.0, 50.0, 95.0, 99.0, 99.865];
+    // Linear interpolation between order statistics (the common "type 7" rule).
+    let mut ranks = Vec::new();
+    for p in levels {
+        if let Some(last) = v.len().checked_sub(1) {
+            let h = last as f64 * p / 100.0;
+            ranks.push(h.floor() as usize);
+            ranks.push((h.floor() as usize + 1).min(last));
+        }
+    }
+    let stat = order_statistics(&v, &ranks, &bins, &counts);
+    let at = |r: usize| ranks.iter().position(|&x| x == r).and_then(|i| stat.get(i)).copied().unwrap_or(f64::NAN);
+    let percentiles = levels
+        .iter()
+        .map(|&p| {
+            let h = (v.len().saturating_sub(1)) as f64 * p / 100.0;
+            let i = h.floor() as usize;
+            let (a, b) = (at(i), at((i + 1).min(v.len().saturating_sub(1))));
+            (p, a + (h - h.floor()) * (b - a))
+        })
+        .collect();
+    Monte { samples, refused, mean_s: mean, sd_s: sd, min_s, max_s, percentiles, holds: v }
+}
+
+/// Root-sum-square spread: each parameter moved alone to both ends of its
+/// tolerance (one-at-a-time corners of [`Spread::at_corner`]); its standard
+/// deviation is the half-range over √3 (uniform) or over k (normal at k σ).
+/// Returns (nominal hold, σ), s.
+///
+/// # Errors
+/// The model's error at the first corner it cannot evaluate.
+pub fn rss(nominal: &Stage, spread: &Spread, dist: Dist) -> Result<(f64, f64), rc_model::Error> {
+    let h0 = Model::new(nominal).and_then(|m| m.evaluate()).map(|e| secs(e.hold))?;
+    let active = spread.active();
+    let mut var = 0.0;
+    for bit in 0..16u16 {
+        if active & (1 << bit) == 0 {
+            continue;
+        }
+        let at = |high: bool| -> Result<f64, rc_model::Error> {
+            let corner = rc_model::window::Corner { high: if high { 1 << bit } else { 0 }, active: 1 << bit };
+            let s = spread.at_corner(nominal, corner)?;
+            Model::new(&s).and_then(|m| m.evaluate()).map(|e| secs(e.hold))
+        };
+        let half = 0.5 * (at(true)? - at(false)?).abs();
+        let sigma = match dist {
+            Dist::Uniform => half / 3f64.sqrt(),
+            Dist::Normal { k_sigma } => half / k_sigma,
+        };
+        var += sigma * sigma;
+    }
+    Ok((h0, var.sqrt()))
+}
+
+/// Process capability of the Monte Carlo holds against a spec (NIST/SEMATECH
+/// e-Handbook §6.1.6).
+#[must_use]
+pub fn capability(m: &Monte, lsl_s: f64, usl_s: f64) -> Capability {
+    stats::capability(lsl_s, usl_s, m.mean_s, m.sd_s)
+}
+
+/// A histogram of the holds as a self-contained SVG, with the worst-case
+/// window (dashed) and the spec limits (solid) marked.
+#[must_use]
+pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)>, title: &str) -> String {
+    let mut lo = m.min_s;
+    let mut hi = m.max_s;
+    if let Some(win) = window {
+        lo = lo.min(secs(win.min));
+        hi = hi.max(secs(win.max));
+    }
+    if let Some((a, b)) = spec {
+        lo = lo.min(a);
+        hi = hi.max(b);
+    }
+    let span = (hi - lo).max(1e-30);
+    let (lo, hi) = (lo - 0.03 * span, hi + 0.03 * span);
+    let bins = 60usize;
+    let mut counts = vec![0u64; bins];
+    for &v in &m.holds {
+        let i = (((v - lo) / (hi - lo)) * bins as f64).floor().clamp(0.0, (bins - 1) as f64) as usize;
+        if let Some(c) = counts.get_mut(i) {
+            *c += 1;
+        }
+    }
+    let mark = |at: f64, what: &str, ink: Ink| Mark { at, label: format!("{what} {}", crate::fmt::si(at, "s")), ink };
+    let mut marks = Vec::new();
+    if let Some(win) = window {
+        marks.push(mark(secs(win.min), "worst-case min", Ink::Corner));
+        marks.push(mark(secs(win.max), "worst-case max", Ink::Corner));
+    }
+    if let Some((a, b)) = spec {
+        marks.push(mark(a, "spec low", Ink::Limit));
+        marks.push(mark(b, "spec high", Ink::Limit));
+    }
+    chart::histogram(&Histogram { title, quantity: "hold", unit: "s", lo, hi, bins: &counts, marks: &marks })
+}
+
+/// How old the Monte Carlo's capacitors are.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Parts {
+    /// New parts, and no aging in the spread.
+    New,
+    /// New parts, while the worst case and the root-sum-square also take
+    /// the spread's aging (the `[aging]` table) as a corner.
+    NewBesideAging(Aging),
+    /// Every capacitor aged this many years first (`--years`).
+    Aged {
+        /// Years.
+        years: f64,
+    },
+}
+
+impl Parts {
+    fn text(self) -> Option<String> {
+        match self {
+            Parts::New => None,
+            Parts::NewBesideAging(a) => Some(format!(
+                "new parts; the worst case and root-sum-square include the capacitor {}; --years Y ages every board",
+                match a {
+                    Aging::Class2 { hours, .. } => format!("aged {hours} h"),
+                    Aging::EndOfLife { loss_ppm } => format!("at end of life ({} % lost)", f64::from(loss_ppm) / 1e4),
+                }
+            )),
+            Parts::Aged { years } => Some(format!("every capacitor aged {years} years first")),
+        }
+    }
+}
+
+/// The report, as text or JSON. `(nominal_s, rss_sd_s)`: the nominal hold
+/// and the root-sum-square σ, s.
+#[must_use]
+#[allow(clippy::too_many_arguments)]
+pub fn render(
+    name: &str,
+    m: &Monte,
+    parts: Parts,
+    (nominal_s, rss_sd_s): (f64, f64),
+    window: Option<&Window>,
+    spec: Option<(f64, f64)>,
+    cap: Option<&Capability>,
+    json: bool,
+) -> String {
+    use crate::fmt::{corner_text, si};
+    use std::fmt::Write as _;
+    if json {
+        let v = serde_json::json!({
+            "stage": name,
+            "nominal_s": nominal_s,
+            "worst_case": window.map(|w| serde_json::json!({
+                "min_s": secs(w.min), "max_s": secs(w.max),
+                "min_corner": corner_text(w.min_corner), "max_corner": corner_text(w.max_corner), "corners": w.corners,
+            })),
+            "rss_sd_s": rss_sd_s,
+            "monte_carlo": m,
+            "monte_carlo_age_years": match parts { Parts::Aged { years } => years, _ => 0.0 },
+            "monte_carlo_parts": parts.text().unwrap_or_else(|| "new parts".to_owned()),
+            "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
+            "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
+        });
+        return format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default());
+    }
+    let mut o = String::new();
+    let _ = writeln!(o, "hold spread \u{b7} {name}");
+    let line = |o: &mut String, label: &str, value: String| {
+        let dots = 32usize.saturating_sub(label.chars().count());
+        let _ = writeln!(o, "  {label} {} {value}", ".".repeat(dots));
+    };
+    line(&mut o, "nominal", si(nominal_s, "s"));
+    if let Some(w) = window {
+        line(
+            &mut o,
+            &format!("worst case over {} corners", w.corners),
+            format!("{} to {}", si(secs(w.min), "s"), si(secs(w.max), "s")),
+        );
+        let _ = writeln!(o, "    shortest at {}", corner_text(w.min_corner));
+        let _ = writeln!(o, "    longest at  {}", corner_text(w.max_corner));
+    }
+    line(
+        &mut o,
+        "root-sum-square",
+        format!("σ {} ({:.2} % of nominal)", si(rss_sd_s, "s"), 100.0 * rss_sd_s / nominal_s),
+    );
+    line(
+        &mut o,
+        &format!("Monte Carlo, {} boards", m.samples),
+        format!("mean {} \u{b7} σ {} \u{b7} {} refused", si(m.mean_s, "s"), si(m.sd_s, "s"), m.refused),
+    );
+    if let Some(t) = parts.text() {
+        let _ = writeln!(o, "    {t}");
+    }
+    for (p, v) in &m.percentiles {
+        let _ = writeln!(o, "    {:>7} % of boards hold less than {}", format!("{p}"), si(*v, "s"));
+    }
+    if let (Some((a, b)), Some(c)) = (spec, cap) {
+        line(
+            &mut o,
+            &format!("against {} to {}", si(a, "s"), si(b, "s")),
+            format!("Cp {:.3} \u{b7} Cpk {:.3} (NIST/SEMATECH e-Handbook §6.1.6)", c.cp, c.cpk),
+        );
+        let outside = m.holds.iter().filter(|&&v| v < a || v > b).count();
+        let _ = writeln!(o, "    {outside} of {} simulated boards fall outside", m.holds.len());
+    }
+    let _ = writeln!(o, "\n  note: {}", crate::fmt::CAUTION);
+    o
+}

@@ -1,0 +1,138 @@
+//! `rchold window`: the firmware pass window in ticks, as text, a Rust
+//! constant, JSON, or the binary blob (timings and the prepared stage) the
+//! firmware loads with `hold_firmware::Setup::from_blob`.
+
+use std::fmt::Write as _;
+
+use hold_firmware::{Config, Setup};
+use rc_model::{Model, Prepared};
+use serde_json::json;
+
+use crate::fmt::{corner_text, si};
+use crate::stage::file::StageFile;
+use crate::Error;
+
+/// How to write the window.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Emit {
+    /// A readable table.
+    Text,
+    /// A Rust `const` of `hold_firmware::Config`.
+    Rust,
+    /// JSON.
+    Json,
+    /// The settings blob (timings, prepared stage, CRC).
+    Bin,
+}
+
+/// The firmware settings for a stage file: its window over every corner in
+/// the file (tolerances, temperature range, aging), widened by `guard_ppm`,
+/// one tick of quantisation and one poll of latency on each side; and the
+/// stage prepared for the firmware's hot path over the file's temperature range.
+///
+/// # Errors
+/// The stage file's error when the stage or a corner cannot be evaluated or
+/// the window does not fit the clock.
+pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Setup, Error> {
+    let model = Model::new(&sf.stage).map_err(|e| sf.model_error(e))?;
+    let window = sf.spread.window(&sf.stage).map_err(|f| {
+        Error::Input(format!("{}: the corner {} fails: {}", sf.path.display(), corner_text(f.corner), f.error))
+    })?;
+    let config = Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns)
+        .map_err(|e| Error::Input(format!("{}: {e}", sf.path.display())))?;
+    let stage = Prepared::prepare(&sf.stage, &sf.spread, clock_hz)
+        .map_err(|e| Error::Input(format!("{}: preparing the stage for the firmware: {e}", sf.path.display())))?;
+    Ok(Setup { config, stage })
+}
+
+/// The poll period a tester uses when none is given: 1/1000 of the nominal
+/// hold, within 1 µs … 1 s, in ns.
+///
+/// # Errors
+/// The stage file's error when the nominal stage cannot be evaluated.
+pub fn default_poll_ns(sf: &StageFile) -> Result<u32, Error> {
+    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    Ok((nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32)
+}
+
+/// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).
+#[must_use]
+pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
+    let c = &setup.config;
+    let secs = |t: u64| t as f64 / f64::from(c.clock_hz);
+    let stage = &setup.stage;
+    let hold_ref = stage.hold_ticks_at(stage.ref_mdeg_c()).unwrap_or(0);
+    let (lo, hi) = stage.temp_range_mdeg_c();
+    let deg = |m: i32| f64::from(m) / 1000.0;
+    match emit {
+        Emit::Text => {
+            let mut o = String::new();
+            let _ = writeln!(o, "firmware window for {name} at {}", si(f64::from(c.clock_hz), "Hz"));
+            let row = |o: &mut String, label: &str, t: u64| {
+                let _ = writeln!(o, "  {label:<22} {t:>14} ticks  ({})", si(secs(t), "s"));
+            };
+            row(&mut o, "pass from", c.hold_min_ticks);
+            row(&mut o, "pass to", c.hold_max_ticks);
+            row(&mut o, "press", c.press_ticks);
+            row(&mut o, "turn-on timeout", c.on_timeout_ticks);
+            row(&mut o, "hold timeout", c.hold_timeout_ticks);
+            row(&mut o, "idle check", c.settle_ticks);
+            row(&mut o, "glitch filter", c.glitch_ticks);
+            let _ = writeln!(o, "  {:<22} {:>14} ns", "poll every", c.poll_ns);
+            let _ = writeln!(o, "  {:<22} {:>14} level changes", "chatter above", c.chatter_limit);
+            let _ = writeln!(
+                o,
+                "  prepared stage: {hold_ref} ticks of hold at {} °C; holds judged from {} °C to {} °C",
+                deg(stage.ref_mdeg_c()),
+                deg(lo),
+                deg(hi)
+            );
+            o
+        }
+        Emit::Rust => format!(
+            "/// Hold-stage test window for {name}, made by `rchold window`.\n\
+             pub const HOLD_WINDOW: hold_firmware::Config = hold_firmware::Config {{\n    \
+             clock_hz: {},\n    settle_ticks: {},\n    press_ticks: {},\n    glitch_ticks: {},\n    poll_ns: {},\n    \
+             on_timeout_ticks: {},\n    hold_min_ticks: {},\n    hold_max_ticks: {},\n    hold_timeout_ticks: {},\n    \
+             chatter_limit: {},\n}};\n\n\
+             /// The same timings and the stage prepared for the hot path, as the settings blob:\n\
+             /// `hold_firmware::Setup::from_blob(&HOLD_SETUP)` (CRC-checked, versioned).\n\
+             pub const HOLD_SETUP: [u8; hold_firmware::BLOB_LEN] = [{}];\n",
+            c.clock_hz,
+            c.settle_ticks,
+            c.press_ticks,
+            c.glitch_ticks,
+            c.poll_ns,
+            c.on_timeout_ticks,
+            c.hold_min_ticks,
+            c.hold_max_ticks,
+            c.hold_timeout_ticks,
+            c.chatter_limit,
+            setup.to_blob().iter().map(|b| format!("{b:#04x}")).collect::<Vec<_>>().join(", ")
+        ),
+        Emit::Json | Emit::Bin => {
+            let v = json!({
+                "stage": name,
+                "clock_hz": c.clock_hz,
+                "settle_ticks": c.settle_ticks,
+                "press_ticks": c.press_ticks,
+                "glitch_ticks": c.glitch_ticks,
+                "poll_ns": c.poll_ns,
+                "on_timeout_ticks": c.on_timeout_ticks,
+                "hold_min_ticks": c.hold_min_ticks,
+                "hold_max_ticks": c.hold_max_ticks,
+                "hold_timeout_ticks": c.hold_timeout_ticks,
+                "chatter_limit": c.chatter_limit,
+                "hold_min_s": secs(c.hold_min_ticks),
+                "hold_max_s": secs(c.hold_max_ticks),
+                "prepared_stage": {
+                    "hold_at_reference_ticks": hold_ref,
+                    "reference_mdeg_c": stage.ref_mdeg_c(),
+                    "temp_range_mdeg_c": [lo, hi],
+                    "bytes_hex": stage.to_bytes().iter().map(|b| format!("{b:02x}")).collect::<String>(),
+                },
+            });
+            format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default())
+        }
+    }
+}

@@ -1,0 +1,179 @@
+//! One self-contained HTML page of the yield and fleet reports: inline CSS
+//! and SVG, no scripts, no external files.
+
+use std::fmt::Write as _;
+
+use crate::data::codes::VERDICTS;
+use crate::data::time;
+use crate::fmt::si;
+use crate::fmt::xml;
+use crate::report::aging::{FleetReport, Status};
+use crate::report::files::{needing_attention, AgingCharts, YieldCharts};
+use crate::report::yields::{pct, Recheck, YieldReport};
+
+const STYLE: &str = "body{font-family:sans-serif;margin:2em auto;max-width:1000px;color:#222}\
+h1{font-size:1.5em}h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #ccc}\
+table{border-collapse:collapse;margin:0.5em 0}td,th{padding:2px 10px;border-bottom:1px solid #eee;text-align:right}\
+th{background:#f2f4f7}td.l,th.l{text-align:left}.note{background:#fff6e0;border-left:4px solid #d08020;padding:0.5em 1em}\
+pre{background:#f6f6f6;padding:0.6em}svg{max-width:100%;height:auto}";
+
+/// The page: the ledger (when given), the yield section with its charts and
+/// the fleet section with its charts.
+#[must_use]
+pub fn page(y: &YieldReport, f: &FleetReport, ledger: Option<&str>, yc: &YieldCharts, ac: &AgingCharts) -> String {
+    let mut o = String::new();
+    let _ = write!(
+        o,
+        "<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\"><title>rchold report</title>\
+         <style>{STYLE}</style></head><body><h1>Hold-stage report</h1>"
+    );
+    if let Some((a, b)) = y.span_ms {
+        let _ = write!(
+            o,
+            "<p>Fixture measurements {} … {}; fleet measurements up to {}.</p>",
+            time::format_ms(a),
+            time::format_ms(b),
+            time::date_of(f.now_ms)
+        );
+    }
+    if let Some(l) = ledger {
+        let _ = write!(o, "<h2>Record accounting</h2><pre>{}</pre>", xml(l));
+    }
+    yield_section(&mut o, y, yc);
+    fleet_section(&mut o, f, ac);
+    o.push_str(
+        "<p class=note>Timing only: this report checks no isolation, creepage or mains safety. A hold stage must not be \
+         the only guard of a safety function, and large capacitors can hold a dangerous charge after power is removed: \
+         defer to local codes and licensed practice.</p></body></html>\n",
+    );
+    o
+}
+
+fn yield_section(o: &mut String, y: &YieldReport, yc: &YieldCharts) {
+    o.push_str(
+        "<h2>Fixture yield</h2><table><tr><th class=l>station</th><th>measured</th><th>passed</th><th>yield</th>\
+                <th>hold mean</th><th>hold σ</th><th>Cp</th><th>Cpk</th></tr>",
+    );
+    for g in y.stations.iter().chain(std::iter::once(&y.all)) {
+        let [name, total, passed, yld, mean, sd, cp, cpk] = g.cells();
+        let _ = write!(
+            o,
+            "<tr><td class=l>{}</td><td>{total}</td><td>{passed}</td><td>{yld}</td><td>{mean}</td><td>{sd}</td><td>{cp}</td><td>{cpk}</td></tr>",
+            xml(&name)
+        );
+    }
+    o.push_str("</table><p>Cp and Cpk of the hold against the pass window (NIST/SEMATECH e-Handbook §6.1.6), \
+                gross faults (wrong part, open capacitor) left out.</p><table><tr><th class=l>verdict</th><th>count</th><th>share</th></tr>");
+    for (v, n) in VERDICTS.iter().zip(y.all.verdicts) {
+        let _ = write!(o, "<tr><td class=l>{}</td><td>{n}</td><td>{}</td></tr>", v.name(), pct(n, y.all.total));
+    }
+    o.push_str("</table>");
+    for svg in &yc.holds {
+        o.push_str(svg);
+    }
+    o.push_str("<h3>Per batch</h3><table><tr><th class=l>station</th><th class=l>batch</th><th>measured</th><th>yield</th></tr>");
+    for b in &y.batches {
+        let _ = write!(
+            o,
+            "<tr><td class=l>{}</td><td class=l>{}</td><td>{}</td><td>{}</td></tr>",
+            xml(&b.station),
+            xml(&b.key),
+            b.total,
+            pct(b.passed, b.total)
+        );
+    }
+    let _ = write!(
+        o,
+        "</table><h3>Rejects ({})</h3><table><tr><th class=l>station</th><th class=l>batch</th><th>unit</th>\
+         <th class=l>verdict</th><th class=l>likely cause</th><th>hold</th><th>C deviation</th></tr>",
+        y.rejects_total
+    );
+    for r in &y.rejects {
+        let _ = write!(
+            o,
+            "<tr><td class=l>{}</td><td class=l>{}</td><td>{}</td><td class=l>{}</td><td class=l>{}</td><td>{}</td><td>{}</td></tr>",
+            xml(&r.station),
+            xml(&r.batch),
+            r.unit,
+            r.verdict,
+            r.hint,
+            r.hold_s.map_or_else(|| "–".into(), |h| si(h, "s")),
+            r.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %"))
+        );
+    }
+    o.push_str("</table>");
+    if let Some(rc) = &y.recheck {
+        recheck_section(o, rc);
+    }
+}
+
+fn recheck_section(o: &mut String, rc: &Recheck) {
+    let _ = write!(
+        o,
+        "<h3>f64 re-check</h3><p>{} of {} verdicts confirmed by the independent f64 reference; {} disagree; \
+         {} not re-checkable.</p>",
+        rc.agreed, rc.checked, rc.disagreements_total, rc.not_checkable
+    );
+    if !rc.disagreements.is_empty() {
+        o.push_str("<table><tr><th class=l>station</th><th>unit</th><th>hold ticks</th><th class=l>firmware</th><th class=l>reference</th></tr>");
+        for d in &rc.disagreements {
+            let _ = write!(
+                o,
+                "<tr><td class=l>{}</td><td>{}</td><td>{}</td><td class=l>{} / {}</td><td class=l>{} / {}</td></tr>",
+                xml(&d.station),
+                d.unit,
+                d.hold_ticks,
+                d.firmware.0,
+                d.firmware.1,
+                d.reference.0,
+                d.reference.1
+            );
+        }
+        o.push_str("</table>");
+    }
+}
+
+fn fleet_section(o: &mut String, f: &FleetReport, ac: &AgingCharts) {
+    let count = |s: Status| f.units.iter().filter(|u| u.status == s).count();
+    let _ = write!(
+        o,
+        "<h2>Fleet aging</h2><p>{} units, {} measurements; end-of-life limit C/C₀ = {:.2}. Beyond the limit: {}; \
+         at risk within {} months: {}; aging: {}; no significant loss: {}.</p>",
+        f.units.len(),
+        f.records_used,
+        f.limit_ratio,
+        count(Status::BeyondLimit),
+        f.horizon_months,
+        count(Status::AtRisk),
+        count(Status::Aging),
+        count(Status::NoSignificantLoss)
+    );
+    if let Some((a, b, c)) = f.rate_percentiles {
+        let _ = write!(o, "<p>Capacitance change per year: p10 {a:+.2} %, median {b:+.2} %, p90 {c:+.2} %.</p>");
+    }
+    o.push_str(&ac.fleet);
+    if let Some(r) = &ac.rates {
+        o.push_str(r);
+    }
+    o.push_str(
+        "<table><tr><th class=l>unit</th><th>C/C₀ now</th><th>rate %/yr</th><th class=l>forecast</th>\
+                <th class=l>95 % interval</th><th class=l>status</th></tr>",
+    );
+    for u in needing_attention(f) {
+        let _ = write!(
+            o,
+            "<tr><td class=l>{}</td><td>{:.4}</td><td>{}</td><td class=l>{}</td><td class=l>{}</td><td class=l>{}</td></tr>",
+            u.unit,
+            u.last_ratio,
+            u.rate_pct_per_year.map_or_else(|| "–".into(), |r| format!("{r:+.2}")),
+            u.forecast_ms.map_or_else(|| "–".into(), time::date_of),
+            u.forecast_interval_ms
+                .map_or_else(|| "–".into(), |(a, b)| format!("{} … {}", time::date_of(a), time::date_of(b))),
+            u.status.name()
+        );
+    }
+    o.push_str("</table>");
+    for svg in &ac.units {
+        o.push_str(svg);
+    }
+}

@@ -1,0 +1,908 @@
+//! `rchold yield`: what a fixture's measurements say about production —
+//! counts per verdict, yield per station, batch and day, the capability of
+//! the hold against its pass window (Cp/Cpk, NIST/SEMATECH e-Handbook
+//! §6.1.6), a histogram, the rejects with their cause hints, and the `f64`
+//! re-check: every verdict the firmware gave in fixed point, recomputed from
+//! the stage file with the independent `f64` reference.
+//!
+//! Everything is accumulated in one pass (memory grows with the number of
+//! stations, batches and days, not with the number of records).
+
+use std::collections::HashMap;
+use std::fmt::Write as _;
+use std::io::Write;
+use std::path::Path;
+
+use hold_firmware::record::Record;
+use hold_firmware::{Hint, Verdict};
+use rc_model::window::Corner;
+use serde::Serialize;
+
+use crate::data::codes::VERDICTS;
+use crate::data::store::Setup;
+use crate::data::{codes, log, time};
+use crate::fmt::si;
+use crate::reference::{self, StageF};
+use crate::report::chart::{self, Histogram, Ink, Mark};
+use crate::report::stats::{self, Moments};
+use crate::stage::file as stagefile;
+use crate::Error;
+
+/// Bins of the hold histogram.
+pub const BINS: usize = 60;
+
+/// The window recomputed with the `f64` reference.
+#[derive(Debug, Clone, Serialize)]
+pub struct RecheckWindow {
+    /// Setup name.
+    pub setup: String,
+    /// Shortest corner hold, s (reference).
+    pub min_s: f64,
+    /// Longest corner hold, s (reference).
+    pub max_s: f64,
+    /// Passing holds from, ticks (reference, widened as the firmware widens).
+    pub hold_min_ticks: u64,
+    /// Passing holds to, ticks.
+    pub hold_max_ticks: u64,
+    /// The firmware window stored with the setup, ticks.
+    pub stored_ticks: (u64, u64),
+    /// The stored window is not the stage file's (set by hand, as on field
+    /// units that accept any hold): verdicts are judged against the stored one.
+    pub custom: bool,
+}
+
+struct Checker {
+    window: RecheckWindow,
+    stage: StageF,
+    clock_hz: f64,
+}
+
+impl Checker {
+    /// Builds the `f64` window of a setup: the same corners (the spread's
+    /// parameter extremes), each evaluated by the reference; widened by the
+    /// guard, one poll and one tick on each side as `Config::from_window` does.
+    fn new(setup: &Setup) -> Result<Checker, String> {
+        let sf = stagefile::parse(Path::new(&setup.name), &setup.stage_toml).map_err(|e| e.to_string())?;
+        let active = sf.spread.active();
+        let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+        let mut high: u16 = 0;
+        loop {
+            let s = sf.spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
+            let h = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?.hold;
+            lo = lo.min(h);
+            hi = hi.max(h);
+            if high == active {
+                break;
+            }
+            high = high.wrapping_sub(active) & active;
+        }
+        let clock = f64::from(setup.clock_hz);
+        let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
+        let poll = hold_firmware::poll_ticks(setup.poll_ns, setup.clock_hz);
+        let (ref_min, ref_max) = hold_firmware::widen(min_t, max_t, setup.guard_ppm, poll);
+        // Rounding may move an edge by a tick; more than that is a window set by hand.
+        let custom = ref_min.abs_diff(setup.hold_min_ticks) > 2 || ref_max.abs_diff(setup.hold_max_ticks) > 2;
+        Ok(Checker {
+            window: RecheckWindow {
+                setup: setup.name.clone(),
+                min_s: lo,
+                max_s: hi,
+                hold_min_ticks: ref_min,
+                hold_max_ticks: ref_max,
+                stored_ticks: (setup.hold_min_ticks, setup.hold_max_ticks),
+                custom,
+            },
+            stage: StageF::from(&sf.stage),
+            clock_hz: clock,
+        })
+    }
+
+    /// The verdict and hint the reference gives a hold, for the verdicts a
+    /// hold alone decides (within window, short, long).
+    fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
+        let w = &self.window;
+        let (min, max) = if w.custom { w.stored_ticks } else { (w.hold_min_ticks, w.hold_max_ticks) };
+        let v = if hold_ticks < min {
+            Verdict::Short
+        } else if hold_ticks > max {
+            Verdict::Long
+        } else {
+            return (Verdict::WithinWindow, Hint::None);
+        };
+        if hold_ticks.saturating_mul(20) < min {
+            return (v, Hint::OpenCapacitorOrDiode);
+        }
+        let hint = match reference::inverse_c(&self.stage, hold_ticks as f64 / self.clock_hz) {
+            Ok(c) => Hint::from_deviation_ppm(((c / self.stage.c - 1.0) * 1e6).round() as i64),
+            Err(_) => Hint::WrongPart,
+        };
+        (v, hint)
+    }
+}
+
+/// Figures of one station (or of all).
+#[derive(Debug, Clone, Serialize)]
+pub struct Group {
+    /// Station name, or "all".
+    pub name: String,
+    /// Measurements.
+    pub total: u64,
+    /// Count per verdict, in the order of [`codes::VERDICTS`].
+    pub verdicts: [u64; 7],
+    /// Hold, s, of the boards without a gross fault (verdict within window,
+    /// short or long, hint not wrong part or open capacitor).
+    pub hold_s: Moments,
+    /// Gross faults left out of the capability.
+    pub gross: u64,
+    /// Pass window, s (from the setup), when known.
+    pub window_s: Option<(f64, f64)>,
+    /// Cp, Cpk … of the hold against the window.
+    #[serde(skip)]
+    pub capability: Option<stats::Capability>,
+    /// Cp.
+    pub cp: Option<f64>,
+    /// Cpk.
+    pub cpk: Option<f64>,
+    /// Histogram of the hold over [`Group::hist_range_s`].
+    pub bins: Vec<u64>,
+    /// Range of the histogram, s.
+    pub hist_range_s: (f64, f64),
+    /// Holds below and above the histogram's range.
+    pub outside_hist: (u64, u64),
+}
+
+impl Group {
+    fn new(name: &str) -> Group {
+        Group {
+            name: name.to_owned(),
+            total: 0,
+            verdicts: [0; 7],
+            hold_s: Moments::default(),
+            gross: 0,
+            window_s: None,
+            capability: None,
+            cp: None,
+            cpk: None,
+            bins: Vec::new(),
+            hist_range_s: (0.0, 0.0),
+            outside_hist: (0, 0),
+        }
+    }
+
+    /// Passing measurements.
+    #[must_use]
+    pub fn passed(&self) -> u64 {
+        self.verdicts.first().copied().unwrap_or(0)
+    }
+
+    /// The station table's cells: name, measured, passed, yield, hold mean,
+    /// hold σ, Cp, Cpk (a dash where there is no value).
+    #[must_use]
+    pub fn cells(&self) -> [String; 8] {
+        [
+            self.name.clone(),
+            self.total.to_string(),
+            self.passed().to_string(),
+            pct(self.passed(), self.total),
+            if self.hold_s.n > 0 { si(self.hold_s.mean, "s") } else { "–".into() },
+            if self.hold_s.n > 1 { si(self.hold_s.sd(), "s") } else { "–".into() },
+            opt2(self.cp),
+            opt2(self.cpk),
+        ]
+    }
+
+    /// Yield, %.
+    #[must_use]
+    pub fn yield_pct(&self) -> f64 {
+        if self.total == 0 {
+            f64::NAN
+        } else {
+            100.0 * self.passed() as f64 / self.total as f64
+        }
+    }
+
+    fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>) {
+        self.total += 1;
+        if let Some(c) = self.verdicts.get_mut(usize::from(codes::verdict_code(r.verdict))) {
+            *c += 1;
+        }
+        let Some(hold) = r.hold_ticks else { return };
+        if !matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) {
+            return;
+        }
+        if matches!(r.hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode) {
+            self.gross += 1;
+            return;
+        }
+        let s = hold as f64 / f64::from(r.clock_hz.max(1));
+        self.hold_s.add(s);
+        if self.window_s.is_none() {
+            if let Some((lo, hi)) = window_s {
+                self.window_s = Some((lo, hi));
+                let w = hi - lo;
+                self.hist_range_s = (lo - 0.5 * w, hi + 0.5 * w);
+                self.bins = vec![0; BINS];
+            }
+        }
+        if !self.bins.is_empty() {
+            let (a, b) = self.hist_range_s;
+            let k = ((s - a) / (b - a) * BINS as f64).floor();
+            if k < 0.0 {
+                self.outside_hist.0 += 1;
+            } else if k >= BINS as f64 {
+                self.outside_hist.1 += 1;
+            } else if let Some(c) = self.bins.get_mut(k as usize) {
+                *c += 1;
+            }
+        }
+    }
+
+    fn merge(&mut self, o: Group) {
+        self.total += o.total;
+        for (a, b) in self.verdicts.iter_mut().zip(o.verdicts) {
+            *a += b;
+        }
+        self.hold_s.merge(&o.hold_s);
+        self.gross += o.gross;
+        if self.window_s.is_none() {
+            self.window_s = o.window_s;
+            self.hist_range_s = o.hist_range_s;
+            self.bins = vec![0; o.bins.len()];
+        }
+        if self.bins.len() == o.bins.len() && self.hist_range_s == o.hist_range_s {
+            for (a, b) in self.bins.iter_mut().zip(o.bins) {
+                *a += b;
+            }
+            self.outside_hist.0 += o.outside_hist.0;
+            self.outside_hist.1 += o.outside_hist.1;
+        }
+    }
+
+    fn finish(&mut self) {
+        self.hold_s.settle();
+        if let Some((lo, hi)) = self.window_s {
+            let sd = self.hold_s.sd();
+            if self.hold_s.n > 1 && sd > 0.0 {
+                let c = stats::capability(lo, hi, self.hold_s.mean, sd);
+                self.cp = Some(c.cp);
+                self.cpk = Some(c.cpk);
+                self.capability = Some(c);
+            }
+        }
+    }
+}
+
+/// A failing measurement.
+#[derive(Debug, Clone, Serialize)]
+pub struct Reject {
+    /// Station.
+    pub station: String,
+    /// Batch.
+    pub batch: String,
+    /// When, ms since the epoch.
+    pub measured_ms: i64,
+    /// The record.
+    #[serde(skip)]
+    pub record: Record,
+    /// Unit.
+    pub unit: u32,
+    /// Verdict name.
+    pub verdict: &'static str,
+    /// Hint name.
+    pub hint: &'static str,
+    /// Hold, s.
+    pub hold_s: Option<f64>,
+    /// Implied capacitance deviation, %.
+    pub c_dev_pct: Option<f64>,
+}
+
+/// A verdict the reference does not confirm.
+#[derive(Debug, Clone, Serialize)]
+pub struct Disagreement {
+    /// Station.
+    pub station: String,
+    /// Unit.
+    pub unit: u32,
+    /// Seq.
+    pub seq: u32,
+    /// Hold, ticks.
+    pub hold_ticks: u64,
+    /// Firmware verdict and hint.
+    pub firmware: (&'static str, &'static str),
+    /// Reference verdict and hint.
+    pub reference: (&'static str, &'static str),
+}
+
+/// The re-check's summary.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct Recheck {
+    /// Windows the reference computed, per setup.
+    pub windows: Vec<RecheckWindow>,
+    /// Setups that could not be re-checked, and why.
+    pub setup_errors: Vec<String>,
+    /// Verdicts re-checked.
+    pub checked: u64,
+    /// Verdicts and hints the reference confirms.
+    pub agreed: u64,
+    /// Records without a setup or a hold-decided verdict (not re-checked).
+    pub not_checkable: u64,
+    /// Disagreements (the first [`Tally::keep`]).
+    pub disagreements: Vec<Disagreement>,
+    /// Disagreements in all.
+    pub disagreements_total: u64,
+}
+
+/// Yield per batch or per day.
+#[derive(Debug, Clone, Serialize)]
+pub struct Part {
+    /// Station.
+    pub station: String,
+    /// Batch or date.
+    pub key: String,
+    /// Measurements.
+    pub total: u64,
+    /// Passing.
+    pub passed: u64,
+}
+
+/// The report.
+#[derive(Debug, Clone, Serialize)]
+pub struct YieldReport {
+    /// Per station.
+    pub stations: Vec<Group>,
+    /// All stations.
+    pub all: Group,
+    /// Per station and batch.
+    pub batches: Vec<Part>,
+    /// Per station and day (UTC).
+    pub days: Vec<Part>,
+    /// The first rejects.
+    pub rejects: Vec<Reject>,
+    /// Rejects in all.
+    pub rejects_total: u64,
+    /// The `f64` re-check (`None` when switched off).
+    pub recheck: Option<Recheck>,
+    /// First and last measurement, ms.
+    pub span_ms: Option<(i64, i64)>,
+}
+
+/// Where rejects go as log lines.
+enum RejectLog {
+    None,
+    Writer(Box<dyn Write + Send>),
+    Buffer(Vec<u8>),
+}
+
+/// One-pass accumulator of the yield report.
+pub struct Tally {
+    stations: Vec<Group>,
+    index: HashMap<String, usize>,
+    last_station: usize,
+    /// Per station: the batch and the day entry it used last.
+    station_batch: Vec<usize>,
+    station_day: Vec<usize>,
+    all: Group,
+    /// (station, batch, total, passed), with an index and the last one used.
+    batches: Vec<(usize, String, u64, u64)>,
+    batch_index: HashMap<(usize, String), usize>,
+    /// (station, day, total, passed), likewise.
+    days: Vec<(usize, i64, u64, u64)>,
+    day_index: HashMap<(usize, i64), usize>,
+    windows: HashMap<i64, (f64, f64)>,
+    last_window: (Option<i64>, Option<(f64, f64)>),
+    checkers: HashMap<i64, Checker>,
+    recheck: Option<Recheck>,
+    rejects: Vec<Reject>,
+    rejects_total: u64,
+    reject_log: RejectLog,
+    reject_error: Option<std::io::Error>,
+    span: Option<(i64, i64)>,
+    /// How many rejects and disagreements to keep for the report.
+    pub keep: usize,
+}
+
+impl Tally {
+    /// A tally over records measured against `setups` (by id); `recheck`
+    /// switches on the `f64` re-check; `reject_log` receives every reject
+    /// as a measurement log line.
+    #[must_use]
+    pub fn new(setups: &HashMap<i64, Setup>, recheck: bool, reject_log: Option<Box<dyn Write + Send>>) -> Tally {
+        let windows = setups
+            .iter()
+            .map(|(&id, s)| {
+                let c = f64::from(s.clock_hz);
+                (id, (s.hold_min_ticks as f64 / c, s.hold_max_ticks as f64 / c))
+            })
+            .collect();
+        let mut checkers = HashMap::new();
+        let mut rc = Recheck::default();
+        if recheck {
+            let mut ids: Vec<&i64> = setups.keys().collect();
+            ids.sort();
+            for id in ids {
+                let Some(s) = setups.get(id) else { continue };
+                match Checker::new(s) {
+                    Ok(c) => {
+                        rc.windows.push(c.window.clone());
+                        checkers.insert(*id, c);
+                    }
+                    Err(e) => rc.setup_errors.push(format!("setup {} ({}): {e}", id, s.name)),
+                }
+            }
+        }
+        let mut reject_log = reject_log.map_or(RejectLog::None, RejectLog::Writer);
+        let reject_error = match &mut reject_log {
+            RejectLog::Writer(w) => log::write_header(w).err(),
+            _ => None,
+        };
+        Tally {
+            stations: Vec::new(),
+            index: HashMap::new(),
+            last_station: usize::MAX,
+            station_batch: Vec::new(),
+            station_day: Vec::new(),
+            all: Group::new("all"),
+            batches: Vec::new(),
+            batch_index: HashMap::new(),
+            days: Vec::new(),
+            day_index: HashMap::new(),
+            last_window: (None, None),
+            windows,
+            checkers,
+            recheck: recheck.then_some(rc),
+            rejects: Vec::new(),
+            rejects_total: 0,
+            reject_log,
+            reject_error,
+            span: None,
+            keep: 50,
+        }
+    }
+
+    fn station(&mut self, name: &str) -> usize {
+        if let Some(g) = self.stations.get(self.last_station) {
+            if g.name == name {
+                return self.last_station;
+            }
+        }
+        // A handful of stations is the rule: look through them before hashing.
+        let found = if self.stations.len() <= 16 {
+            self.stations.iter().position(|g| g.name == name)
+        } else {
+            self.index.get(name).copied()
+        };
+        let i = found.unwrap_or_else(|| {
+            self.stations.push(Group::new(name));
+            self.index.insert(name.to_owned(), self.stations.len() - 1);
+            self.station_batch.push(usize::MAX);
+            self.station_day.push(usize::MAX);
+            self.stations.len() - 1
+        });
+        self.last_station = i;
+        i
+    }
+
+    /// Adds one measurement.
+    pub fn add(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
+        let si = self.station(station);
+        let window = match self.last_window {
+            (id, w) if id == setup_id => w,
+            _ => {
+                let w = setup_id.and_then(|id| self.windows.get(&id)).copied();
+                self.last_window = (setup_id, w);
+                w
+            }
+        };
+        if let Some(g) = self.stations.get_mut(si) {
+            g.add(r, window);
+        }
+        let pass = u64::from(r.verdict.passes());
+        let last = self.station_batch.get(si).copied().unwrap_or(usize::MAX);
+        let b = match self.batches.get(last) {
+            Some(e) if e.1 == batch => last,
+            _ => *self.batch_index.entry((si, batch.to_owned())).or_insert_with(|| {
+                self.batches.push((si, batch.to_owned(), 0, 0));
+                self.batches.len() - 1
+            }),
+        };
+        if let Some(x) = self.station_batch.get_mut(si) {
+            *x = b;
+        }
+        if let Some(e) = self.batches.get_mut(b) {
+            e.2 += 1;
+            e.3 += pass;
+        }
+        let day = measured_ms.div_euclid(86_400_000);
+        let last = self.station_day.get(si).copied().unwrap_or(usize::MAX);
+        let d = match self.days.get(last) {
+            Some(e) if e.1 == day => last,
+            _ => *self.day_index.entry((si, day)).or_insert_with(|| {
+                self.days.push((si, day, 0, 0));
+                self.days.len() - 1
+            }),
+        };
+        if let Some(x) = self.station_day.get_mut(si) {
+            *x = d;
+        }
+        if let Some(e) = self.days.get_mut(d) {
+            e.2 += 1;
+            e.3 += pass;
+        }
+        self.span =
+            Some(self.span.map_or((measured_ms, measured_ms), |(a, b)| (a.min(measured_ms), b.max(measured_ms))));
+        if !r.verdict.passes() {
+            self.rejects_total += 1;
+            if self.rejects.len() < self.keep {
+                self.rejects.push(Reject {
+                    station: station.to_owned(),
+                    batch: batch.to_owned(),
+                    measured_ms,
+                    record: *r,
+                    unit: r.unit_id,
+                    verdict: r.verdict.name(),
+                    hint: r.hint.name(),
+                    hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
+                    c_dev_pct: r.c_deviation_ppm.map(|d| f64::from(d) / 1e4),
+                });
+            }
+            if self.reject_error.is_none() {
+                self.reject_error = match &mut self.reject_log {
+                    RejectLog::None => None,
+                    RejectLog::Writer(w) => log::write_line(w, measured_ms, station, batch, r).err(),
+                    RejectLog::Buffer(v) => log::write_line(v, measured_ms, station, batch, r).err(),
+                };
+            }
+        }
+        if let Some(rc) = self.recheck.as_mut() {
+            let checker = setup_id.and_then(|id| self.checkers.get(&id));
+            match (checker, r.hold_ticks) {
+                (Some(c), Some(h)) if matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) => {
+                    rc.checked += 1;
+                    let (v, hint) = c.judge(h);
+                    if v == r.verdict && hint == r.hint {
+                        rc.agreed += 1;
+                    } else {
+                        rc.disagreements_total += 1;
+                        if rc.disagreements.len() < self.keep {
+                            rc.disagreements.push(Disagreement {
+                                station: station.to_owned(),
+                                unit: r.unit_id,
+                                seq: r.seq,
+                                hold_ticks: h,
+                                firmware: (r.verdict.name(), r.hint.name()),
+                                reference: (v.name(), hint.name()),
+                            });
+                        }
+                    }
+                }
+                _ => rc.not_checkable += 1,
+            }
+        }
+    }
+
+    /// Adds everything another tally (over later records) holds.
+    pub fn merge(&mut self, o: Tally) {
+        let map: Vec<usize> = o.stations.iter().map(|g| self.station(&g.name)).collect();
+        for (g, &i) in o.stations.into_iter().zip(&map) {
+            if let Some(mine) = self.stations.get_mut(i) {
+                mine.merge(g);
+            }
+        }
+        for (s, b, total, passed) in o.batches {
+            let si = map.get(s).copied().unwrap_or(0);
+            let k = *self.batch_index.entry((si, b.clone())).or_insert_with(|| {
+                self.batches.push((si, b, 0, 0));
+                self.batches.len() - 1
+            });
+            if let Some(e) = self.batches.get_mut(k) {
+                e.2 += total;
+                e.3 += passed;
+            }
+        }
+        for (s, d, total, passed) in o.days {
+            let si = map.get(s).copied().unwrap_or(0);
+            let k = *self.day_index.entry((si, d)).or_insert_with(|| {
+                self.days.push((si, d, 0, 0));
+                self.days.len() - 1
+            });
+            if let Some(e) = self.days.get_mut(k) {
+                e.2 += total;
+                e.3 += passed;
+            }
+        }
+        let room = self.keep.saturating_sub(self.rejects.len());
+        self.rejects.extend(o.rejects.into_iter().take(room));
+        self.rejects_total += o.rejects_total;
+        if let (Some(a), Some(b)) = (self.recheck.as_mut(), o.recheck) {
+            a.checked += b.checked;
+            a.agreed += b.agreed;
+            a.not_checkable += b.not_checkable;
+            a.disagreements_total += b.disagreements_total;
+            let room = self.keep.saturating_sub(a.disagreements.len());
+            a.disagreements.extend(b.disagreements.into_iter().take(room));
+        }
+        self.span = match (self.span, o.span) {
+            (Some((a, b)), Some((c, d))) => Some((a.min(c), b.max(d))),
+            (x, None) | (None, x) => x,
+        };
+        if self.reject_error.is_none() {
+            self.reject_error = o.reject_error;
+        }
+        if let RejectLog::Buffer(v) = o.reject_log {
+            if self.reject_error.is_none() {
+                self.reject_error = match &mut self.reject_log {
+                    RejectLog::None => None,
+                    RejectLog::Writer(w) => w.write_all(&v).err(),
+                    RejectLog::Buffer(mine) => {
+                        mine.extend_from_slice(&v);
+                        None
+                    }
+                };
+            }
+        }
+    }
+
+    /// The report.
+    ///
+    /// # Errors
+    /// Writing the reject log failed.
+    pub fn finish(mut self) -> std::io::Result<YieldReport> {
+        if let Some(e) = self.reject_error.take() {
+            return Err(e);
+        }
+        if let RejectLog::Writer(w) = &mut self.reject_log {
+            w.flush()?;
+        }
+        for g in &mut self.stations {
+            g.finish();
+        }
+        // "all" is the stations merged (in station order).
+        for g in &self.stations {
+            self.all.merge(g.clone());
+        }
+        self.all.finish();
+        let name = |i: usize| self.stations.get(i).map_or_else(String::new, |g| g.name.clone());
+        let mut batches: Vec<Part> = self
+            .batches
+            .iter()
+            .map(|(s, b, total, passed)| Part { station: name(*s), key: b.clone(), total: *total, passed: *passed })
+            .collect();
+        batches.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
+        let mut days: Vec<Part> = self
+            .days
+            .iter()
+            .map(|(s, d, total, passed)| Part {
+                station: name(*s),
+                key: time::date_of(d * 86_400_000),
+                total: *total,
+                passed: *passed,
+            })
+            .collect();
+        days.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
+        Ok(YieldReport {
+            stations: self.stations,
+            all: self.all,
+            batches,
+            days,
+            rejects: self.rejects,
+            rejects_total: self.rejects_total,
+            recheck: self.recheck,
+            span_ms: self.span,
+        })
+    }
+}
+
+/// Reads measurement logs in parallel pieces — each file split at line
+/// breaks into one piece per thread, each piece tallied on its own, the
+/// tallies merged in file order — and returns the report. Every record is
+/// judged against setup `setup_id` of `setups` (when given); `keep` says
+/// which records count. Rejects go to `reject_log` in file order.
+///
+/// # Errors
+/// The first bad line of the first file that has one (file, line, field,
+/// accepted range), or a read or write error, as one line.
+pub fn tally_logs(
+    paths: &[std::path::PathBuf],
+    setups: &HashMap<i64, Setup>,
+    setup_id: Option<i64>,
+    recheck: bool,
+    reject_log: Option<Box<dyn Write + Send>>,
+    keep: &(dyn Fn(&log::Line<'_>) -> bool + Sync),
+    threads: usize,
+) -> Result<YieldReport, Error> {
+    let mut total = Tally::new(setups, recheck, reject_log);
+    let buffer = matches!(total.reject_log, RejectLog::Writer(_));
+    for path in paths {
+        let pieces = log::split(path, threads)?;
+        let results: Vec<Result<Tally, (u64, log::RangeError)>> = std::thread::scope(|scope| {
+            let handles: Vec<_> = pieces
+                .iter()
+                .map(|&(a, b)| {
+                    scope.spawn(move || {
+                        let mut t = Tally::new(setups, recheck, None);
+                        if buffer {
+                            t.reject_log = RejectLog::Buffer(Vec::new());
+                        }
+                        log::read_range(path, a, b, |_, l| {
+                            if keep(l) {
+                                t.add(l.station, l.batch, l.measured_ms, &l.record, setup_id);
+                            }
+                            Ok(())
+                        })
+                        .map(|_| t)
+                        .map_err(|e| (a, e))
+                    })
+                })
+                .collect();
+            handles
+                .into_iter()
+                .map(|h| {
+                    h.join()
+                        .unwrap_or_else(|_| Err((0, log::RangeError::Line(0, None, "a reader thread failed".into()))))
+                })
+                .collect()
+        });
+        for r in results {
+            match r {
+                Ok(t) => total.merge(t),
+                Err((_, log::RangeError::Io(e))) => return Err(Error::io(path, e)),
+                Err((start, log::RangeError::Line(i, field, m))) => {
+                    let first = log::line_at(path, start).map_err(|e| Error::io(path, e))?;
+                    return Err(log::LogError { file: path.clone(), line: first + i, field, message: m }.into());
+                }
+            }
+        }
+    }
+    total.finish().map_err(|e| Error::io("rejects.csv", e))
+}
+
+/// `part` as a percentage of `total` to 2 decimals, or a dash.
+pub(crate) fn pct(part: u64, total: u64) -> String {
+    if total == 0 {
+        "–".to_owned()
+    } else {
+        format!("{:.2} %", 100.0 * part as f64 / total as f64)
+    }
+}
+
+/// A value to 2 decimals, or a dash.
+fn opt2(v: Option<f64>) -> String {
+    v.map_or_else(|| "–".to_owned(), |x| format!("{x:.2}"))
+}
+
+/// The report as text.
+#[must_use]
+pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
+    let mut o = String::new();
+    let _ = writeln!(o, "Fixture yield");
+    if let Some((a, b)) = r.span_ms {
+        let _ = writeln!(o, "  measured {} … {}", time::format_ms(a), time::format_ms(b));
+    }
+    let _ = writeln!(o);
+    let _ = writeln!(
+        o,
+        "  {:<16} {:>9} {:>9} {:>9}  {:>10} {:>10} {:>6} {:>6}",
+        "station", "measured", "passed", "yield", "hold mean", "hold σ", "Cp", "Cpk"
+    );
+    for g in r.stations.iter().chain(std::iter::once(&r.all)) {
+        let [name, total, passed, yld, mean, sd, cp, cpk] = g.cells();
+        let _ = writeln!(o, "  {name:<16} {total:>9} {passed:>9} {yld:>9}  {mean:>10} {sd:>10} {cp:>6} {cpk:>6}");
+    }
+    let _ = writeln!(o, "\n  verdicts (all stations)");
+    for (v, n) in VERDICTS.iter().zip(r.all.verdicts) {
+        if n > 0 {
+            let _ = writeln!(o, "    {:<14} {:>9}  {:>8}", v.name(), n, pct(n, r.all.total));
+        }
+    }
+    if let Some((lo, hi)) = r.all.window_s {
+        let _ = writeln!(
+            o,
+            "\n  capability against the pass window {} … {} (NIST/SEMATECH e-Handbook §6.1.6);\n  \
+             {} gross faults (wrong part, open capacitor) left out",
+            si(lo, "s"),
+            si(hi, "s"),
+            r.all.gross
+        );
+    }
+    let _ = writeln!(o, "\n  per batch");
+    for b in r.batches.iter().take(max_rows) {
+        let _ = writeln!(o, "    {:<16} {:<14} {:>9} {:>9}", b.station, b.key, b.total, pct(b.passed, b.total));
+    }
+    if r.batches.len() > max_rows {
+        let _ = writeln!(o, "    … {} more", r.batches.len() - max_rows);
+    }
+    if r.days.len() > 1 {
+        let _ = writeln!(o, "\n  per day (UTC)");
+        for d in r.days.iter().take(max_rows) {
+            let _ = writeln!(o, "    {:<16} {:<14} {:>9} {:>9}", d.station, d.key, d.total, pct(d.passed, d.total));
+        }
+        if r.days.len() > max_rows {
+            let _ = writeln!(o, "    … {} more", r.days.len() - max_rows);
+        }
+    }
+    let _ = writeln!(o, "\n  rejects: {}", r.rejects_total);
+    for x in r.rejects.iter().take(max_rows) {
+        let _ = writeln!(
+            o,
+            "    {:<12} {:<10} unit {:>8}  {:<13} {:<30} hold {:>10}  C {}",
+            x.station,
+            x.batch,
+            x.unit,
+            x.verdict,
+            x.hint,
+            x.hold_s.map_or_else(|| "–".into(), |h| si(h, "s")),
+            x.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %")),
+        );
+    }
+    if r.rejects_total as usize > r.rejects.len().min(max_rows) {
+        let _ = writeln!(o, "    … {} more", r.rejects_total as usize - r.rejects.len().min(max_rows));
+    }
+    match &r.recheck {
+        None => {
+            let _ = writeln!(o, "\n  f64 re-check: switched off");
+        }
+        Some(rc) => {
+            let _ = writeln!(
+                o,
+                "\n  f64 re-check: {} of {} verdicts confirmed by the independent f64 reference; {} disagree; \
+                 {} not re-checkable (no setup, or a verdict a hold does not decide)",
+                rc.agreed, rc.checked, rc.disagreements_total, rc.not_checkable
+            );
+            for w in &rc.windows {
+                let _ = writeln!(
+                    o,
+                    "    {}: reference window {} … {} ticks, firmware window {} … {} ticks{}",
+                    w.setup,
+                    w.hold_min_ticks,
+                    w.hold_max_ticks,
+                    w.stored_ticks.0,
+                    w.stored_ticks.1,
+                    if w.custom { " (set by hand: verdicts judged against it)" } else { "" }
+                );
+            }
+            for e in &rc.setup_errors {
+                let _ = writeln!(o, "    not re-checked: {e}");
+            }
+            for d in rc.disagreements.iter().take(max_rows) {
+                let _ = writeln!(
+                    o,
+                    "    {} unit {} seq {} hold {} ticks: firmware {}/{}, reference {}/{}",
+                    d.station, d.unit, d.seq, d.hold_ticks, d.firmware.0, d.firmware.1, d.reference.0, d.reference.1
+                );
+            }
+        }
+    }
+    o
+}
+
+/// The hold histogram of a group, with its window.
+#[must_use]
+pub fn histogram_svg(g: &Group) -> Option<String> {
+    let (lo, hi) = g.window_s?;
+    let (a, b) = g.hist_range_s;
+    let marks = [
+        Mark { at: lo, label: format!("pass from {}", si(lo, "s")), ink: Ink::Limit },
+        Mark { at: hi, label: format!("pass to {}", si(hi, "s")), ink: Ink::Limit },
+        Mark { at: g.hold_s.mean, label: format!("mean {}", si(g.hold_s.mean, "s")), ink: Ink::Centre },
+    ];
+    let title = format!(
+        "{}: hold of {} boards, Cpk {}{}",
+        g.name,
+        g.hold_s.n,
+        opt2(g.cpk),
+        if g.outside_hist.0 + g.outside_hist.1 > 0 {
+            format!(" ({} outside the plot)", g.outside_hist.0 + g.outside_hist.1)
+        } else {
+            String::new()
+        }
+    );
+    Some(chart::histogram(&Histogram {
+        title: &title,
+        quantity: "hold",
+        unit: "s",
+        lo: a,
+        hi: b,
+        bins: &g.bins,
+        marks: &marks,
+    }))
+}

@@ -1,0 +1,81 @@
+//! Synthetic measurement logs for trying the tools and for benchmarks (not
+//! real data): boards of the Lumen-3 example stage measured at 1 MHz, judged
+//! against the window the example's stage file gives the firmware.
+
+use std::io::Write;
+use std::path::Path;
+
+use hold_firmware::drift::DriftState;
+use hold_firmware::record::Record;
+use hold_firmware::{Hint, Verdict};
+use rand::{Rng, SeedableRng};
+use rand_xoshiro::Xoshiro256PlusPlus;
+use rc_model::Model;
+
+use crate::data::{log, time};
+use crate::design::window;
+use crate::fmt::secs;
+use crate::report::stats::box_muller;
+use crate::sim::demo::{BOARD_TOML, CLOCK_HZ, GUARD_PPM};
+use crate::stage::file as stagefile;
+use crate::Error;
+
+/// Boards per batch.
+const PER_BATCH: u64 = 5_000;
+/// First measurement, and 250 ms between measurements.
+const START: &[u8] = b"2027-01-04T06:00:00Z";
+
+/// Writes `records` measurements from `stations` stations to `out`: holds
+/// around the example's nominal with σ 4 %, one board in 100 grossly off,
+/// each judged against the example's window at 1 MHz with the hint the
+/// firmware would give (the hold is proportional to C).
+///
+/// # Errors
+/// [`Error::Io`] when `out` cannot be written.
+pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(), Error> {
+    let sf = stagefile::parse(Path::new("lumen-keypad.toml"), BOARD_TOML)?;
+    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    let nominal_ticks = secs(nominal.hold) * f64::from(CLOCK_HZ);
+    let config = window::settings(&sf, CLOCK_HZ, GUARD_PPM, window::default_poll_ns(&sf)?)?.config;
+    let io = |e| Error::io(out, e);
+    let f = std::fs::File::create(out).map_err(io)?;
+    let mut w = std::io::BufWriter::with_capacity(1 << 20, f);
+    log::write_header(&mut w).map_err(io)?;
+    let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed);
+    let start = time::parse_ms(START).unwrap_or(0);
+    let names: Vec<String> = (0..stations.max(1)).map(|s| format!("line-{}", s + 1)).collect();
+    for i in 0..records {
+        let gross = rng.random_bool(0.01);
+        let hold = if gross {
+            rng.random_range(nominal_ticks as u64 / 12..nominal_ticks as u64 * 3)
+        } else {
+            let z = box_muller(rng.random_range(f64::EPSILON..1.0), rng.random_range(0.0..1.0));
+            (nominal_ticks.round() * (1.0 + 0.04 * z)) as u64
+        };
+        let verdict = if hold < config.hold_min_ticks {
+            Verdict::Short
+        } else if hold > config.hold_max_ticks {
+            Verdict::Long
+        } else {
+            Verdict::WithinWindow
+        };
+        let dev_ppm = ((hold as f64 / nominal_ticks - 1.0) * 1e6).round() as i64;
+        let r = Record {
+            seq: 0,
+            unit_id: (i & 0xFFFF_FFFF) as u32,
+            press_ticks: 100_000,
+            on_ticks: Some(54),
+            hold_ticks: Some(hold),
+            clock_hz: CLOCK_HZ,
+            temp_mdeg_c: Some(23_000 + rng.random_range(-2_000..2_000)),
+            verdict,
+            hint: if verdict.passes() { Hint::None } else { Hint::from_deviation_ppm(dev_ppm) },
+            drift: DriftState::Settling,
+            c_deviation_ppm: (!verdict.passes())
+                .then(|| dev_ppm.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32),
+        };
+        let name = names.get((i % names.len() as u64) as usize).map_or("line-1", String::as_str);
+        log::write_line(&mut w, start + (i as i64) * 250, name, &format!("B{}", i / PER_BATCH), &r).map_err(io)?;
+    }
+    w.flush().map_err(io)
+}

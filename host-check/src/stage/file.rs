@@ -1,0 +1,582 @@
+//! Stage files: a TOML description of one hold stage, its input, its press and
+//! the spread of its parts. Every problem is reported on one line naming the
+//! file, the line, the key and the accepted range.
+//!
+//! ```toml
+//! [stage]
+//! r = "1M"                 # SI prefixes or IEC 60062 codes ("4K7", "4n7")
+//! c = "1u"
+//! vdd = "5"
+//! driver_ohms = "50"
+//! charge_ohms = "0"
+//! series_ohms = "0"
+//! leak_ohms = "inf"        # or a resistance
+//! diode = { drop = "0.6" } # or { is = "2.5n", n = 1.75, rs = "0.5" }
+//!
+//! [input]
+//! family = "hc-schmitt"    # or rise = 0.6 and fall = 0.4 (fractions of vdd)
+//!
+//! [press]
+//! duration = "100m"
+//!
+//! [tolerance]              # "5%" or an absolute value in the quantity's unit
+//! r = "1%"
+//! c = "10%"
+//! ```
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+use rc_model::presets::{self, InputPreset};
+use rc_model::window::{Aging, Spread, Tempco, ThresholdSpread, Tolerance};
+use rc_model::{Diode, Quantity, Stage};
+use serde::Deserialize;
+use toml::{Spanned, Value};
+
+use crate::stage::values::{parse_tolerance, parse_value, Tol};
+
+/// A problem in a stage file, with where it is.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct StageFileError {
+    /// The file.
+    pub file: PathBuf,
+    /// 1-based line, when known.
+    pub line: Option<usize>,
+    /// The key (dotted path), when known.
+    pub key: Option<String>,
+    /// What is wrong, including the accepted range where there is one.
+    pub message: String,
+}
+
+impl fmt::Display for StageFileError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.file.display())?;
+        if let Some(l) = self.line {
+            write!(f, ":{l}")?;
+        }
+        if let Some(k) = &self.key {
+            write!(f, ": {k}")?;
+        }
+        write!(f, ": {}", self.message)
+    }
+}
+
+impl std::error::Error for StageFileError {}
+
+type Sv = Spanned<Value>;
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Raw {
+    name: Option<Spanned<String>>,
+    stage: RawStage,
+    input: RawInput,
+    press: RawPress,
+    tolerance: Option<RawTolerance>,
+    environment: Option<RawEnvironment>,
+    aging: Option<RawAging>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawStage {
+    r: Sv,
+    c: Sv,
+    vdd: Sv,
+    driver_ohms: Sv,
+    charge_ohms: Sv,
+    series_ohms: Sv,
+    leak_ohms: Sv,
+    leak_amps: Option<Sv>,
+    diode: Spanned<RawDiode>,
+    temperature: Option<Sv>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawDiode {
+    drop: Option<Sv>,
+    is: Option<Sv>,
+    n: Option<Sv>,
+    rs: Option<Sv>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawInput {
+    family: Option<Spanned<String>>,
+    rise: Option<Sv>,
+    fall: Option<Sv>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawPress {
+    duration: Sv,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawTolerance {
+    r: Option<Sv>,
+    c: Option<Sv>,
+    vdd: Option<Sv>,
+    diode: Option<Sv>,
+    driver_ohms: Option<Sv>,
+    rise: Option<Sv>,
+    fall: Option<Sv>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawEnvironment {
+    temp_min: Sv,
+    temp_max: Sv,
+    r_tempco: Option<Sv>,
+    c_tempco: Option<Sv>,
+    drop_tempco: Option<Sv>,
+    threshold_tempco: Option<Sv>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawAging {
+    kind: Spanned<String>,
+    loss_per_decade: Option<Sv>,
+    ref_hours: Option<Sv>,
+    hours: Option<Sv>,
+    loss: Option<Sv>,
+    rated_hours: Option<Sv>,
+    rated_temp: Option<Sv>,
+}
+
+/// Where each model quantity came from, for error messages.
+#[derive(Debug, Clone, Default)]
+pub struct Origins {
+    entries: Vec<(Quantity, usize, String)>,
+}
+
+impl Origins {
+    /// Line and key of a quantity, if the file set it.
+    #[must_use]
+    pub fn of(&self, q: Quantity) -> Option<(usize, &str)> {
+        self.entries.iter().find(|e| e.0 == q).map(|e| (e.1, e.2.as_str()))
+    }
+}
+
+/// A loaded stage file.
+#[derive(Debug, Clone)]
+pub struct StageFile {
+    /// The file it came from.
+    pub path: PathBuf,
+    /// Optional product or stage name.
+    pub name: Option<String>,
+    /// The nominal stage.
+    pub stage: Stage,
+    /// The input family preset, if one was named.
+    pub preset: Option<&'static InputPreset>,
+    /// Whether the input has separate rising and falling thresholds.
+    pub schmitt: bool,
+    /// Tolerances, temperature and aging.
+    pub spread: Spread,
+    /// Where each quantity was set.
+    pub origins: Origins,
+    /// An electrolytic's rated life: hours at a temperature in m°C (`[aging]`
+    /// `rated_hours`, `rated_temp`), for aging horizons by the 10 °C rule.
+    pub rated_life: Option<(u32, i32)>,
+}
+
+struct Ctx<'a> {
+    path: &'a Path,
+    text: &'a str,
+    origins: Origins,
+}
+
+/// The SI unit symbols a value of each kind may carry.
+const OHM: &[&str] = &["Ω", "ohm", "ohms"];
+const FARAD: &[&str] = &["F"];
+const VOLT: &[&str] = &["V"];
+const AMP: &[&str] = &["A"];
+const SECOND: &[&str] = &["s"];
+
+impl Ctx<'_> {
+    fn line_of(&self, offset: usize) -> usize {
+        self.text.get(..offset).map_or(1, |t| t.bytes().filter(|&b| b == b'\n').count() + 1)
+    }
+
+    fn err(&self, offset: Option<usize>, key: &str, message: impl Into<String>) -> StageFileError {
+        StageFileError {
+            file: self.path.to_path_buf(),
+            line: offset.map(|o| self.line_of(o)),
+            key: Some(key.to_string()),
+            message: message.into(),
+        }
+    }
+
+    /// A value in SI units, checked against `[lo, hi]` (given in text as `range`).
+    fn si(&mut self, v: &Sv, key: &str, unit: &[&str], lo: f64, hi: f64, range: &str) -> Result<f64, StageFileError> {
+        let x = match v.get_ref() {
+            Value::String(s) => parse_value(s, unit).map_err(|e| self.err(Some(v.span().start), key, e.to_string()))?,
+            Value::Integer(i) => *i as f64,
+            Value::Float(f) => *f,
+            _ => {
+                return Err(self.err(Some(v.span().start), key, "expected a number or a value string such as \"4.7k\""))
+            }
+        };
+        if x.is_nan() || x < lo || x > hi {
+            return Err(self.err(Some(v.span().start), key, format!("{x} is outside the accepted range ({range})")));
+        }
+        Ok(x)
+    }
+
+    fn note(&mut self, q: Quantity, v: &Sv, key: &str) {
+        let line = self.line_of(v.span().start);
+        self.origins.entries.push((q, line, key.to_string()));
+    }
+
+    fn tol(&self, v: &Sv, key: &str, unit: &[&str], nominal: f64) -> Result<Tolerance, StageFileError> {
+        let s = match v.get_ref() {
+            Value::String(s) => s.clone(),
+            Value::Integer(i) => i.to_string(),
+            Value::Float(f) => f.to_string(),
+            _ => return Err(self.err(Some(v.span().start), key, "expected \"5%\" or an absolute value")),
+        };
+        let t = parse_tolerance(&s, unit).map_err(|e| self.err(Some(v.span().start), key, e.to_string()))?;
+        let frac = match t {
+            Tol::Relative(f) => f,
+            Tol::Absolute(a) if nominal > 0.0 => a / nominal,
+            Tol::Absolute(_) => 0.0,
+        };
+        if !(0.0..=1.0).contains(&frac) {
+            return Err(self.err(
+                Some(v.span().start),
+                key,
+                format!("{s} is outside the accepted range (0 % to 100 % of nominal)"),
+            ));
+        }
+        Ok(Tolerance::symmetric((frac * 1e6).round() as u32))
+    }
+}
+
+fn round_u64(x: f64) -> u64 {
+    x.round() as u64
+}
+
+/// Reads a stage file.
+///
+/// # Errors
+/// [`StageFileError`] for unreadable files, TOML syntax, unknown or missing
+/// keys, unreadable values and values outside the model's domain.
+pub fn load(path: &Path) -> Result<StageFile, StageFileError> {
+    let text = std::fs::read_to_string(path).map_err(|e| StageFileError {
+        file: path.to_path_buf(),
+        line: None,
+        key: None,
+        message: format!("cannot read the file: {e}"),
+    })?;
+    parse(path, &text)
+}
+
+/// Parses stage-file text; `path` is used in messages only.
+///
+/// # Errors
+/// As [`load`].
+pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
+    let mut cx = Ctx { path, text, origins: Origins::default() };
+    let raw: Raw = toml::from_str(text).map_err(|e| {
+        let offset = e.span().map(|s| s.start);
+        let msg = e.message().lines().next().unwrap_or("invalid TOML").trim().to_string();
+        StageFileError { file: path.to_path_buf(), line: offset.map(|o| cx.line_of(o)), key: None, message: msg }
+    })?;
+    let st = &raw.stage;
+    let vdd = cx.si(&st.vdd, "stage.vdd", VOLT, 1.6, 18.0, Quantity::Vdd.range())?;
+    cx.note(Quantity::Vdd, &st.vdd, "stage.vdd");
+    let r = cx.si(&st.r, "stage.r", OHM, 1e3, 1e8, Quantity::R.range())?;
+    cx.note(Quantity::R, &st.r, "stage.r");
+    let c = cx.si(&st.c, "stage.c", FARAD, 100e-12, 10e-3, Quantity::C.range())?;
+    cx.note(Quantity::C, &st.c, "stage.c");
+    let ro = cx.si(&st.driver_ohms, "stage.driver_ohms", OHM, 0.0, 1e6, Quantity::DriverR.range())?;
+    cx.note(Quantity::DriverR, &st.driver_ohms, "stage.driver_ohms");
+    let rch = cx.si(&st.charge_ohms, "stage.charge_ohms", OHM, 0.0, 1e6, Quantity::ChargeR.range())?;
+    cx.note(Quantity::ChargeR, &st.charge_ohms, "stage.charge_ohms");
+    let rs = cx.si(&st.series_ohms, "stage.series_ohms", OHM, 0.0, 1e6, Quantity::SeriesR.range())?;
+    cx.note(Quantity::SeriesR, &st.series_ohms, "stage.series_ohms");
+    let leak = match st.leak_ohms.get_ref() {
+        Value::String(s) if s.trim().eq_ignore_ascii_case("inf") || s.trim().eq_ignore_ascii_case("none") => None,
+        _ => Some(cx.si(&st.leak_ohms, "stage.leak_ohms", OHM, 1e3, 1.8e16, "1 kΩ to 18 PΩ, or \"inf\"")?),
+    };
+    cx.note(Quantity::LeakR, &st.leak_ohms, "stage.leak_ohms");
+    let leak_a = match &st.leak_amps {
+        Some(v) => {
+            cx.note(Quantity::LeakCurrent, v, "stage.leak_amps");
+            cx.si(v, "stage.leak_amps", AMP, 0.0, 1e-6, Quantity::LeakCurrent.range())?
+        }
+        None => 0.0,
+    };
+    let temp = match &st.temperature {
+        Some(v) => {
+            cx.note(Quantity::Temperature, v, "stage.temperature");
+            cx.si(v, "stage.temperature", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?
+        }
+        None => 25.0,
+    };
+    let d = st.diode.get_ref();
+    let dspan = Some(st.diode.span().start);
+    let diode = match (&d.drop, &d.is, &d.n) {
+        (Some(v), None, None) if d.rs.is_none() => {
+            cx.note(Quantity::DiodeDrop, v, "stage.diode.drop");
+            let drop = cx.si(v, "stage.diode.drop", VOLT, 0.0, 2.0, Quantity::DiodeDrop.range())?;
+            Diode::Drop { drop_uv: (drop * 1e6).round() as u32 }
+        }
+        (None, Some(is), Some(n)) => {
+            cx.note(Quantity::DiodeIs, is, "stage.diode.is");
+            cx.note(Quantity::DiodeN, n, "stage.diode.n");
+            let is_a = cx.si(is, "stage.diode.is", AMP, 1e-15, 1e-6, Quantity::DiodeIs.range())?;
+            let n_v = cx.si(n, "stage.diode.n", &[], 0.5, 4.0, Quantity::DiodeN.range())?;
+            let rs_d = match &d.rs {
+                Some(v) => {
+                    cx.note(Quantity::DiodeRs, v, "stage.diode.rs");
+                    cx.si(v, "stage.diode.rs", OHM, 0.0, 1e3, Quantity::DiodeRs.range())?
+                }
+                None => 0.0,
+            };
+            Diode::Junction {
+                is_fa: round_u64(is_a * 1e15),
+                n_milli: (n_v * 1e3).round() as u32,
+                rs_mohm: round_u64(rs_d * 1e3),
+            }
+        }
+        _ => {
+            return Err(cx.err(
+                dspan,
+                "stage.diode",
+                "give either { drop = \"0.6\" } or { is = \"2.5n\", n = 1.75, rs = \"0.5\" }",
+            ))
+        }
+    };
+    let vdd_uv = (vdd * 1e6).round() as u32;
+    // Input thresholds.
+    let inp = &raw.input;
+    let (preset, rise_uv, fall_uv, schmitt, band) = match (&inp.family, &inp.rise, &inp.fall) {
+        (Some(fam), None, None) => {
+            let p = presets::preset(fam.get_ref()).ok_or_else(|| {
+                let names: Vec<&str> = presets::PRESETS.iter().map(|p| p.name).collect();
+                cx.err(Some(fam.span().start), "input.family", format!("unknown family (one of: {})", names.join(", ")))
+            })?;
+            let b = p.bands(vdd_uv).map_err(|_| {
+                cx.err(
+                    Some(fam.span().start),
+                    "input.family",
+                    format!(
+                        "{} is defined for supplies of {} V to {} V, not {} V",
+                        p.name,
+                        f64::from(p.vdd_mv.0) / 1e3,
+                        f64::from(p.vdd_mv.1) / 1e3,
+                        vdd
+                    ),
+                )
+            })?;
+            cx.origins.entries.push((Quantity::Rise, cx.line_of(fam.span().start), "input.family".into()));
+            cx.origins.entries.push((Quantity::Fall, cx.line_of(fam.span().start), "input.family".into()));
+            let spread = if b.schmitt {
+                ThresholdSpread::Schmitt {
+                    rise_uv: (b.rise.min_uv, b.rise.max_uv),
+                    fall_uv: (b.fall.min_uv, b.fall.max_uv),
+                }
+            } else {
+                ThresholdSpread::Single { min_uv: b.rise.min_uv, max_uv: b.rise.max_uv }
+            };
+            (Some(p), b.rise.typ_uv, b.fall.typ_uv, b.schmitt, Some(spread))
+        }
+        (None, Some(r), f) => {
+            cx.note(Quantity::Rise, r, "input.rise");
+            let rf = cx.si(r, "input.rise", &[], 0.05, 0.95, "0.05 to 0.95 of vdd")?;
+            let ff = match f {
+                Some(f) => {
+                    cx.note(Quantity::Fall, f, "input.fall");
+                    cx.si(f, "input.fall", &[], 0.05, rf, "0.05 of vdd up to input.rise")?
+                }
+                None => rf,
+            };
+            let to_uv = |x: f64| (x * vdd * 1e6).round() as u32;
+            (None, to_uv(rf), to_uv(ff), f.is_some() && ff < rf, None)
+        }
+        _ => {
+            return Err(StageFileError {
+                file: path.to_path_buf(),
+                line: None,
+                key: Some("input".into()),
+                message: "give either family = \"<preset>\" or rise (and fall) as fractions of vdd".into(),
+            })
+        }
+    };
+    let press = cx.si(&raw.press.duration, "press.duration", SECOND, 1e-9, 86_400.0, Quantity::Press.range())?;
+    cx.note(Quantity::Press, &raw.press.duration, "press.duration");
+    let stage = Stage {
+        vdd_uv,
+        r_mohm: round_u64(r * 1e3),
+        c_ff: round_u64(c * 1e15),
+        series_mohm: round_u64(rs * 1e3),
+        charge_mohm: round_u64(rch * 1e3),
+        driver_mohm: round_u64(ro * 1e3),
+        leak_mohm: leak.map(|l| round_u64(l * 1e3)),
+        leak_fa: round_u64(leak_a * 1e15),
+        diode,
+        rise_uv,
+        fall_uv,
+        press_ns: round_u64(press * 1e9).max(1),
+        temp_mdeg_c: (temp * 1e3).round() as i32,
+    };
+    // Spread.
+    let mut spread = Spread { thresholds: band, ref_mdeg_c: stage.temp_mdeg_c, ..Spread::default() };
+    if let Some(t) = &raw.tolerance {
+        if let Some(v) = &t.r {
+            spread.r = cx.tol(v, "tolerance.r", OHM, r)?;
+        }
+        if let Some(v) = &t.c {
+            spread.c = cx.tol(v, "tolerance.c", FARAD, c)?;
+        }
+        if let Some(v) = &t.vdd {
+            spread.vdd = cx.tol(v, "tolerance.vdd", VOLT, vdd)?;
+        }
+        if let Some(v) = &t.driver_ohms {
+            spread.driver = cx.tol(v, "tolerance.driver_ohms", OHM, ro)?;
+        }
+        if let Some(v) = &t.diode {
+            let nominal = match diode {
+                Diode::Drop { drop_uv } => f64::from(drop_uv) * 1e-6,
+                Diode::Junction { is_fa, .. } => is_fa as f64 * 1e-15,
+            };
+            let unit = if matches!(diode, Diode::Drop { .. }) { VOLT } else { AMP };
+            spread.diode = cx.tol(v, "tolerance.diode", unit, nominal)?;
+        }
+        // Threshold tolerances for custom inputs: a band around the nominal.
+        let band_of = |cx: &Ctx, v: &Sv, key: &str, nominal_uv: u32| -> Result<(u32, u32), StageFileError> {
+            let t = cx.tol(v, key, VOLT, f64::from(nominal_uv) * 1e-6)?;
+            let d = u64::from(nominal_uv) * u64::from(t.plus_ppm) / 1_000_000;
+            let d = u32::try_from(d).unwrap_or(u32::MAX);
+            Ok((nominal_uv.saturating_sub(d), nominal_uv.saturating_add(d)))
+        };
+        match (&t.rise, &t.fall) {
+            (None, None) => {}
+            (r_t, f_t) => {
+                if preset.is_some() {
+                    let off = r_t.as_ref().or(f_t.as_ref()).map(|v| v.span().start);
+                    return Err(cx.err(
+                        off,
+                        "tolerance.rise",
+                        "a family preset brings its own threshold band; remove tolerance.rise/fall or use custom rise/fall",
+                    ));
+                }
+                let rb = match r_t {
+                    Some(v) => band_of(&cx, v, "tolerance.rise", rise_uv)?,
+                    None => (rise_uv, rise_uv),
+                };
+                let fb = match f_t {
+                    Some(v) => band_of(&cx, v, "tolerance.fall", fall_uv)?,
+                    None => (fall_uv, fall_uv),
+                };
+                spread.thresholds = Some(if schmitt {
+                    ThresholdSpread::Schmitt { rise_uv: rb, fall_uv: fb }
+                } else {
+                    ThresholdSpread::Single { min_uv: rb.0, max_uv: rb.1 }
+                });
+            }
+        }
+    }
+    if let Some(env) = &raw.environment {
+        let lo =
+            cx.si(&env.temp_min, "environment.temp_min", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+        let hi = cx.si(&env.temp_max, "environment.temp_max", &["°C", "C"], lo, 150.0, "temp_min to +150 °C")?;
+        spread.temp_mdeg_c = Some(((lo * 1e3).round() as i32, (hi * 1e3).round() as i32));
+        let ppm = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<Option<i32>, StageFileError> {
+            match v {
+                None => Ok(None),
+                Some(v) => {
+                    let x =
+                        cx.si(v, key, &["ppm/°C", "ppm/C", "ppm"], -100_000.0, 100_000.0, "-100000 to 100000 ppm/°C")?;
+                    Ok(Some(x.round() as i32))
+                }
+            }
+        };
+        let mut tc = Tempco::default();
+        if let Some(x) = ppm(&mut cx, &env.r_tempco, "environment.r_tempco")? {
+            tc.r_ppm_per_c = x;
+        }
+        if let Some(x) = ppm(&mut cx, &env.c_tempco, "environment.c_tempco")? {
+            tc.c_ppm_per_c = x;
+        }
+        if let Some(x) = ppm(&mut cx, &env.threshold_tempco, "environment.threshold_tempco")? {
+            tc.threshold_ppm_per_c = x;
+        }
+        if let Some(v) = &env.drop_tempco {
+            let x = cx.si(v, "environment.drop_tempco", &["V/°C", "V/C", "V"], -0.01, 0.01, "-10 mV/°C to 10 mV/°C")?;
+            tc.drop_uv_per_c = (x * 1e6).round() as i32;
+        }
+        spread.tempco = tc;
+    }
+    let mut rated_life = None;
+    if let Some(a) = &raw.aging {
+        if let (Some(h), Some(t)) = (&a.rated_hours, &a.rated_temp) {
+            let h = cx.si(h, "aging.rated_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?;
+            let t = cx.si(t, "aging.rated_temp", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+            rated_life = Some((h.round() as u32, (t * 1e3).round() as i32));
+        }
+        let pct = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<f64, StageFileError> {
+            let v = v.as_ref().ok_or_else(|| cx.err(Some(a.kind.span().start), key, "missing"))?;
+            let t = cx.tol(v, key, &[], 1.0)?;
+            Ok(f64::from(t.plus_ppm) / 1e6)
+        };
+        spread.aging = Some(match a.kind.get_ref().as_str() {
+            "class2" => {
+                let k = pct(&mut cx, &a.loss_per_decade, "aging.loss_per_decade")?;
+                let hours = match &a.hours {
+                    Some(v) => cx.si(v, "aging.hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
+                    None => {
+                        return Err(cx.err(
+                            Some(a.kind.span().start),
+                            "aging.hours",
+                            "missing (age at the far end of the window)",
+                        ))
+                    }
+                };
+                let ref_hours = match &a.ref_hours {
+                    Some(v) => cx.si(v, "aging.ref_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
+                    None => 1000.0,
+                };
+                Aging::Class2 {
+                    k_milli_pct: (k * 1e5).round() as u32,
+                    ref_hours: ref_hours.round() as u32,
+                    hours: hours.round() as u32,
+                }
+            }
+            "end-of-life" => Aging::EndOfLife { loss_ppm: (pct(&mut cx, &a.loss, "aging.loss")? * 1e6).round() as u32 },
+            _ => return Err(cx.err(Some(a.kind.span().start), "aging.kind", "one of: class2, end-of-life")),
+        });
+    }
+    Ok(StageFile {
+        path: path.to_path_buf(),
+        name: raw.name.map(Spanned::into_inner),
+        stage,
+        preset,
+        schmitt,
+        spread,
+        origins: cx.origins,
+        rated_life,
+    })
+}
+
+impl StageFile {
+    /// A model error turned into a one-line file error pointing at the key
+    /// that set the quantity.
+    #[must_use]
+    pub fn model_error(&self, e: rc_model::Error) -> StageFileError {
+        let (line, key) = match e {
+            rc_model::Error::OutOfDomain(q) => {
+                self.origins.of(q).map_or((None, Some(q.name().to_string())), |(l, k)| (Some(l), Some(k.to_string())))
+            }
+            _ => (None, None),
+        };
+        StageFileError { file: self.path.clone(), line, key, message: e.to_string() }
+    }
+}
