@@ -205,30 +205,13 @@ impl StageF {
 
     /// Diode current at which the capacitor voltage is `vc` (bisection; V_C falls with I).
     pub fn current_at_cap(&self, vc: f64, i_inf: f64) -> f64 {
-        let (mut lo, mut hi) = (i_inf, i_inf.max(1e-30) * 2.0 + self.vdd / self.r_path().max(1e-3));
-        for _ in 0..300 {
-            let mid = 0.5 * (lo + hi);
-            if self.cap_at_current(mid) > vc {
-                lo = mid;
-            } else {
-                hi = mid;
-            }
-        }
-        0.5 * (lo + hi)
+        let hi = i_inf.max(1e-30) * 2.0 + self.vdd / self.r_path().max(1e-3);
+        bisect_falling(i_inf, hi, vc, |i| self.cap_at_current(i))
     }
 
     /// Diode current at which the node voltage is `va` (bisection; V_A falls with I).
     pub fn current_at_node(&self, va: f64) -> f64 {
-        let (mut lo, mut hi) = (0.0, self.vdd / self.r_path().max(1e-3) + 1.0);
-        for _ in 0..300 {
-            let mid = 0.5 * (lo + hi);
-            if self.node_at_current(mid) > va {
-                lo = mid;
-            } else {
-                hi = mid;
-            }
-        }
-        0.5 * (lo + hi)
+        bisect_falling(0.0, self.vdd / self.r_path().max(1e-3) + 1.0, va, |i| self.node_at_current(i))
     }
 }
 
@@ -428,6 +411,20 @@ pub fn inverse_c(s: &StageF, hold: f64) -> Result<f64, RefError> {
         c = next;
     }
     Ok(c)
+}
+
+/// The `x` in `lo ..= hi` where the falling function `f` crosses `target`,
+/// by 300 bisections (to the last bit of an `f64`).
+fn bisect_falling(mut lo: f64, mut hi: f64, target: f64, f: impl Fn(f64) -> f64) -> f64 {
+    for _ in 0..300 {
+        let mid = 0.5 * (lo + hi);
+        if f(mid) > target {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    0.5 * (lo + hi)
 }
 
 #[cfg(test)]

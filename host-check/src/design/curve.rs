@@ -5,7 +5,7 @@ use rc_model::window::ThresholdSpread;
 use rc_model::{Model, Stage};
 
 use crate::fmt::{corner_text, secs, si};
-use crate::report::chart::{self, Curve, Ink, Mark, Trace};
+use crate::report::chart::{self, Curve, Ink, Mark, Series};
 use crate::sim::twin::Twin;
 use crate::stage::file::StageFile;
 use crate::Error;
@@ -60,11 +60,14 @@ pub fn curve_svg(sf: &StageFile, name: &str) -> Result<String, Error> {
         .fold(secs(e.hold), f64::max);
     let span = press + 1.3 * longest.max(1e-9);
     let volts = |uv: u32| f64::from(uv) * 1e-6;
-    let mut traces: Vec<Trace> = corners
-        .iter()
-        .map(|(label, st)| Trace { points: trace(st, span, 600), label: label.clone(), ink: Ink::Muted })
-        .collect();
-    traces.push(Trace { points: trace(nominal, span, 600), label: "nominal".into(), ink: Ink::Centre });
+    let line = |st: &Stage, label: &str, ink: Ink| Series {
+        points: trace(st, span, 600),
+        ink,
+        dots: false,
+        label: Some(label.to_owned()),
+    };
+    let mut traces: Vec<Series<f64>> = corners.iter().map(|(label, st)| line(st, label, Ink::Muted)).collect();
+    traces.push(line(nominal, "nominal", Ink::Centre));
     let levels = if nominal.rise_uv == nominal.fall_uv {
         vec![Mark { at: volts(nominal.rise_uv), label: "switching point".into(), ink: Ink::Fall }]
     } else {

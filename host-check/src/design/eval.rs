@@ -55,40 +55,8 @@ pub fn evaluate(sf: &StageFile) -> EvalReport {
             ),
         });
     }
-    // Peak charge current at the start of a press from empty.
     let v_inf = f.charge_target();
-    let i_inf = v_inf / r_eff + f.i_in;
-    let peak = match f.diode {
-        crate::reference::DiodeF::Drop(vf) => {
-            let path = f.ro + f.rch + f.rs;
-            if path > 0.0 {
-                (f.vdd - vf) / path
-            } else {
-                f64::INFINITY
-            }
-        }
-        crate::reference::DiodeF::Junction { .. } => f.current_at_cap(0.0, i_inf),
-    };
-    if let Some(p) = sf.preset {
-        let limit = f64::from(p.output_limit_ma) * 1e-3;
-        if peak > limit {
-            warnings.push(Warning {
-                code: "drive-current",
-                message: format!(
-                    "the press starts by pulling {} from the driver, above the {} a {} output is commonly rated for (from memory; check the part): add charge resistance",
-                    si(peak, "A"),
-                    si(limit, "A"),
-                    p.name
-                ),
-            });
-        }
-    } else if peak.is_infinite() {
-        warnings.push(Warning {
-            code: "drive-current",
-            message: "no resistance limits the charge current (driver, charge and series resistance are all 0 Ω)"
-                .into(),
-        });
-    }
+    warnings.extend(drive_warning(sf, &f, r_eff, v_inf));
     // Slow edge through a plain input's switching band.
     let i_lk = f.i_in + if let crate::reference::DiodeF::Junction { is, .. } = f.diode { is } else { 0.0 };
     let tau_d = (r_eff + f.rs) * f.c;
@@ -162,6 +130,41 @@ pub fn evaluate(sf: &StageFile) -> EvalReport {
         });
     }
     EvalReport { nominal, window, warnings }
+}
+
+/// The warning about the current the driver must give at the start of a
+/// press from empty, when it is above the family's output rating or unlimited.
+fn drive_warning(sf: &StageFile, f: &StageF, r_eff: f64, v_inf: f64) -> Option<Warning> {
+    let i_inf = v_inf / r_eff + f.i_in;
+    let peak = match f.diode {
+        crate::reference::DiodeF::Drop(vf) => {
+            let path = f.ro + f.rch + f.rs;
+            if path > 0.0 {
+                (f.vdd - vf) / path
+            } else {
+                f64::INFINITY
+            }
+        }
+        crate::reference::DiodeF::Junction { .. } => f.current_at_cap(0.0, i_inf),
+    };
+    if let Some(p) = sf.preset {
+        let limit = f64::from(p.output_limit_ma) * 1e-3;
+        (peak > limit).then(|| Warning {
+                code: "drive-current",
+                message: format!(
+                    "the press starts by pulling {} from the driver, above the {} a {} output is commonly rated for (from memory; check the part): add charge resistance",
+                    si(peak, "A"),
+                    si(limit, "A"),
+                    p.name
+                ),
+            })
+    } else {
+        peak.is_infinite().then(|| Warning {
+            code: "drive-current",
+            message: "no resistance limits the charge current (driver, charge and series resistance are all 0 Ω)"
+                .into(),
+        })
+    }
 }
 
 fn diode_text(d: Diode) -> String {

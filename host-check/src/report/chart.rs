@@ -82,19 +82,6 @@ pub struct Histogram<'a> {
     pub marks: &'a [Mark],
 }
 
-/// One series of a trend: points (UTC ms, value).
-#[derive(Debug, Clone, PartialEq)]
-pub struct Series {
-    /// Points (milliseconds since 1970-01-01 UTC, value).
-    pub points: Vec<(i64, f64)>,
-    /// Colour.
-    pub ink: Ink,
-    /// Drawn as dots instead of a line.
-    pub dots: bool,
-    /// Legend entry (none: not in the legend).
-    pub label: Option<String>,
-}
-
 /// A shaded interval of dates with a legend entry (a forecast's 95 % interval).
 #[derive(Debug, Clone, PartialEq)]
 pub struct Band {
@@ -104,6 +91,20 @@ pub struct Band {
     pub to_ms: i64,
     /// Legend entry.
     pub label: String,
+}
+
+/// One series of points `(x, value)`: on a trend `x` is UTC ms (`i64`), on
+/// the node-voltage curve seconds after the press starts (`f64`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Series<X = i64> {
+    /// Points (x, value).
+    pub points: Vec<(X, f64)>,
+    /// Colour.
+    pub ink: Ink,
+    /// Drawn as dots instead of a line.
+    pub dots: bool,
+    /// Legend entry (none: not in the legend).
+    pub label: Option<String>,
 }
 
 /// Values over calendar dates.
@@ -121,24 +122,13 @@ pub struct Trend<'a> {
     pub bands: &'a [Band],
 }
 
-/// One trace of the node voltage: (s after the press starts, V).
-#[derive(Debug, Clone, PartialEq)]
-pub struct Trace {
-    /// Samples (s, V).
-    pub points: Vec<(f64, f64)>,
-    /// Legend entry.
-    pub label: String,
-    /// Colour.
-    pub ink: Ink,
-}
-
 /// The node voltage through press and release.
 #[derive(Debug, Clone)]
 pub struct Curve<'a> {
     /// Title above the plot.
     pub title: &'a str,
-    /// Traces; the last is drawn on top.
-    pub traces: &'a [Trace],
+    /// Traces (s after the press starts, V); the last is drawn on top.
+    pub traces: &'a [Series<f64>],
     /// Threshold lines (V).
     pub levels: &'a [Mark],
     /// Threshold bands (V from, V to, label, colour).
@@ -413,11 +403,10 @@ fn curve_panel(
         let width = if i + 1 == c.traces.len() { 2 } else { 1 };
         let colour = tr.ink.rgb();
         let pts = tr.points.iter().copied().filter(|(t, _)| (t0..=t1).contains(t));
-        chart
-            .draw_series(LineSeries::new(pts, colour.stroke_width(width)))
-            .map_err(err)?
-            .label(&tr.label)
-            .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], colour.stroke_width(2)));
+        let drawn = chart.draw_series(LineSeries::new(pts, colour.stroke_width(width))).map_err(err)?;
+        if let Some(label) = &tr.label {
+            drawn.label(label).legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], colour.stroke_width(2)));
+        }
     }
     if with_legend {
         // The charge sits high on the left and the decay ends low on the right: the
@@ -477,8 +466,12 @@ mod tests {
 
     #[test]
     fn a_short_press_splits_the_time_axis() {
-        let traces =
-            [Trace { points: vec![(0.0, 0.0), (1e-4, 4.4), (2.0, 1.0)], label: "nominal".into(), ink: Ink::Centre }];
+        let traces = [Series {
+            points: vec![(0.0, 0.0), (1e-4, 4.4), (2.0, 1.0)],
+            ink: Ink::Centre,
+            dots: false,
+            label: Some("nominal".into()),
+        }];
         let c = Curve {
             title: "t",
             traces: &traces,

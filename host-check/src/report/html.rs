@@ -11,6 +11,29 @@ use crate::report::aging::{FleetReport, Status};
 use crate::report::files::{needing_attention, AgingCharts, YieldCharts};
 use crate::report::yields::{pct, Recheck, YieldReport};
 
+/// A table cell: its text and whether it is left-aligned (words) or
+/// right-aligned (numbers).
+type Cell = (String, bool);
+
+/// A left-aligned cell.
+fn l(v: impl std::fmt::Display) -> Cell {
+    (v.to_string(), true)
+}
+
+/// A right-aligned cell.
+fn r(v: impl std::fmt::Display) -> Cell {
+    (v.to_string(), false)
+}
+
+/// One table row, every cell escaped.
+fn row(o: &mut String, cells: &[Cell]) {
+    o.push_str("<tr>");
+    for (text, left) in cells {
+        let _ = write!(o, "<td{}>{}</td>", if *left { " class=l" } else { "" }, xml(text));
+    }
+    o.push_str("</tr>");
+}
+
 const STYLE: &str = "body{font-family:sans-serif;margin:2em auto;max-width:1000px;color:#222}\
 h1{font-size:1.5em}h2{font-size:1.2em;margin-top:2em;border-bottom:1px solid #ccc}\
 table{border-collapse:collapse;margin:0.5em 0}td,th{padding:2px 10px;border-bottom:1px solid #eee;text-align:right}\
@@ -56,16 +79,12 @@ fn yield_section(o: &mut String, y: &YieldReport, yc: &YieldCharts) {
     );
     for g in y.stations.iter().chain(std::iter::once(&y.all)) {
         let [name, total, passed, yld, mean, sd, cp, cpk] = g.cells();
-        let _ = write!(
-            o,
-            "<tr><td class=l>{}</td><td>{total}</td><td>{passed}</td><td>{yld}</td><td>{mean}</td><td>{sd}</td><td>{cp}</td><td>{cpk}</td></tr>",
-            xml(&name)
-        );
+        row(o, &[l(name), r(total), r(passed), r(yld), r(mean), r(sd), r(cp), r(cpk)]);
     }
     o.push_str("</table><p>Cp and Cpk of the hold against the pass window (NIST/SEMATECH e-Handbook §6.1.6), \
                 gross faults (wrong part, open capacitor) left out.</p><table><tr><th class=l>verdict</th><th>count</th><th>share</th></tr>");
     for (v, n) in VERDICTS.iter().zip(y.all.verdicts) {
-        let _ = write!(o, "<tr><td class=l>{}</td><td>{n}</td><td>{}</td></tr>", v.name(), pct(n, y.all.total));
+        row(o, &[l(v.name()), r(n), r(pct(n, y.all.total))]);
     }
     o.push_str("</table>");
     for svg in &yc.holds {
@@ -73,14 +92,7 @@ fn yield_section(o: &mut String, y: &YieldReport, yc: &YieldCharts) {
     }
     o.push_str("<h3>Per batch</h3><table><tr><th class=l>station</th><th class=l>batch</th><th>measured</th><th>yield</th></tr>");
     for b in &y.batches {
-        let _ = write!(
-            o,
-            "<tr><td class=l>{}</td><td class=l>{}</td><td>{}</td><td>{}</td></tr>",
-            xml(&b.station),
-            xml(&b.key),
-            b.total,
-            pct(b.passed, b.total)
-        );
+        row(o, &[l(&b.station), l(&b.key), r(b.total), r(pct(b.passed, b.total))]);
     }
     let _ = write!(
         o,
@@ -88,18 +100,10 @@ fn yield_section(o: &mut String, y: &YieldReport, yc: &YieldCharts) {
          <th class=l>verdict</th><th class=l>likely cause</th><th>hold</th><th>C deviation</th></tr>",
         y.rejects_total
     );
-    for r in &y.rejects {
-        let _ = write!(
-            o,
-            "<tr><td class=l>{}</td><td class=l>{}</td><td>{}</td><td class=l>{}</td><td class=l>{}</td><td>{}</td><td>{}</td></tr>",
-            xml(&r.station),
-            xml(&r.batch),
-            r.unit,
-            r.verdict,
-            r.hint,
-            r.hold_s.map_or_else(|| "–".into(), |h| si(h, "s")),
-            r.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %"))
-        );
+    for x in &y.rejects {
+        let hold = x.hold_s.map_or_else(|| "–".into(), |h| si(h, "s"));
+        let dev = x.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %"));
+        row(o, &[l(&x.station), l(&x.batch), r(x.unit), l(x.verdict), l(x.hint), r(hold), r(dev)]);
     }
     o.push_str("</table>");
     if let Some(rc) = &y.recheck {
@@ -117,17 +121,9 @@ fn recheck_section(o: &mut String, rc: &Recheck) {
     if !rc.disagreements.is_empty() {
         o.push_str("<table><tr><th class=l>station</th><th>unit</th><th>hold ticks</th><th class=l>firmware</th><th class=l>reference</th></tr>");
         for d in &rc.disagreements {
-            let _ = write!(
-                o,
-                "<tr><td class=l>{}</td><td>{}</td><td>{}</td><td class=l>{} / {}</td><td class=l>{} / {}</td></tr>",
-                xml(&d.station),
-                d.unit,
-                d.hold_ticks,
-                d.firmware.0,
-                d.firmware.1,
-                d.reference.0,
-                d.reference.1
-            );
+            let (fw, re) =
+                (format!("{} / {}", d.firmware.0, d.firmware.1), format!("{} / {}", d.reference.0, d.reference.1));
+            row(o, &[l(&d.station), r(d.unit), r(d.hold_ticks), l(fw), l(re)]);
         }
         o.push_str("</table>");
     }
@@ -160,17 +156,12 @@ fn fleet_section(o: &mut String, f: &FleetReport, ac: &AgingCharts) {
                 <th class=l>95 % interval</th><th class=l>status</th></tr>",
     );
     for u in needing_attention(f) {
-        let _ = write!(
-            o,
-            "<tr><td class=l>{}</td><td>{:.4}</td><td>{}</td><td class=l>{}</td><td class=l>{}</td><td class=l>{}</td></tr>",
-            u.unit,
-            u.last_ratio,
-            u.rate_pct_per_year.map_or_else(|| "–".into(), |r| format!("{r:+.2}")),
-            u.forecast_ms.map_or_else(|| "–".into(), time::date_of),
-            u.forecast_interval_ms
-                .map_or_else(|| "–".into(), |(a, b)| format!("{} … {}", time::date_of(a), time::date_of(b))),
-            u.status.name()
-        );
+        let rate = u.rate_pct_per_year.map_or_else(|| "–".into(), |x| format!("{x:+.2}"));
+        let forecast = u.forecast_ms.map_or_else(|| "–".into(), time::date_of);
+        let interval = u
+            .forecast_interval_ms
+            .map_or_else(|| "–".into(), |(a, b)| format!("{} … {}", time::date_of(a), time::date_of(b)));
+        row(o, &[l(u.unit), r(format!("{:.4}", u.last_ratio)), r(rate), l(forecast), l(interval), l(u.status.name())]);
     }
     o.push_str("</table>");
     for svg in &ac.units {

@@ -395,30 +395,7 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
         ledger.bay_a_bad += s.3;
     }
     // Bay B: its PC decodes the frames and writes one measurement log per batch.
-    let base = time::now_ms() - 8 * 3_600_000;
-    for (k, chunk) in bay_b.chunks(bay_b.len().div_ceil(2).max(1)).enumerate() {
-        let (bytes, _) = framed(chunk, &mut rng, 0, 0)?;
-        let path = out_dir.join(format!("bay-B-L3-{}.csv", 2_648 + k));
-        let mut w = std::io::BufWriter::new(std::fs::File::create(&path).map_err(|e| Error::io(&path, e))?);
-        log::write_header(&mut w).map_err(|e| Error::io(&path, e))?;
-        let mut reader = crate::data::frames::FrameReader::new(Cursor::new(bytes));
-        let mut i = 0i64;
-        while let Some(r) = reader.next_record().map_err(sim)? {
-            log::write_line(&mut w, base + i * 14_000, "bay-B", &format!("L3-{}", 2_648 + k), &r)
-                .map_err(|e| Error::io(&path, e))?;
-            i += 1;
-            ledger.bay_b_lines += 1;
-        }
-        std::io::Write::flush(&mut w).map_err(|e| Error::io(&path, e))?;
-        drop(w);
-        match collect::ingest(&mut store, &path, Some(board_setup_id))? {
-            Ingested::Stored { written, .. } => ledger.bay_b_stored += written.stored,
-            Ingested::AlreadyStored { .. } => {
-                return Err(sim(format!("{}: unexpectedly stored before", path.display())))
-            }
-        }
-        files.push(path);
-    }
+    files.extend(bay_b_logs(&mut store, bay_b, board_setup_id, out_dir, &mut rng, &mut ledger)?);
 
     say(&format!(
         "simulating {} Kestrel-5 meters measuring themselves daily for {} days ({} measurements) …",
@@ -471,6 +448,44 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
     let fleet = fleet_tally.finish(0.8, 12);
     files.extend(write_reports(out_dir, &yields, &fleet, Some(&ledger))?);
     Ok(Outcome { yields, fleet, ledger, files })
+}
+
+/// Bay B: its PC decodes the frames and writes one measurement log per
+/// batch, which `ingest` stores. Returns the logs written.
+fn bay_b_logs(
+    store: &mut Store,
+    bay_b: &[Record],
+    board_setup_id: i64,
+    out_dir: &Path,
+    rng: &mut Xoshiro256PlusPlus,
+    ledger: &mut Ledger,
+) -> Result<Vec<PathBuf>, Error> {
+    let mut files = Vec::new();
+    let base = time::now_ms() - 8 * 3_600_000;
+    for (k, chunk) in bay_b.chunks(bay_b.len().div_ceil(2).max(1)).enumerate() {
+        let (bytes, _) = framed(chunk, rng, 0, 0)?;
+        let path = out_dir.join(format!("bay-B-L3-{}.csv", 2_648 + k));
+        let mut w = std::io::BufWriter::new(std::fs::File::create(&path).map_err(|e| Error::io(&path, e))?);
+        log::write_header(&mut w).map_err(|e| Error::io(&path, e))?;
+        let mut reader = crate::data::frames::FrameReader::new(Cursor::new(bytes));
+        let mut i = 0i64;
+        while let Some(r) = reader.next_record().map_err(sim)? {
+            log::write_line(&mut w, base + i * 14_000, "bay-B", &format!("L3-{}", 2_648 + k), &r)
+                .map_err(|e| Error::io(&path, e))?;
+            i += 1;
+            ledger.bay_b_lines += 1;
+        }
+        std::io::Write::flush(&mut w).map_err(|e| Error::io(&path, e))?;
+        drop(w);
+        match collect::ingest(store, &path, Some(board_setup_id))? {
+            Ingested::Stored { written, .. } => ledger.bay_b_stored += written.stored,
+            Ingested::AlreadyStored { .. } => {
+                return Err(sim(format!("{}: unexpectedly stored before", path.display())))
+            }
+        }
+        files.push(path);
+    }
+    Ok(files)
 }
 
 /// The conservation lines of the ledger.

@@ -320,9 +320,57 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         }
         None => 25.0,
     };
-    let d = st.diode.get_ref();
-    let dspan = Some(st.diode.span().start);
-    let diode = match (&d.drop, &d.is, &d.n) {
+    let diode = parse_diode(&mut cx, &st.diode)?;
+    let vdd_uv = (vdd * 1e6).round() as u32;
+    let (preset, rise_uv, fall_uv, schmitt, band) = parse_input(&mut cx, &raw.input, vdd)?;
+    let press = cx.si(&raw.press.duration, "press.duration", SECOND, 1e-9, 86_400.0, Quantity::Press.range())?;
+    cx.note(Quantity::Press, &raw.press.duration, "press.duration");
+    let stage = Stage {
+        vdd_uv,
+        r_mohm: round_u64(r * 1e3),
+        c_ff: round_u64(c * 1e15),
+        series_mohm: round_u64(rs * 1e3),
+        charge_mohm: round_u64(rch * 1e3),
+        driver_mohm: round_u64(ro * 1e3),
+        leak_mohm: leak.map(|l| round_u64(l * 1e3)),
+        leak_fa: round_u64(leak_a * 1e15),
+        diode,
+        rise_uv,
+        fall_uv,
+        press_ns: round_u64(press * 1e9).max(1),
+        temp_mdeg_c: (temp * 1e3).round() as i32,
+    };
+    // Spread.
+    let mut spread = Spread { thresholds: band, ref_mdeg_c: stage.temp_mdeg_c, ..Spread::default() };
+    if let Some(t) = &raw.tolerance {
+        let nominal = Nominal { r, c, vdd, driver: ro, diode, rise_uv, fall_uv, schmitt, preset: preset.is_some() };
+        parse_tolerance_table(&cx, t, &nominal, &mut spread)?;
+    }
+    if let Some(env) = &raw.environment {
+        parse_environment(&mut cx, env, &mut spread)?;
+    }
+    let (aging, rated_life) = match &raw.aging {
+        Some(a) => parse_aging(&mut cx, a)?,
+        None => (None, None),
+    };
+    spread.aging = aging;
+    Ok(StageFile {
+        path: path.to_path_buf(),
+        name: raw.name.map(Spanned::into_inner),
+        stage,
+        preset,
+        schmitt,
+        spread,
+        origins: cx.origins,
+        rated_life,
+    })
+}
+
+/// The `[stage.diode]` table: a fixed drop, or a junction (Shockley).
+fn parse_diode(cx: &mut Ctx<'_>, diode: &Spanned<RawDiode>) -> Result<Diode, StageFileError> {
+    let d = diode.get_ref();
+    let dspan = Some(diode.span().start);
+    Ok(match (&d.drop, &d.is, &d.n) {
         (Some(v), None, None) if d.rs.is_none() => {
             cx.note(Quantity::DiodeDrop, v, "stage.diode.drop");
             let drop = cx.si(v, "stage.diode.drop", VOLT, 0.0, 2.0, Quantity::DiodeDrop.range())?;
@@ -353,11 +401,17 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
                 "give either { drop = \"0.6\" } or { is = \"2.5n\", n = 1.75, rs = \"0.5\" }",
             ))
         }
-    };
+    })
+}
+
+/// What the `[input]` table gives: the preset, the typical rising and falling
+/// thresholds (µV), whether the input is a Schmitt input, and its band.
+type Input = (Option<&'static InputPreset>, u32, u32, bool, Option<ThresholdSpread>);
+
+/// The `[input]` table: a family preset, or custom thresholds as fractions of vdd.
+fn parse_input(cx: &mut Ctx<'_>, inp: &RawInput, vdd: f64) -> Result<Input, StageFileError> {
     let vdd_uv = (vdd * 1e6).round() as u32;
-    // Input thresholds.
-    let inp = &raw.input;
-    let (preset, rise_uv, fall_uv, schmitt, band) = match (&inp.family, &inp.rise, &inp.fall) {
+    Ok(match (&inp.family, &inp.rise, &inp.fall) {
         (Some(fam), None, None) => {
             let p = presets::preset(fam.get_ref()).ok_or_else(|| {
                 let names: Vec<&str> = presets::PRESETS.iter().map(|p| p.name).collect();
@@ -403,167 +457,167 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         }
         _ => {
             return Err(StageFileError {
-                file: path.to_path_buf(),
+                file: cx.path.to_path_buf(),
                 line: None,
                 key: Some("input".into()),
                 message: "give either family = \"<preset>\" or rise (and fall) as fractions of vdd".into(),
             })
         }
-    };
-    let press = cx.si(&raw.press.duration, "press.duration", SECOND, 1e-9, 86_400.0, Quantity::Press.range())?;
-    cx.note(Quantity::Press, &raw.press.duration, "press.duration");
-    let stage = Stage {
-        vdd_uv,
-        r_mohm: round_u64(r * 1e3),
-        c_ff: round_u64(c * 1e15),
-        series_mohm: round_u64(rs * 1e3),
-        charge_mohm: round_u64(rch * 1e3),
-        driver_mohm: round_u64(ro * 1e3),
-        leak_mohm: leak.map(|l| round_u64(l * 1e3)),
-        leak_fa: round_u64(leak_a * 1e15),
-        diode,
-        rise_uv,
-        fall_uv,
-        press_ns: round_u64(press * 1e9).max(1),
-        temp_mdeg_c: (temp * 1e3).round() as i32,
-    };
-    // Spread.
-    let mut spread = Spread { thresholds: band, ref_mdeg_c: stage.temp_mdeg_c, ..Spread::default() };
-    if let Some(t) = &raw.tolerance {
-        if let Some(v) = &t.r {
-            spread.r = cx.tol(v, "tolerance.r", OHM, r)?;
-        }
-        if let Some(v) = &t.c {
-            spread.c = cx.tol(v, "tolerance.c", FARAD, c)?;
-        }
-        if let Some(v) = &t.vdd {
-            spread.vdd = cx.tol(v, "tolerance.vdd", VOLT, vdd)?;
-        }
-        if let Some(v) = &t.driver_ohms {
-            spread.driver = cx.tol(v, "tolerance.driver_ohms", OHM, ro)?;
-        }
-        if let Some(v) = &t.diode {
-            let nominal = match diode {
-                Diode::Drop { drop_uv } => f64::from(drop_uv) * 1e-6,
-                Diode::Junction { is_fa, .. } => is_fa as f64 * 1e-15,
-            };
-            let unit = if matches!(diode, Diode::Drop { .. }) { VOLT } else { AMP };
-            spread.diode = cx.tol(v, "tolerance.diode", unit, nominal)?;
-        }
-        // Threshold tolerances for custom inputs: a band around the nominal.
-        let band_of = |cx: &Ctx, v: &Sv, key: &str, nominal_uv: u32| -> Result<(u32, u32), StageFileError> {
-            let t = cx.tol(v, key, VOLT, f64::from(nominal_uv) * 1e-6)?;
-            let d = u64::from(nominal_uv) * u64::from(t.plus_ppm) / 1_000_000;
-            let d = u32::try_from(d).unwrap_or(u32::MAX);
-            Ok((nominal_uv.saturating_sub(d), nominal_uv.saturating_add(d)))
-        };
-        match (&t.rise, &t.fall) {
-            (None, None) => {}
-            (r_t, f_t) => {
-                if preset.is_some() {
-                    let off = r_t.as_ref().or(f_t.as_ref()).map(|v| v.span().start);
-                    return Err(cx.err(
-                        off,
-                        "tolerance.rise",
-                        "a family preset brings its own threshold band; remove tolerance.rise/fall or use custom rise/fall",
-                    ));
-                }
-                let rb = match r_t {
-                    Some(v) => band_of(&cx, v, "tolerance.rise", rise_uv)?,
-                    None => (rise_uv, rise_uv),
-                };
-                let fb = match f_t {
-                    Some(v) => band_of(&cx, v, "tolerance.fall", fall_uv)?,
-                    None => (fall_uv, fall_uv),
-                };
-                spread.thresholds = Some(if schmitt {
-                    ThresholdSpread::Schmitt { rise_uv: rb, fall_uv: fb }
-                } else {
-                    ThresholdSpread::Single { min_uv: rb.0, max_uv: rb.1 }
-                });
-            }
-        }
-    }
-    if let Some(env) = &raw.environment {
-        let lo =
-            cx.si(&env.temp_min, "environment.temp_min", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
-        let hi = cx.si(&env.temp_max, "environment.temp_max", &["°C", "C"], lo, 150.0, "temp_min to +150 °C")?;
-        spread.temp_mdeg_c = Some(((lo * 1e3).round() as i32, (hi * 1e3).round() as i32));
-        let ppm = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<Option<i32>, StageFileError> {
-            match v {
-                None => Ok(None),
-                Some(v) => {
-                    let x =
-                        cx.si(v, key, &["ppm/°C", "ppm/C", "ppm"], -100_000.0, 100_000.0, "-100000 to 100000 ppm/°C")?;
-                    Ok(Some(x.round() as i32))
-                }
-            }
-        };
-        let mut tc = Tempco::default();
-        if let Some(x) = ppm(&mut cx, &env.r_tempco, "environment.r_tempco")? {
-            tc.r_ppm_per_c = x;
-        }
-        if let Some(x) = ppm(&mut cx, &env.c_tempco, "environment.c_tempco")? {
-            tc.c_ppm_per_c = x;
-        }
-        if let Some(x) = ppm(&mut cx, &env.threshold_tempco, "environment.threshold_tempco")? {
-            tc.threshold_ppm_per_c = x;
-        }
-        if let Some(v) = &env.drop_tempco {
-            let x = cx.si(v, "environment.drop_tempco", &["V/°C", "V/C", "V"], -0.01, 0.01, "-10 mV/°C to 10 mV/°C")?;
-            tc.drop_uv_per_c = (x * 1e6).round() as i32;
-        }
-        spread.tempco = tc;
-    }
-    let mut rated_life = None;
-    if let Some(a) = &raw.aging {
-        if let (Some(h), Some(t)) = (&a.rated_hours, &a.rated_temp) {
-            let h = cx.si(h, "aging.rated_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?;
-            let t = cx.si(t, "aging.rated_temp", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
-            rated_life = Some((h.round() as u32, (t * 1e3).round() as i32));
-        }
-        let pct = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<f64, StageFileError> {
-            let v = v.as_ref().ok_or_else(|| cx.err(Some(a.kind.span().start), key, "missing"))?;
-            let t = cx.tol(v, key, &[], 1.0)?;
-            Ok(f64::from(t.plus_ppm) / 1e6)
-        };
-        spread.aging = Some(match a.kind.get_ref().as_str() {
-            "class2" => {
-                let k = pct(&mut cx, &a.loss_per_decade, "aging.loss_per_decade")?;
-                let hours = match &a.hours {
-                    Some(v) => cx.si(v, "aging.hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
-                    None => {
-                        return Err(cx.err(
-                            Some(a.kind.span().start),
-                            "aging.hours",
-                            "missing (age at the far end of the window)",
-                        ))
-                    }
-                };
-                let ref_hours = match &a.ref_hours {
-                    Some(v) => cx.si(v, "aging.ref_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
-                    None => 1000.0,
-                };
-                Aging::Class2 {
-                    k_milli_pct: (k * 1e5).round() as u32,
-                    ref_hours: ref_hours.round() as u32,
-                    hours: hours.round() as u32,
-                }
-            }
-            "end-of-life" => Aging::EndOfLife { loss_ppm: (pct(&mut cx, &a.loss, "aging.loss")? * 1e6).round() as u32 },
-            _ => return Err(cx.err(Some(a.kind.span().start), "aging.kind", "one of: class2, end-of-life")),
-        });
-    }
-    Ok(StageFile {
-        path: path.to_path_buf(),
-        name: raw.name.map(Spanned::into_inner),
-        stage,
-        preset,
-        schmitt,
-        spread,
-        origins: cx.origins,
-        rated_life,
     })
+}
+
+/// The nominal values the `[tolerance]` table's entries are relative to.
+struct Nominal {
+    r: f64,
+    c: f64,
+    vdd: f64,
+    driver: f64,
+    diode: Diode,
+    rise_uv: u32,
+    fall_uv: u32,
+    schmitt: bool,
+    preset: bool,
+}
+
+/// The `[tolerance]` table into `spread`.
+fn parse_tolerance_table(
+    cx: &Ctx<'_>,
+    t: &RawTolerance,
+    n: &Nominal,
+    spread: &mut Spread,
+) -> Result<(), StageFileError> {
+    if let Some(v) = &t.r {
+        spread.r = cx.tol(v, "tolerance.r", OHM, n.r)?;
+    }
+    if let Some(v) = &t.c {
+        spread.c = cx.tol(v, "tolerance.c", FARAD, n.c)?;
+    }
+    if let Some(v) = &t.vdd {
+        spread.vdd = cx.tol(v, "tolerance.vdd", VOLT, n.vdd)?;
+    }
+    if let Some(v) = &t.driver_ohms {
+        spread.driver = cx.tol(v, "tolerance.driver_ohms", OHM, n.driver)?;
+    }
+    if let Some(v) = &t.diode {
+        let nominal = match n.diode {
+            Diode::Drop { drop_uv } => f64::from(drop_uv) * 1e-6,
+            Diode::Junction { is_fa, .. } => is_fa as f64 * 1e-15,
+        };
+        let unit = if matches!(n.diode, Diode::Drop { .. }) { VOLT } else { AMP };
+        spread.diode = cx.tol(v, "tolerance.diode", unit, nominal)?;
+    }
+    // Threshold tolerances for custom inputs: a band around the nominal.
+    let band_of = |cx: &Ctx, v: &Sv, key: &str, nominal_uv: u32| -> Result<(u32, u32), StageFileError> {
+        let t = cx.tol(v, key, VOLT, f64::from(nominal_uv) * 1e-6)?;
+        let d = u64::from(nominal_uv) * u64::from(t.plus_ppm) / 1_000_000;
+        let d = u32::try_from(d).unwrap_or(u32::MAX);
+        Ok((nominal_uv.saturating_sub(d), nominal_uv.saturating_add(d)))
+    };
+    match (&t.rise, &t.fall) {
+        (None, None) => {}
+        (r_t, f_t) => {
+            if n.preset {
+                let off = r_t.as_ref().or(f_t.as_ref()).map(|v| v.span().start);
+                return Err(cx.err(
+                    off,
+                    "tolerance.rise",
+                    "a family preset brings its own threshold band; remove tolerance.rise/fall or use custom rise/fall",
+                ));
+            }
+            let rb = match r_t {
+                Some(v) => band_of(cx, v, "tolerance.rise", n.rise_uv)?,
+                None => (n.rise_uv, n.rise_uv),
+            };
+            let fb = match f_t {
+                Some(v) => band_of(cx, v, "tolerance.fall", n.fall_uv)?,
+                None => (n.fall_uv, n.fall_uv),
+            };
+            spread.thresholds = Some(if n.schmitt {
+                ThresholdSpread::Schmitt { rise_uv: rb, fall_uv: fb }
+            } else {
+                ThresholdSpread::Single { min_uv: rb.0, max_uv: rb.1 }
+            });
+        }
+    }
+    Ok(())
+}
+
+/// The `[environment]` table (temperature range and tempcos) into `spread`.
+fn parse_environment(cx: &mut Ctx<'_>, env: &RawEnvironment, spread: &mut Spread) -> Result<(), StageFileError> {
+    let lo = cx.si(&env.temp_min, "environment.temp_min", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+    let hi = cx.si(&env.temp_max, "environment.temp_max", &["°C", "C"], lo, 150.0, "temp_min to +150 °C")?;
+    spread.temp_mdeg_c = Some(((lo * 1e3).round() as i32, (hi * 1e3).round() as i32));
+    let ppm = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<Option<i32>, StageFileError> {
+        match v {
+            None => Ok(None),
+            Some(v) => {
+                let x =
+                    cx.si(v, key, &["ppm/°C", "ppm/C", "ppm"], -100_000.0, 100_000.0, "-100000 to 100000 ppm/°C")?;
+                Ok(Some(x.round() as i32))
+            }
+        }
+    };
+    let mut tc = Tempco::default();
+    if let Some(x) = ppm(cx, &env.r_tempco, "environment.r_tempco")? {
+        tc.r_ppm_per_c = x;
+    }
+    if let Some(x) = ppm(cx, &env.c_tempco, "environment.c_tempco")? {
+        tc.c_ppm_per_c = x;
+    }
+    if let Some(x) = ppm(cx, &env.threshold_tempco, "environment.threshold_tempco")? {
+        tc.threshold_ppm_per_c = x;
+    }
+    if let Some(v) = &env.drop_tempco {
+        let x = cx.si(v, "environment.drop_tempco", &["V/°C", "V/C", "V"], -0.01, 0.01, "-10 mV/°C to 10 mV/°C")?;
+        tc.drop_uv_per_c = (x * 1e6).round() as i32;
+    }
+    spread.tempco = tc;
+    Ok(())
+}
+
+/// An electrolytic's rated life: hours at a temperature in m°C.
+type RatedLife = (u32, i32);
+
+/// The `[aging]` table: the law, and the electrolytic's rated life when given.
+fn parse_aging(cx: &mut Ctx<'_>, a: &RawAging) -> Result<(Option<Aging>, Option<RatedLife>), StageFileError> {
+    let mut rated_life = None;
+    if let (Some(h), Some(t)) = (&a.rated_hours, &a.rated_temp) {
+        let h = cx.si(h, "aging.rated_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?;
+        let t = cx.si(t, "aging.rated_temp", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+        rated_life = Some((h.round() as u32, (t * 1e3).round() as i32));
+    }
+    let pct = |cx: &mut Ctx, v: &Option<Sv>, key: &str| -> Result<f64, StageFileError> {
+        let v = v.as_ref().ok_or_else(|| cx.err(Some(a.kind.span().start), key, "missing"))?;
+        let t = cx.tol(v, key, &[], 1.0)?;
+        Ok(f64::from(t.plus_ppm) / 1e6)
+    };
+    let law = match a.kind.get_ref().as_str() {
+        "class2" => {
+            let k = pct(cx, &a.loss_per_decade, "aging.loss_per_decade")?;
+            let hours = match &a.hours {
+                Some(v) => cx.si(v, "aging.hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
+                None => {
+                    return Err(cx.err(
+                        Some(a.kind.span().start),
+                        "aging.hours",
+                        "missing (age at the far end of the window)",
+                    ))
+                }
+            };
+            let ref_hours = match &a.ref_hours {
+                Some(v) => cx.si(v, "aging.ref_hours", &["h"], 1.0, 1e6, "1 h to 1 000 000 h")?,
+                None => 1000.0,
+            };
+            Aging::Class2 {
+                k_milli_pct: (k * 1e5).round() as u32,
+                ref_hours: ref_hours.round() as u32,
+                hours: hours.round() as u32,
+            }
+        }
+        "end-of-life" => Aging::EndOfLife { loss_ppm: (pct(cx, &a.loss, "aging.loss")? * 1e6).round() as u32 },
+        _ => return Err(cx.err(Some(a.kind.span().start), "aging.kind", "one of: class2, end-of-life")),
+    };
+    Ok((Some(law), rated_life))
 }
 
 impl StageFile {

@@ -1,5 +1,7 @@
-//! The model against values from outside the project. Each check names its
-//! source; see the README section "What the results are checked against".
+//! The hold-stage physics of the model (RC discharge, diode drop, input
+//! thresholds, capacitor aging) against values from outside the project. Each
+//! check names its source; see the README section "What the results are
+//! checked against".
 
 use approx::assert_relative_eq;
 use rc_model::presets::{self, PRESETS};

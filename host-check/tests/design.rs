@@ -1,45 +1,10 @@
-//! The real `rchold` binary, run in a temporary directory.
+//! The design commands through the real binary: `eval`, `window`, `pick`,
+//! `spread`, `timer-vs-rc`, `curve` and `agree` — their reports, exit codes
+//! and refusals.
 
 use std::path::Path;
-use std::process::{Command, Output};
 
-const GOOD: &str = r#"name = "Test stage"
-[stage]
-r = "1M"
-c = "1u"
-vdd = "5"
-driver_ohms = "50"
-charge_ohms = "100"
-series_ohms = "0"
-leak_ohms = "inf"
-diode = { drop = "0.6" }
-
-[input]
-family = "hc-schmitt"
-
-[press]
-duration = "100m"
-
-[tolerance]
-r = "1%"
-c = "10%"
-"#;
-
-fn run(dir: &Path, args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_rchold"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .unwrap_or_else(|e| panic!("cannot run rchold: {e}"))
-}
-
-fn write(dir: &Path, name: &str, text: &str) {
-    std::fs::write(dir.join(name), text).unwrap_or_else(|e| panic!("{e}"));
-}
-
-fn text(b: &[u8]) -> String {
-    String::from_utf8_lossy(b).into_owned()
-}
+use crate::util::{run, text, write, GOOD};
 
 #[test]
 fn eval_prints_timing_window_findings_and_caution() {

@@ -1,5 +1,6 @@
-//! Preferred numbers and statistics against published standards, handbook
-//! examples and an open dataset. Each check names its source.
+//! Part values (IEC 60063 E-series) and process statistics (Cp/Cpk, EWMA,
+//! CUSUM, individuals chart, least squares) against published standards,
+//! handbook examples and an open dataset. Each check names its source.
 
 use approx::assert_abs_diff_eq;
 use host_check::report::stats;

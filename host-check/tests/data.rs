@@ -3,36 +3,10 @@
 //! the reports.
 
 use std::path::Path;
-use std::process::{Command, Output, Stdio};
+use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-fn rchold(dir: &Path, args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_rchold"))
-        .args(args)
-        .current_dir(dir)
-        .output()
-        .unwrap_or_else(|e| panic!("cannot run rchold: {e}"))
-}
-
-fn text(b: &[u8]) -> String {
-    String::from_utf8_lossy(b).into_owned()
-}
-
-fn count(db: &Path) -> u64 {
-    host_check::data::store::Store::open(db).and_then(|s| s.count()).unwrap_or_else(|e| panic!("{e}"))
-}
-
-fn synth(dir: &Path, name: &str, records: u64, seed: u64) {
-    let out =
-        rchold(dir, &["synth-log", "--out", name, "--records", &records.to_string(), "--seed", &seed.to_string()]);
-    assert!(out.status.success(), "{}", text(&out.stderr));
-}
-
-/// Unit ids and seq repeat between synthetic logs: move one to other stations.
-fn rename_stations(dir: &Path, name: &str, prefix: &str) {
-    let t = std::fs::read_to_string(dir.join(name)).unwrap_or_default().replace(",line-", &format!(",{prefix}"));
-    std::fs::write(dir.join(name), t).unwrap_or_else(|e| panic!("{e}"));
-}
+use crate::util::{count, rchold, rename_stations, synth, text};
 
 #[test]
 fn a_bad_log_is_refused_in_one_line_and_stores_nothing() {
