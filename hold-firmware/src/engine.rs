@@ -158,12 +158,8 @@ pub(crate) fn judge(
 ) -> Measurement {
     let verdict = if glitches > config.chatter_limit || dropped {
         Verdict::Chatter
-    } else if hold < config.hold_min_ticks {
-        Verdict::Short
-    } else if hold > config.hold_max_ticks {
-        Verdict::Long
     } else {
-        Verdict::WithinWindow
+        Verdict::of_hold(hold, config.hold_min_ticks, config.hold_max_ticks)
     };
     outcome(config, stage, temp_mdeg_c, press, on, Some(hold), glitches, verdict)
 }

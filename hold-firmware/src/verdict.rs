@@ -23,6 +23,20 @@ pub enum Verdict {
 }
 
 impl Verdict {
+    /// The verdict a hold of `hold_ticks` gets from the pass window
+    /// `min_ticks ..= max_ticks` alone (the one rule: below is short, above is
+    /// long). The engine and the host's re-check both judge by it.
+    #[must_use]
+    pub const fn of_hold(hold_ticks: u64, min_ticks: u64, max_ticks: u64) -> Verdict {
+        if hold_ticks < min_ticks {
+            Verdict::Short
+        } else if hold_ticks > max_ticks {
+            Verdict::Long
+        } else {
+            Verdict::WithinWindow
+        }
+    }
+
     /// Whether the board passes.
     #[must_use]
     pub const fn passes(self) -> bool {

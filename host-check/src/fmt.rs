@@ -8,6 +8,9 @@ use rc_model::Span;
 /// The caution every design report ends with.
 pub const CAUTION: &str = "timing only: this tool checks no isolation, creepage or mains safety, and a hold stage must not be the only guard of a safety function; defer to local codes and licensed practice.";
 
+/// The caution for stages whose capacitor stores a noticeable energy.
+pub const STORED_ENERGY: &str = "large capacitors store energy: they can deliver a large inrush through the driver and stay charged after power is removed; follow local codes and licensed practice for handling and discharge";
+
 /// Seconds from a span.
 #[must_use]
 pub fn secs(s: Span) -> f64 {

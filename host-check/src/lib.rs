@@ -9,3 +9,14 @@ pub mod report;
 pub mod sim;
 pub mod stage;
 pub use error::{Error, Kind, Result};
+
+/// What the unit tests share.
+#[cfg(test)]
+pub(crate) mod testing {
+    use crate::stage::file::{parse, StageFile};
+
+    /// The example stage (the Lumen-3 keypad backlight of `examples/`).
+    pub(crate) fn example() -> StageFile {
+        parse(std::path::Path::new("lumen-keypad.toml"), crate::sim::demo::BOARD_TOML).unwrap_or_else(|e| panic!("{e}"))
+    }
+}

@@ -298,3 +298,43 @@ pub fn source_name(path: Option<&PathBuf>, port: Option<&str>) -> String {
         (None, None) => "standard input".to_owned(),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use hold_firmware::drift::DriftState;
+    use hold_firmware::{Hint, Verdict};
+
+    fn labels() -> Labels {
+        Labels { station: "bench".into(), batch: String::new(), setup_id: None, time: TimeRule::Arrival }
+    }
+
+    fn frame(seq: u32) -> Vec<u8> {
+        let r = Record {
+            seq,
+            unit_id: 1,
+            press_ticks: 10,
+            on_ticks: Some(1),
+            hold_ticks: Some(100),
+            clock_hz: 1_000_000,
+            temp_mdeg_c: None,
+            verdict: Verdict::WithinWindow,
+            hint: Hint::None,
+            drift: DriftState::Settling,
+            c_deviation_ppm: None,
+        };
+        hold_firmware::record::encode(&r).map(|f| f.to_vec()).unwrap_or_default()
+    }
+
+    #[test]
+    fn a_stream_is_stored_once_and_its_repeats_counted() -> Result<(), CollectError> {
+        let dir = tempfile::tempdir().map_err(|e| CollectError::Io { what: "tempdir".into(), error: e })?;
+        let mut store = Store::open(&dir.path().join("s.db"))?;
+        let bytes: Vec<u8> = [frame(0), frame(1), frame(1)].concat();
+        let l = listen(&mut store, "t", io::Cursor::new(bytes), &labels(), |_| {}, || false)?;
+        assert_eq!((l.stored, l.duplicates, l.counts.bad_frames), (2, 1, 0));
+        assert_eq!(store.count()?, 2);
+        assert_eq!(source_name(None, Some("/dev/ttyUSB0")), "serial /dev/ttyUSB0");
+        Ok(())
+    }
+}

@@ -126,3 +126,39 @@ impl<R: Read> Iterator for FrameReader<R> {
         self.next_record().transpose()
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use hold_firmware::drift::DriftState;
+    use hold_firmware::{Hint, Verdict};
+
+    fn record(seq: u32) -> Record {
+        Record {
+            seq,
+            unit_id: 7,
+            press_ticks: 100_000,
+            on_ticks: Some(54),
+            hold_ticks: Some(739_617),
+            clock_hz: 1_000_000,
+            temp_mdeg_c: Some(23_000),
+            verdict: Verdict::WithinWindow,
+            hint: Hint::None,
+            drift: DriftState::Settling,
+            c_deviation_ppm: None,
+        }
+    }
+
+    #[test]
+    fn garbage_between_frames_is_counted_and_skipped() -> io::Result<()> {
+        let mut bytes = hold_firmware::record::encode(&record(1)).map_err(io::Error::other)?.to_vec();
+        bytes.extend_from_slice(&[0x13, 0x37, 0x00]);
+        bytes.extend_from_slice(&hold_firmware::record::encode(&record(2)).map_err(io::Error::other)?);
+        let mut r = FrameReader::new(io::Cursor::new(bytes));
+        assert_eq!(r.next_record()?.map(|x| x.seq), Some(1));
+        assert_eq!(r.next_record()?.map(|x| x.seq), Some(2));
+        assert_eq!(r.next_record()?, None);
+        assert_eq!((r.counts().records, r.counts().bad_frames), (2, 1));
+        Ok(())
+    }
+}

@@ -403,3 +403,18 @@ pub fn render_text(r: &Report) -> String {
     let _ = writeln!(out, "\n  worst fixed-point hold at: {}", r.fixed.hold.worst_case);
     out
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_small_sweep_agrees_within_the_published_bounds() {
+        let r = run(200, 7, &|_, _| {});
+        assert_eq!(r.fixed.verdict_mismatches, 0);
+        assert!(r.fixed.hold.max_rel_ppm < 1.0, "{}", r.fixed.hold.max_rel_ppm);
+        assert!(render_text(&r).contains("ppm"));
+        // The same seed gives the same points.
+        assert_eq!(random_stage(7, 3), random_stage(7, 3));
+    }
+}

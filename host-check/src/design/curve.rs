@@ -101,3 +101,20 @@ pub fn curve_svg(sf: &StageFile, name: &str) -> Result<String, Error> {
         v_max: volts(nominal.vdd_uv) * 1.05,
     }))
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_trace_charges_then_falls_through_the_threshold_near_the_model_hold() {
+        let sf = crate::testing::example();
+        let t = trace(&sf.stage, 1.0, 2_000);
+        let at_release = t.iter().filter(|p| p.0 <= 0.1).map(|p| p.1).fold(0.0, f64::max);
+        assert!((at_release - 4.4).abs() < 0.01, "charged to {at_release} V");
+        // The falling threshold 2.1 V is crossed 739.6 ms after the release (the model's hold).
+        let cross = t.iter().find(|p| p.0 > 0.1 && p.1 < 2.1).map_or(0.0, |p| p.0 - 0.1);
+        assert!((cross - 0.7396).abs() < 0.002, "{cross}");
+        assert!(curve_svg(&sf, "t").map(|s| s.contains("node voltage (V)")).unwrap_or(false));
+    }
+}

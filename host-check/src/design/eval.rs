@@ -6,7 +6,7 @@ use rc_model::window::Window;
 use rc_model::{Diode, Error, Evaluation, Model};
 use serde_json::json;
 
-use crate::fmt::{corner_text, secs, si, CAUTION};
+use crate::fmt::{corner_text, secs, si, CAUTION, STORED_ENERGY};
 use crate::reference::StageF;
 use crate::stage::file::StageFile;
 
@@ -122,11 +122,7 @@ pub fn evaluate(sf: &StageFile) -> EvalReport {
     if energy >= STORED_ENERGY_J {
         warnings.push(Warning {
             code: "stored-energy",
-            message: format!(
-                "the capacitor stores {} at {}: it can deliver a large inrush through the driver and stays charged after power is removed; follow local codes and licensed practice for handling and discharge",
-                si(energy, "J"),
-                si(f.vdd, "V")
-            ),
+            message: format!("the capacitor stores {} at {}: {STORED_ENERGY}", si(energy, "J"), si(f.vdd, "V")),
         });
     }
     EvalReport { nominal, window, warnings }
@@ -302,4 +298,25 @@ pub fn render_json(sf: &StageFile, r: &EvalReport) -> serde_json::Value {
         None => {}
     }
     v
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn stage(text: &str) -> StageFile {
+        crate::stage::file::parse(std::path::Path::new("t.toml"), text).unwrap_or_else(|e| panic!("{e}"))
+    }
+
+    #[test]
+    fn warnings_by_code() {
+        let ok = evaluate(&stage(crate::sim::demo::BOARD_TOML));
+        assert!(ok.nominal.is_ok());
+        let big = crate::sim::demo::BOARD_TOML.replace("c = \"1u\"", "c = \"4.7m\"");
+        let r = evaluate(&stage(&big));
+        assert!(r.warnings.iter().any(|w| w.code == "stored-energy"), "{:?}", r.warnings);
+        let weak = crate::sim::demo::BOARD_TOML.replace("vdd = \"5\"", "vdd = \"3.3\"");
+        let r = evaluate(&stage(&weak));
+        assert!(r.warnings.iter().all(|w| w.code != "stored-energy"));
+    }
 }

@@ -284,7 +284,34 @@ pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bo
         found.len()
     );
     if found.iter().take(top).any(|c| c.c_f >= 1e-3) {
-        let _ = writeln!(o, "  caution: large capacitors store energy and can deliver large inrush currents; follow local codes and licensed practice");
+        let _ = writeln!(o, "  caution: {}", crate::fmt::STORED_ENERGY);
     }
     o
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn candidates_lie_within_the_asked_spread() -> Result<(), Error> {
+        let (template, thresholds) = template(5.0, 0.6, 50.0, "hc-schmitt")?;
+        let t = Target {
+            hold_s: 5.0,
+            within: 0.6,
+            r_series: Series::E24,
+            r_tol_ppm: 10_000,
+            c_series: Series::E12,
+            template,
+            vdd_tol_ppm: 50_000,
+            thresholds,
+        };
+        let found = pick(&t);
+        assert!(!found.is_empty());
+        for c in &found {
+            assert!(c.min_s >= 2.0 - 1e-9 && c.max_s <= 8.0 + 1e-9 && c.min_s <= c.hold_s, "{c:?}");
+        }
+        assert!(matches!(super::template(5.0, 0.6, 50.0, "nope"), Err(Error::Input(_))));
+        Ok(())
+    }
 }

@@ -124,3 +124,21 @@ pub fn render_comparison(
     let _ = writeln!(o, "\n  note: {}", crate::fmt::CAUTION);
     o
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_crystal_timer_by_hand() {
+        let sf = crate::testing::example();
+        let window = sf.spread.window(&sf.stage).unwrap_or_else(|e| panic!("{e:?}"));
+        let c = compare(1.0, &window, TimerClock { hz: 32_768.0, tolerance: 50e-6 });
+        // 1 s at 32.768 kHz is 32,768 ticks; ±50 ppm and one tick each way (math).
+        assert_eq!(c.ticks, 32_768);
+        assert!((c.timer.0 - (1.0 / 1.000_05 - 1.0 / 32_768.0)).abs() < 1e-12);
+        assert!(!c.needs_extension);
+        assert!(render_comparison("t", &c, TimerClock { hz: 32_768.0, tolerance: 50e-6 }, None, 5.0, &window)
+            .contains("50 ppm"));
+    }
+}

@@ -136,3 +136,21 @@ pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_window_holds_the_nominal_and_widens_with_the_guard() -> Result<(), Error> {
+        let sf = crate::testing::example();
+        let poll = default_poll_ns(&sf)?;
+        let tight = settings(&sf, 1_000_000, 0, poll)?.config;
+        let wide = settings(&sf, 1_000_000, 20_000, poll)?.config;
+        // The example's nominal hold is 739.6 ms: 739,617 ticks at 1 MHz.
+        assert!(tight.hold_min_ticks < 739_617 && 739_617 < tight.hold_max_ticks);
+        assert!(wide.hold_min_ticks < tight.hold_min_ticks && wide.hold_max_ticks > tight.hold_max_ticks);
+        assert!(render(&settings(&sf, 1_000_000, 20_000, poll)?, Emit::Text, "t").contains("pass from"));
+        Ok(())
+    }
+}

@@ -444,3 +444,25 @@ impl UnitTrend {
         self.t0_ms + (x_years * YEAR_MS).round() as i64
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_straight_decline_gives_its_rate_and_crossing() {
+        let day = 86_400_000i64;
+        let start = 1_704_089_600_000; // 2024-01-01T06:00:00Z
+                                       // C/C0 falls 10 % per year, measured daily for two years (exact line).
+        let pts: Vec<(i64, f64)> =
+            (0..730).map(|d| (start + d * day, 1.0 - 0.1 * (d * day) as f64 / YEAR_MS)).collect();
+        let u = trend("fleet".into(), 5, &pts, 0.8, start + 800 * day);
+        let rate = u.rate_pct_per_year.unwrap_or(0.0);
+        assert!((rate + 10.0).abs() < 1e-6, "{rate}");
+        // 20 % loss at 10 %/yr: two years after the first measurement.
+        let crossing = u.forecast_ms.map_or(0, |f| f - start);
+        assert!((crossing as f64 - 2.0 * YEAR_MS).abs() < day as f64, "{crossing}");
+        assert!(matches!(u.status, Status::AtRisk | Status::BeyondLimit), "{:?}", u.status);
+        assert!(unit_svg(&u, 0.8).contains("end of life 0.80"));
+    }
+}

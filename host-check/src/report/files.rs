@@ -111,3 +111,20 @@ pub fn needing_attention(f: &FleetReport) -> Vec<&UnitTrend> {
     v.sort_by_key(|u| u.forecast_ms.unwrap_or(i64::MAX));
     v
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn files_land_in_the_folder_and_a_bad_folder_is_named() -> Result<(), Error> {
+        let dir = tempfile::tempdir().map_err(|e| Error::io("tempdir", e))?;
+        let mut out = ReportDir::create(&dir.path().join("r"))?;
+        out.put("a.txt", "x")?;
+        assert_eq!(out.files, vec![dir.path().join("r").join("a.txt")]);
+        std::fs::write(dir.path().join("file"), "").map_err(|e| Error::io("file", e))?;
+        let e = ReportDir::create(&dir.path().join("file").join("sub")).err().map(|e| e.kind());
+        assert_eq!(e, Some(crate::Kind::Environment));
+        Ok(())
+    }
+}

@@ -5,8 +5,8 @@ use std::fmt::Write as _;
 
 use crate::data::codes::VERDICTS;
 use crate::data::time;
-use crate::fmt::si;
 use crate::fmt::xml;
+use crate::fmt::{si, CAUTION, STORED_ENERGY};
 use crate::report::aging::{FleetReport, Status};
 use crate::report::files::{needing_attention, AgingCharts, YieldCharts};
 use crate::report::yields::{pct, Recheck, YieldReport};
@@ -64,11 +64,7 @@ pub fn page(y: &YieldReport, f: &FleetReport, ledger: Option<&str>, yc: &YieldCh
     }
     yield_section(&mut o, y, yc);
     fleet_section(&mut o, f, ac);
-    o.push_str(
-        "<p class=note>Timing only: this report checks no isolation, creepage or mains safety. A hold stage must not be \
-         the only guard of a safety function, and large capacitors can hold a dangerous charge after power is removed: \
-         defer to local codes and licensed practice.</p></body></html>\n",
-    );
+    let _ = writeln!(o, "<p class=note>Note: {} Also, {}.</p></body></html>", xml(CAUTION), xml(STORED_ENERGY));
     o
 }
 
@@ -166,5 +162,29 @@ fn fleet_section(o: &mut String, f: &FleetReport, ac: &AgingCharts) {
     o.push_str("</table>");
     for svg in &ac.units {
         o.push_str(svg);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::report::aging::FleetTally;
+    use crate::report::yields::tests::{example_setup, judged};
+    use crate::report::yields::Tally;
+    use std::collections::HashMap;
+
+    #[test]
+    fn names_are_escaped_and_the_caution_closes_the_page() -> std::io::Result<()> {
+        let s = example_setup();
+        let setups = HashMap::from([(1, s.clone())]);
+        let mut t = Tally::new(&setups, false, None);
+        t.add("<script>", "B&1", 0, &judged(&s, 1, 100_000), Some(1));
+        let y = t.finish()?;
+        let f = FleetTally::new(&setups).finish(0.8, 12);
+        let p = page(&y, &f, Some("ledger <ok>"), &YieldCharts::default(), &AgingCharts::default());
+        assert!(!p.contains("<script>") && p.contains("&lt;script&gt;") && p.contains("B&amp;1"));
+        assert!(p.contains("ledger &lt;ok&gt;"));
+        assert!(p.trim_end().ends_with("</html>") && p.contains("licensed practice"));
+        Ok(())
     }
 }

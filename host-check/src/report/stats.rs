@@ -267,3 +267,18 @@ impl Moments {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn box_muller_and_capability_by_hand() {
+        // u1 = e^(-1/2) gives a radius of 1; u2 = 0 the cosine's 1 (math).
+        assert!((box_muller((-0.5f64).exp(), 0.0) - 1.0).abs() < 1e-12);
+        assert!((box_muller((-0.5f64).exp(), 0.5) + 1.0).abs() < 1e-12);
+        // Centred in a ±3σ window: Cp = Cpk = 1 (NIST/SEMATECH §6.1.6 definitions).
+        let c = capability(-3.0, 3.0, 0.0, 1.0);
+        assert!((c.cp - 1.0).abs() < 1e-12 && (c.cpk - 1.0).abs() < 1e-12);
+    }
+}

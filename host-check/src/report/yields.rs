@@ -102,13 +102,10 @@ impl Checker {
     fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
         let w = &self.window;
         let (min, max) = if w.custom { w.stored_ticks } else { (w.hold_min_ticks, w.hold_max_ticks) };
-        let v = if hold_ticks < min {
-            Verdict::Short
-        } else if hold_ticks > max {
-            Verdict::Long
-        } else {
-            return (Verdict::WithinWindow, Hint::None);
-        };
+        let v = Verdict::of_hold(hold_ticks, min, max);
+        if v.passes() {
+            return (v, Hint::None);
+        }
         if hold_ticks.saturating_mul(20) < min {
             return (v, Hint::OpenCapacitorOrDiode);
         }
@@ -189,16 +186,6 @@ impl Group {
             opt2(self.cp),
             opt2(self.cpk),
         ]
-    }
-
-    /// Yield, %.
-    #[must_use]
-    pub fn yield_pct(&self) -> f64 {
-        if self.total == 0 {
-            f64::NAN
-        } else {
-            100.0 * self.passed() as f64 / self.total as f64
-        }
     }
 
     fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>) {
@@ -905,4 +892,63 @@ pub fn histogram_svg(g: &Group) -> Option<String> {
         bins: &g.bins,
         marks: &marks,
     }))
+}
+
+#[cfg(test)]
+pub(crate) mod tests {
+    use super::*;
+
+    /// The example stage's setup at 1 MHz with a 2 % guard, as a station stores it.
+    pub(crate) fn example_setup() -> Setup {
+        let sf = crate::testing::example();
+        let poll_ns = crate::design::window::default_poll_ns(&sf).unwrap_or(1_000);
+        let c =
+            crate::design::window::settings(&sf, 1_000_000, 20_000, poll_ns).unwrap_or_else(|e| panic!("{e}")).config;
+        Setup {
+            name: "lumen-keypad.toml".into(),
+            stage_toml: crate::sim::demo::BOARD_TOML.into(),
+            clock_hz: 1_000_000,
+            guard_ppm: 20_000,
+            poll_ns,
+            hold_min_ticks: c.hold_min_ticks,
+            hold_max_ticks: c.hold_max_ticks,
+        }
+    }
+
+    /// A record of unit `unit` with `hold` ticks judged against `s`, as the firmware would.
+    pub(crate) fn judged(s: &Setup, unit: u32, hold: u64) -> Record {
+        use hold_firmware::drift::DriftState;
+        let verdict = Verdict::of_hold(hold, s.hold_min_ticks, s.hold_max_ticks);
+        let dev = ((hold as f64 / 739_617.0 - 1.0) * 1e6).round() as i64;
+        Record {
+            seq: 0,
+            unit_id: unit,
+            press_ticks: 100_000,
+            on_ticks: Some(54),
+            hold_ticks: Some(hold),
+            clock_hz: s.clock_hz,
+            temp_mdeg_c: Some(25_000),
+            verdict,
+            hint: if verdict.passes() { Hint::None } else { Hint::from_deviation_ppm(dev) },
+            drift: DriftState::Settling,
+            c_deviation_ppm: (!verdict.passes()).then_some(dev as i32),
+        }
+    }
+
+    #[test]
+    fn counts_yield_rejects_and_the_recheck() -> std::io::Result<()> {
+        let s = example_setup();
+        let setups = HashMap::from([(1, s.clone())]);
+        let mut t = Tally::new(&setups, true, None);
+        for (unit, hold) in [(1, 739_617), (2, 740_500), (3, 100_000), (4, 5_000_000)] {
+            t.add("bay <1>", "B1", 1_798_761_600_000, &judged(&s, unit, hold), Some(1));
+        }
+        let y = t.finish()?;
+        assert_eq!((y.all.total, y.all.passed(), y.rejects_total), (4, 2, 2));
+        assert_eq!(pct(2, 4), "50.00 %");
+        let rc = y.recheck.as_ref().map(|r| (r.checked, r.disagreements_total));
+        assert_eq!(rc, Some((4, 0)), "the f64 re-check confirms every verdict");
+        assert!(render_text(&y, 10).contains("bay <1>"));
+        Ok(())
+    }
 }

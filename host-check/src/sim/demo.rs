@@ -540,3 +540,27 @@ pub fn write_reports(
     out.put("report.html", &html)?;
     Ok(out.files)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_ledger_says_when_it_does_not_balance() {
+        let mut l = Ledger { bay_a_sent: 10, bay_a_stored: 9, bay_a_bad: 1, bay_a_damaged: 1, ..Ledger::default() };
+        assert!(!ledger_text(&l).contains("MISMATCH"));
+        l.bay_a_stored = 8;
+        assert!(ledger_text(&l).contains("MISMATCH"));
+    }
+
+    #[test]
+    fn a_small_demo_runs_end_to_end() -> Result<(), Error> {
+        let dir = tempfile::tempdir().map_err(|e| Error::io("tempdir", e))?;
+        let sc = Scenario { boards: 20, units: 2, days: 20, seed: 5 };
+        let out = run(&sc, &dir.path().join("d.db"), dir.path(), |_| {})?;
+        assert_eq!(out.yields.all.total, 20);
+        assert_eq!(out.ledger.fleet_sent, 40);
+        assert!(dir.path().join("report.html").exists());
+        Ok(())
+    }
+}

@@ -52,13 +52,7 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
             let z = box_muller(rng.random_range(f64::EPSILON..1.0), rng.random_range(0.0..1.0));
             (nominal_ticks.round() * (1.0 + 0.04 * z)) as u64
         };
-        let verdict = if hold < config.hold_min_ticks {
-            Verdict::Short
-        } else if hold > config.hold_max_ticks {
-            Verdict::Long
-        } else {
-            Verdict::WithinWindow
-        };
+        let verdict = Verdict::of_hold(hold, config.hold_min_ticks, config.hold_max_ticks);
         let dev_ppm = ((hold as f64 / nominal_ticks - 1.0) * 1e6).round() as i64;
         let r = Record {
             seq: 0,
@@ -78,4 +72,27 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
         log::write_line(&mut w, start + (i as i64) * 250, name, &format!("B{}", i / PER_BATCH), &r).map_err(io)?;
     }
     w.flush().map_err(io)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_synthetic_log_reads_back_with_its_window() -> Result<(), Error> {
+        let dir = tempfile::tempdir().map_err(|e| Error::io("tempdir", e))?;
+        let path = dir.path().join("s.csv");
+        write_log(&path, 500, 3, 9)?;
+        let file = std::fs::File::open(&path).map_err(|e| Error::io(&path, e))?;
+        let n = log::read(&path, file, |_, l: &log::Line<'_>| {
+            let hold = l.record.hold_ticks.unwrap_or(0);
+            let passes = l.record.verdict.passes();
+            if passes != (506_000..1_254_000).contains(&hold) {
+                return Err(format!("hold {hold} judged {:?}", l.record.verdict));
+            }
+            Ok(())
+        })?;
+        assert_eq!(n, 500);
+        Ok(())
+    }
 }

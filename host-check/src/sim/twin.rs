@@ -401,3 +401,30 @@ impl TickSource for VirtualClock {
         self.0.borrow().clock_hz
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use embedded_hal::digital::OutputPin;
+
+    #[test]
+    fn the_twin_charges_to_the_models_target_and_an_open_capacitor_does_not_hold() {
+        let sf = crate::testing::example();
+        let twin = Twin::new(&sf.stage, &[], 1_000_000, 1);
+        let (mut trigger, _, _, _) = twin.handles();
+        let _ = trigger.set_low();
+        twin.wait(0.1);
+        // The model's charge target: 5 V less the 0.6 V drop (4.400 V).
+        assert!((twin.node_v() - 4.4).abs() < 0.01, "{}", twin.node_v());
+        let _ = trigger.set_high();
+        twin.wait(0.7396);
+        assert!((twin.node_v() - 2.1).abs() < 0.01, "at the hold's end: {}", twin.node_v());
+        let open = Twin::new(&sf.stage, &[Fault::OpenCapacitor], 1_000_000, 1);
+        let (mut t, _, _, _) = open.handles();
+        let _ = t.set_low();
+        open.wait(0.1);
+        let _ = t.set_high();
+        open.wait(0.01);
+        assert!(open.node_v() < 0.5, "{}", open.node_v());
+    }
+}

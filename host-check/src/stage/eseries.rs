@@ -34,6 +34,12 @@ const E24_EXCEPTIONS: [(usize, u16); 8] =
     [(10, 27), (11, 30), (12, 33), (13, 36), (14, 39), (15, 43), (16, 47), (22, 82)];
 
 impl Series {
+    /// Parses "E24", "e96", …
+    #[must_use]
+    pub fn parse(text: &str) -> Option<Series> {
+        ALL.into_iter().find(|s| format!("E{}", s.per_decade()).eq_ignore_ascii_case(text.trim()))
+    }
+
     /// Values per decade.
     #[must_use]
     pub const fn per_decade(self) -> usize {
@@ -46,27 +52,6 @@ impl Series {
             Series::E96 => 96,
             Series::E192 => 192,
         }
-    }
-
-    /// Tolerance commonly associated with the series, as a fraction (common
-    /// practice, no source; E3 has none in common use, 0.4 is assumed).
-    #[must_use]
-    pub const fn usual_tolerance(self) -> f64 {
-        match self {
-            Series::E3 => 0.4,
-            Series::E6 => 0.2,
-            Series::E12 => 0.1,
-            Series::E24 => 0.05,
-            Series::E48 => 0.02,
-            Series::E96 => 0.01,
-            Series::E192 => 0.005,
-        }
-    }
-
-    /// Parses "E24", "e96", …
-    #[must_use]
-    pub fn parse(text: &str) -> Option<Series> {
-        ALL.into_iter().find(|s| format!("E{}", s.per_decade()).eq_ignore_ascii_case(text.trim()))
     }
 
     /// The mantissas of one decade as integers: two digits (10 … 91) for
@@ -127,5 +112,19 @@ impl Series {
             }
         }
         best
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn names_values_and_nearest() {
+        assert_eq!(Series::parse(" e24 "), Some(Series::E24));
+        assert_eq!(Series::parse("E7"), None);
+        assert_eq!(Series::E12.mantissas().len(), 12);
+        // 4.6 kΩ lies between E12's 3.9 k and 4.7 k, nearer 4.7 k on a log scale.
+        assert!((Series::E12.nearest(4_600.0) - 4_700.0).abs() < 1e-9);
     }
 }

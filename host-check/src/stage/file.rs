@@ -33,7 +33,7 @@ use rc_model::{Diode, Quantity, Stage};
 use serde::Deserialize;
 use toml::{Spanned, Value};
 
-use crate::stage::values::{parse_tolerance, parse_value, Tol};
+use crate::stage::values::{parse_tolerance, parse_value, round_u64, Tol};
 
 /// A problem in a stage file, with where it is.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -256,10 +256,6 @@ impl Ctx<'_> {
         }
         Ok(Tolerance::symmetric((frac * 1e6).round() as u32))
     }
-}
-
-fn round_u64(x: f64) -> u64 {
-    x.round() as u64
 }
 
 /// Reads a stage file.
@@ -632,5 +628,21 @@ impl StageFile {
             _ => (None, None),
         };
         StageFileError { file: self.path.clone(), line, key, message: e.to_string() }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_example_reads_and_errors_name_line_and_key() {
+        let sf = parse(Path::new("lumen-keypad.toml"), crate::sim::demo::BOARD_TOML).map_err(|e| e.to_string());
+        let sf = sf.unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!((sf.stage.vdd_uv, sf.stage.r_mohm, sf.stage.c_ff), (5_000_000, 1_000_000_000, 1_000_000_000));
+        assert!(sf.schmitt && sf.preset.is_some());
+        let bad = crate::sim::demo::BOARD_TOML.replace("r = \"1M\"", "r = \"1G\"");
+        let e = parse(Path::new("x.toml"), &bad).err().map(|e| (e.line.is_some(), e.key));
+        assert_eq!(e, Some((true, Some("stage.r".to_owned()))));
     }
 }

@@ -156,3 +156,17 @@ pub fn parse_measurements(output: &str) -> Vec<(String, f64)> {
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_example_becomes_a_transient_with_a_measurement() {
+        let sf = crate::testing::example();
+        let net = single_press(&sf.stage, "t").text;
+        for want in ["R1 a 0 1.000000000e6", "C1 a 0 1.000000000e-6 IC=0", ".tran", ".meas tran t_fall"] {
+            assert!(net.contains(want), "{want} missing in {net}");
+        }
+    }
+}

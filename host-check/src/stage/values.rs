@@ -21,6 +21,22 @@ impl fmt::Display for ValueError {
 
 impl std::error::Error for ValueError {}
 
+/// `x` rounded to the nearest whole number, halves up, for `x ≥ 0`, by a
+/// cast (where `f64::round` is a library call on the baseline x86-64
+/// target, which the Monte Carlo feels). Saturates at `u64::MAX`; NaN gives 0.
+#[inline]
+#[must_use]
+pub fn round_u64(x: f64) -> u64 {
+    (x + 0.5) as u64
+}
+
+/// As [`round_u64`], for `u32`.
+#[inline]
+#[must_use]
+pub fn round_u32(x: f64) -> u32 {
+    (x + 0.5) as u32
+}
+
 /// Multiplier of an SI prefix or IEC 60062 multiplier letter. Upper- and
 /// lower-case K/k are accepted (resistor codes use upper case); M is mega and
 /// m is milli, as in SI. `R` marks the decimal point of an ohm value (×1).

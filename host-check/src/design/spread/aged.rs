@@ -58,3 +58,28 @@ pub fn age_parts(sf: &mut StageFile, years: f64, at_temp_c: Option<f64>) -> Resu
     sf.spread.aging = None;
     Ok(())
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::path::Path;
+
+    fn stage(aging: &str) -> StageFile {
+        let text = format!("{}\n{aging}", crate::sim::demo::BOARD_TOML);
+        crate::stage::file::parse(Path::new("a.toml"), &text).unwrap_or_else(|e| panic!("{e}"))
+    }
+
+    #[test]
+    fn class2_loses_its_share_per_decade_and_refusals_name_the_option() {
+        let mut sf = stage("[aging]\nkind = \"class2\"\nloss_per_decade = \"2.5%\"\nhours = \"10000\"\n");
+        let c0 = sf.stage.c_ff;
+        assert!(age_parts(&mut sf, 10.0, None).is_ok());
+        // 10 years = 87,660 h: 1.94 decades past 1,000 h, 2.5 % each (IEC 60384-22 law) → about −4.9 %.
+        let loss = 1.0 - sf.stage.c_ff as f64 / c0 as f64;
+        assert!((0.045..0.052).contains(&loss), "{loss}");
+        assert!(sf.spread.aging.is_none());
+        let mut plain = stage("");
+        assert!(matches!(age_parts(&mut plain, 1.0, None), Err(Error::Input(m)) if m.starts_with("--years needs")));
+        assert!(matches!(age_parts(&mut plain, 99.0, None), Err(Error::Input(m)) if m.starts_with("--years 99")));
+    }
+}

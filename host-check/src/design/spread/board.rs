@@ -2,6 +2,7 @@
 //! thresholds inside their bands, a temperature), the stage it rounds to,
 //! and whether every board a spread can draw lies inside the model's domain.
 
+use crate::stage::values::{round_u32, round_u64};
 use rand::Rng;
 use rc_model::window::{Spread, ThresholdSpread, Tolerance};
 use rc_model::{Diode, Stage};
@@ -12,19 +13,6 @@ use super::Dist;
 #[inline]
 fn unit<R: Rng>(rng: &mut R) -> f64 {
     (rng.next_u64() >> 11) as f64 * (1.0 / 9_007_199_254_740_992.0)
-}
-
-/// `x` rounded to the nearest whole number, halves up, for `x ≥ 0` (a cast,
-/// where `f64::round` is a library call on the baseline x86-64 target).
-#[inline]
-fn round_u64(x: f64) -> u64 {
-    (x + 0.5) as u64
-}
-
-/// As [`round_u64`].
-#[inline]
-fn round_u32(x: f64) -> u32 {
-    (x + 0.5) as u32
 }
 
 fn draw_factor<R: Rng>(rng: &mut R, t: Tolerance, dist: Dist) -> f64 {
@@ -186,4 +174,16 @@ pub(super) fn every_board_in_domain(nominal: &Stage, spread: &Spread) -> bool {
         }
     }
     true
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rounding_halves_up() {
+        assert_eq!(round_u64(2.5), 3);
+        assert_eq!(round_u64(2.499_999), 2);
+        assert_eq!(round_u32(0.0), 0);
+    }
 }

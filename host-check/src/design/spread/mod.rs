@@ -387,3 +387,21 @@ pub fn render(
     let _ = writeln!(o, "\n  note: {}", crate::fmt::CAUTION);
     o
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_monte_carlo_lies_inside_the_worst_case_and_is_seeded() {
+        let sf = crate::testing::example();
+        let w = sf.spread.window(&sf.stage).unwrap_or_else(|e| panic!("{e:?}"));
+        let m = monte_carlo_with(&sf.stage, &sf.spread, Dist::Uniform, 4_000, 3, Eval::Fast, &|_, _| {});
+        assert_eq!(m.samples, 4_000);
+        assert!(m.min_s >= secs(w.min) - 1e-9 && m.max_s <= secs(w.max) + 1e-9);
+        let again = monte_carlo_with(&sf.stage, &sf.spread, Dist::Uniform, 4_000, 3, Eval::Fast, &|_, _| {});
+        assert_eq!(m.mean_s.to_bits(), again.mean_s.to_bits());
+        let (rss_mean, rss_sd) = rss(&sf.stage, &sf.spread, Dist::Uniform).unwrap_or((0.0, 0.0));
+        assert!((rss_mean - m.mean_s).abs() < 3.0 * rss_sd);
+    }
+}

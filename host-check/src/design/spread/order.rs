@@ -195,3 +195,26 @@ pub(super) fn order_statistics(v: &[f64], ranks: &[usize], bins_of: &Bins, count
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn order_statistics_equal_a_sort() {
+        let v: Vec<f64> = (0..5_000u32).map(|i| f64::from((i * 7_919) % 5_003) * 1e-3).collect();
+        let bins = Bins::around(0.0, 5.003);
+        let mut counts = vec![0u32; BINS];
+        for &x in &v {
+            if let Some(c) = counts.get_mut(bins.of(x)) {
+                *c += 1;
+            }
+        }
+        let ranks = [0, 1, 2_500, 4_999];
+        let mut sorted = v.clone();
+        sorted.sort_by(f64::total_cmp);
+        let want: Vec<f64> = ranks.iter().filter_map(|&r| sorted.get(r).copied()).collect();
+        assert_eq!(order_statistics(&v, &ranks, &bins, &counts), want);
+        assert!(order_statistics(&[], &[0], &bins, &counts).iter().all(|x| x.is_nan()));
+    }
+}

@@ -99,3 +99,16 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     emit(&spread::render(&name, &mc, parts, rss, window.as_ref(), spec, cap.as_ref(), a.json))?;
     Ok(ExitCode::SUCCESS)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::spec;
+
+    #[test]
+    fn spec_windows() {
+        assert_eq!(spec("500m..1.2").ok(), Some((0.5, 1.2)));
+        for bad in ["1.2..0.5", "1", "a..b", "-1..1"] {
+            assert!(spec(bad).is_err(), "{bad}");
+        }
+    }
+}

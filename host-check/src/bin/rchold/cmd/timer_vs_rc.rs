@@ -72,3 +72,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     emit(&render_comparison(&stage_name(&sf, &a.stage), &c, clock, currents, vdd_v, &window))?;
     Ok(ExitCode::SUCCESS)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::clock_tolerance;
+
+    #[test]
+    fn ppm_or_percent() {
+        assert!(clock_tolerance("50ppm").is_ok_and(|f| (f - 50e-6).abs() < 1e-18));
+        assert_eq!(clock_tolerance(" 2% ").ok(), Some(0.02));
+        for bad in ["60%", "x ppm", "-5ppm", "600000ppm"] {
+            assert!(clock_tolerance(bad).is_err(), "{bad}");
+        }
+    }
+}
