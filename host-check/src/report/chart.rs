@@ -218,7 +218,12 @@ pub fn histogram(h: &Histogram<'_>) -> String {
                 .label(&m.label)
                 .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], style));
         }
-        legend(&mut chart, SeriesLabelPosition::UpperRight)
+        // The legend goes over the emptier third of the bins.
+        let third = h.bins.len() / 3;
+        let left: u64 = h.bins.iter().take(third).sum();
+        let right: u64 = h.bins.iter().rev().take(third).sum();
+        let at = if left < right { SeriesLabelPosition::UpperLeft } else { SeriesLabelPosition::UpperRight };
+        legend(&mut chart, at)
     })
 }
 
