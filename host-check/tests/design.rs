@@ -330,3 +330,44 @@ fn spread_ages_an_electrolytic_by_the_ten_degree_rule() {
     let out = run(dir.path(), &["spread", "e.toml", "--samples", "100", "--years", "1.5", "--at-temp", "85"]);
     assert!(text(&out.stdout).contains("every capacitor aged 1.5 years first"), "{}", text(&out.stdout));
 }
+
+/// Every design command refuses the same failure with the same exit code and
+/// names the key that causes it: 2 for a tolerance that pushes a corner out of
+/// the model's domain, 1 for a stage that does not work (nominal or at a corner).
+#[test]
+fn every_command_refuses_alike() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "wide.toml", &GOOD.replace("c = \"10%\"", "c = \"100%\""));
+    // 2.4 V supply, 1.7 V drop: the node tops out at 0.7 V, below the rising threshold.
+    let flat = GOOD
+        .replace("vdd = \"5\"", "vdd = \"2.4\"")
+        .replace("diode = { drop = \"0.6\" }", "diode = { drop = \"1.7\" }");
+    write(dir.path(), "flat.toml", &flat);
+    // Nominal works; at the low-supply corner the node no longer reaches the rising threshold.
+    let edge = GOOD
+        .replace("vdd = \"5\"", "vdd = \"3.6\"")
+        .replace("diode = { drop = \"0.6\" }", "diode = { drop = \"1.0\" }")
+        .replace("c = \"10%\"", "c = \"10%\"\nvdd = \"10%\"");
+    write(dir.path(), "edge.toml", &edge);
+    let commands: [&[&str]; 5] = [
+        &["eval"],
+        &["window", "--clock", "1MHz"],
+        &["spread", "--samples", "100"],
+        &["timer-vs-rc", "--clock", "1M", "--clock-tolerance", "1%"],
+        &["curve", "--plot", "c.svg"],
+    ];
+    for (file, code, key) in [("wide.toml", 2, "tolerance.c"), ("flat.toml", 1, ""), ("edge.toml", 1, "tolerance.vdd")]
+    {
+        for cmd in commands {
+            let mut args = vec![cmd[0], file];
+            args.extend_from_slice(&cmd[1..]);
+            let out = run(dir.path(), &args);
+            let err = text(&out.stderr);
+            assert_eq!(out.status.code(), Some(code), "{args:?}: {err}");
+            if code == 2 || cmd[0] != "eval" {
+                assert_eq!(err.lines().count(), 1, "{args:?}: {err}");
+                assert!(err.contains(file) && err.contains(key), "{args:?}: {err}");
+            }
+        }
+    }
+}

@@ -44,9 +44,10 @@ pub fn trace(stage: &Stage, span_s: f64, points: usize) -> Vec<(f64, f64)> {
 /// The stage file's error when the nominal stage cannot be evaluated.
 pub fn curve_svg(sf: &StageFile, name: &str) -> Result<String, Error> {
     let nominal = &sf.stage;
-    let e = Model::new(nominal).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    let e = sf.nominal()?;
     let mut corners = Vec::new();
-    if let Ok(w) = sf.spread.window(nominal) {
+    let w = sf.window()?;
+    if sf.spread.active() != 0 {
         for (label, corner) in [("shortest", w.min_corner), ("longest", w.max_corner)] {
             if let Ok(s) = sf.spread.at_corner(nominal, corner) {
                 corners.push((format!("{label} ({})", corner_text(corner)), s));

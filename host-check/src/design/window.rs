@@ -8,7 +8,7 @@ use hold_firmware::{Config, Setup};
 use rc_model::{Model, Prepared};
 use serde_json::json;
 
-use crate::fmt::{corner_text, si};
+use crate::fmt::si;
 use crate::stage::file::StageFile;
 use crate::Error;
 
@@ -34,10 +34,8 @@ pub enum Emit {
 /// The stage file's error when the stage or a corner cannot be evaluated or
 /// the window does not fit the clock.
 pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Setup, Error> {
-    let model = Model::new(&sf.stage).map_err(|e| sf.model_error(e))?;
-    let window = sf.spread.window(&sf.stage).map_err(|f| {
-        Error::Input(format!("{}: the corner {} fails: {}", sf.path.display(), corner_text(f.corner), f.error))
-    })?;
+    let model = Model::new(&sf.stage).map_err(|e| sf.refusal(e))?;
+    let window = sf.window()?;
     let config = Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns)
         .map_err(|e| Error::Input(format!("{}: {e}", sf.path.display())))?;
     let stage = Prepared::prepare(&sf.stage, &sf.spread, clock_hz)
@@ -51,7 +49,7 @@ pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> 
 /// # Errors
 /// The stage file's error when the nominal stage cannot be evaluated.
 pub fn default_poll_ns(sf: &StageFile) -> Result<u32, Error> {
-    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    let nominal = sf.nominal()?;
     Ok((nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32)
 }
 

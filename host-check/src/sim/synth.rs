@@ -10,7 +10,6 @@ use hold_firmware::record::Record;
 use hold_firmware::{Hint, Verdict};
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
-use rc_model::Model;
 
 use crate::data::{log, time};
 use crate::design::window;
@@ -34,7 +33,7 @@ const START: &[u8] = b"2027-01-04T06:00:00Z";
 /// [`Error::Io`] when `out` cannot be written.
 pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(), Error> {
     let sf = stagefile::parse(Path::new("lumen-keypad.toml"), BOARD_TOML)?;
-    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
+    let nominal = sf.nominal()?;
     let nominal_ticks = secs(nominal.hold) * f64::from(CLOCK_HZ);
     let config = window::settings(&sf, CLOCK_HZ, GUARD_PPM, window::default_poll_ns(&sf)?)?.config;
     let io = |e| Error::io(out, e);

@@ -28,11 +28,12 @@ use std::fmt;
 use std::path::{Path, PathBuf};
 
 use rc_model::presets::{self, InputPreset};
-use rc_model::window::{Aging, Spread, Tempco, ThresholdSpread, Tolerance};
-use rc_model::{Diode, Quantity, Stage};
+use rc_model::window::{Aging, Corner, CornerFailure, Spread, Tempco, ThresholdSpread, Tolerance, Window};
+use rc_model::{Diode, Model, Quantity, Stage};
 use serde::Deserialize;
 use toml::{Spanned, Value};
 
+use crate::fmt::corner_text;
 use crate::stage::values::{parse_tolerance, parse_value, round_u64, Tol};
 
 /// A problem in a stage file, with where it is.
@@ -154,6 +155,8 @@ struct RawAging {
 #[derive(Debug, Clone, Default)]
 pub struct Origins {
     entries: Vec<(Quantity, usize, String)>,
+    /// Every key read, with its line.
+    keys: Vec<(String, usize)>,
 }
 
 impl Origins {
@@ -161,6 +164,12 @@ impl Origins {
     #[must_use]
     pub fn of(&self, q: Quantity) -> Option<(usize, &str)> {
         self.entries.iter().find(|e| e.0 == q).map(|e| (e.1, e.2.as_str()))
+    }
+
+    /// Line of a key (dotted path), if the file set it.
+    #[must_use]
+    pub fn line_of(&self, key: &str) -> Option<usize> {
+        self.keys.iter().find(|k| k.0 == key).map(|k| k.1)
     }
 }
 
@@ -215,6 +224,7 @@ impl Ctx<'_> {
 
     /// A value in SI units, checked against `[lo, hi]` (given in text as `range`).
     fn si(&mut self, v: &Sv, key: &str, unit: &[&str], lo: f64, hi: f64, range: &str) -> Result<f64, StageFileError> {
+        self.mark(v, key);
         let x = match v.get_ref() {
             Value::String(s) => parse_value(s, unit).map_err(|e| self.err(Some(v.span().start), key, e.to_string()))?,
             Value::Integer(i) => *i as f64,
@@ -234,7 +244,14 @@ impl Ctx<'_> {
         self.origins.entries.push((q, line, key.to_string()));
     }
 
-    fn tol(&self, v: &Sv, key: &str, unit: &[&str], nominal: f64) -> Result<Tolerance, StageFileError> {
+    /// Records the line of `key`.
+    fn mark(&mut self, v: &Sv, key: &str) {
+        let line = self.line_of(v.span().start);
+        self.origins.keys.push((key.to_string(), line));
+    }
+
+    fn tol(&mut self, v: &Sv, key: &str, unit: &[&str], nominal: f64) -> Result<Tolerance, StageFileError> {
+        self.mark(v, key);
         let s = match v.get_ref() {
             Value::String(s) => s.clone(),
             Value::Integer(i) => i.to_string(),
@@ -256,6 +273,25 @@ impl Ctx<'_> {
         }
         Ok(Tolerance::symmetric((frac * 1e6).round() as u32))
     }
+}
+
+/// The value of quantity `q` in `s`, with its unit, for messages.
+fn quantity_text(q: Quantity, s: &Stage) -> Option<String> {
+    use crate::fmt::si;
+    Some(match q {
+        Quantity::R => si(s.r_mohm as f64 * 1e-3, "Ω"),
+        Quantity::C => si(s.c_ff as f64 * 1e-15, "F"),
+        Quantity::Vdd => si(f64::from(s.vdd_uv) * 1e-6, "V"),
+        Quantity::DriverR => si(s.driver_mohm as f64 * 1e-3, "Ω"),
+        Quantity::Rise => si(f64::from(s.rise_uv) * 1e-6, "V"),
+        Quantity::Fall => si(f64::from(s.fall_uv) * 1e-6, "V"),
+        Quantity::DiodeDrop => match s.diode {
+            Diode::Drop { drop_uv } => si(f64::from(drop_uv) * 1e-6, "V"),
+            Diode::Junction { .. } => return None,
+        },
+        Quantity::Temperature => format!("{:.1} °C", f64::from(s.temp_mdeg_c) / 1e3),
+        _ => return None,
+    })
 }
 
 /// Reads a stage file.
@@ -340,7 +376,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
     let mut spread = Spread { thresholds: band, ref_mdeg_c: stage.temp_mdeg_c, ..Spread::default() };
     if let Some(t) = &raw.tolerance {
         let nominal = Nominal { r, c, vdd, driver: ro, diode, rise_uv, fall_uv, schmitt, preset: preset.is_some() };
-        parse_tolerance_table(&cx, t, &nominal, &mut spread)?;
+        parse_tolerance_table(&mut cx, t, &nominal, &mut spread)?;
     }
     if let Some(env) = &raw.environment {
         parse_environment(&mut cx, env, &mut spread)?;
@@ -477,7 +513,7 @@ struct Nominal {
 
 /// The `[tolerance]` table into `spread`.
 fn parse_tolerance_table(
-    cx: &Ctx<'_>,
+    cx: &mut Ctx<'_>,
     t: &RawTolerance,
     n: &Nominal,
     spread: &mut Spread,
@@ -503,7 +539,7 @@ fn parse_tolerance_table(
         spread.diode = cx.tol(v, "tolerance.diode", unit, nominal)?;
     }
     // Threshold tolerances for custom inputs: a band around the nominal.
-    let band_of = |cx: &Ctx, v: &Sv, key: &str, nominal_uv: u32| -> Result<(u32, u32), StageFileError> {
+    let band_of = |cx: &mut Ctx, v: &Sv, key: &str, nominal_uv: u32| -> Result<(u32, u32), StageFileError> {
         let t = cx.tol(v, key, VOLT, f64::from(nominal_uv) * 1e-6)?;
         let d = u64::from(nominal_uv) * u64::from(t.plus_ppm) / 1_000_000;
         let d = u32::try_from(d).unwrap_or(u32::MAX);
@@ -617,6 +653,114 @@ fn parse_aging(cx: &mut Ctx<'_>, a: &RawAging) -> Result<(Option<Aging>, Option<
 }
 
 impl StageFile {
+    /// The nominal stage's timing.
+    ///
+    /// # Errors
+    /// As [`StageFile::refusal`].
+    pub fn nominal(&self) -> Result<rc_model::Evaluation, crate::Error> {
+        Model::new(&self.stage).and_then(|m| m.evaluate()).map_err(|e| self.refusal(e))
+    }
+
+    /// The window over every corner of the file.
+    ///
+    /// # Errors
+    /// As [`StageFile::refusal`] at the nominal stage, else
+    /// [`StageFile::corner_refusal`].
+    pub fn window(&self) -> Result<Window, crate::Error> {
+        self.spread.window(&self.stage).map_err(|f| {
+            if f.corner.active == 0 {
+                self.refusal(f.error)
+            } else {
+                self.corner_refusal(&f)
+            }
+        })
+    }
+
+    /// How every command refuses a model error of the nominal stage: a
+    /// stage that does not work as a hold stage (it never activates, the
+    /// press ends first, no hold) is [`crate::Error::StageFails`] (exit 1);
+    /// anything else is a value outside the model's domain, named by its key
+    /// (exit 2).
+    #[must_use]
+    pub fn refusal(&self, e: rc_model::Error) -> crate::Error {
+        match e {
+            rc_model::Error::NeverActivates { .. }
+            | rc_model::Error::PressTooShort { .. }
+            | rc_model::Error::NoHold => crate::Error::StageFails(format!("{}: {e}", self.path.display())),
+            _ => crate::Error::StageFile(self.model_error(e)),
+        }
+    }
+
+    /// How every command refuses a corner that fails: the message names the
+    /// tolerance, tempco or aging keys that move the failing quantity to
+    /// that corner, the corner and the quantity's value there. The exit code
+    /// is that of [`StageFile::refusal`] for the same error.
+    #[must_use]
+    pub fn corner_refusal(&self, f: &CornerFailure) -> crate::Error {
+        let keys = self.corner_keys(f.corner, f.error);
+        let value = match f.error {
+            rc_model::Error::OutOfDomain(q) => {
+                self.spread.at_corner(&self.stage, f.corner).ok().and_then(|s| quantity_text(q, &s))
+            }
+            _ => None,
+        };
+        let message = format!(
+            "at the corner {}{}: {}",
+            corner_text(f.corner),
+            value.map_or_else(String::new, |v| format!(" ({v})")),
+            f.error
+        );
+        let line = keys.first().and_then(|k| self.origins.line_of(k));
+        let err = StageFileError { file: self.path.clone(), line, key: Some(keys.join(", ")), message };
+        match self.refusal(f.error) {
+            crate::Error::StageFails(_) => crate::Error::StageFails(err.to_string()),
+            _ => crate::Error::StageFile(err),
+        }
+    }
+
+    /// The keys of the file that move the quantity of `error` at `corner`
+    /// (all the corner's keys when the error names no quantity).
+    fn corner_keys(&self, corner: Corner, error: rc_model::Error) -> Vec<String> {
+        use rc_model::window::Param;
+        let moves: &[Param] = match error {
+            rc_model::Error::OutOfDomain(q) => match q {
+                Quantity::R => &[Param::R, Param::Temp],
+                Quantity::C => &[Param::C, Param::Temp, Param::Age],
+                Quantity::Vdd => &[Param::Vdd],
+                Quantity::DiodeDrop | Quantity::DiodeIs => &[Param::Diode, Param::Temp],
+                Quantity::DriverR => &[Param::Driver],
+                Quantity::Rise | Quantity::Fall => &[Param::Rise, Param::Fall, Param::Vdd, Param::Temp],
+                _ => &[],
+            },
+            _ => &[],
+        };
+        let custom = self.preset.is_none();
+        let key = |p: Param| match p {
+            Param::R => "tolerance.r",
+            Param::C => "tolerance.c",
+            Param::Vdd => "tolerance.vdd",
+            Param::Diode => "tolerance.diode",
+            Param::Driver => "tolerance.driver_ohms",
+            Param::Rise if custom => "tolerance.rise",
+            Param::Fall if custom => "tolerance.fall",
+            Param::Rise | Param::Fall => "input.family",
+            Param::Temp => "environment.temp_min",
+            Param::Age => "aging",
+        };
+        let moving: Vec<Param> = corner.sides().map(|(p, _)| p).collect();
+        // The quantity's own key first, then what else moves it at this corner.
+        let order: Vec<Param> = if moves.is_empty() { moving.clone() } else { moves.to_vec() };
+        let mut keys: Vec<String> = Vec::new();
+        for k in order.into_iter().filter(|p| moving.contains(p)).map(key) {
+            if !keys.iter().any(|x| x == k)
+                && (self.origins.line_of(k).is_some() || k == "input.family" || k == "aging")
+            {
+                keys.push(k.to_owned());
+            }
+        }
+        keys
+    }
+
     /// A model error turned into a one-line file error pointing at the key
     /// that set the quantity.
     #[must_use]

@@ -72,6 +72,24 @@ pub fn parse_value(text: &str, unit: &[&str]) -> Result<f64, ValueError> {
             break;
         }
     }
+    // "4.7 k" (a space between number and prefix, as in "4.7 kΩ") reads as "4.7k".
+    let squeezed: String;
+    if s.contains(char::is_whitespace) {
+        squeezed = s.split_whitespace().collect();
+        s = &squeezed;
+    }
+    // SPICE's "meg" (any case) is mega: "1meg" reads as "1M".
+    let mega: String;
+    if let Some(head) = s
+        .len()
+        .checked_sub(3)
+        .and_then(|i| s.get(i..))
+        .filter(|t| t.eq_ignore_ascii_case("meg"))
+        .and_then(|_| s.get(..s.len() - 3))
+    {
+        mega = format!("{head}M");
+        s = &mega;
+    }
     if s.is_empty() {
         return Err(err("empty value"));
     }
@@ -142,6 +160,19 @@ pub enum Tol {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_space_before_the_unit_and_spice_meg() {
+        let ohm = ["Ω", "ohm"];
+        assert_eq!(parse_value("4.7 kΩ", &ohm).ok(), Some(4_700.0));
+        assert_eq!(parse_value("10 µF", &["F"]).ok(), Some(10e-6));
+        assert_eq!(parse_value("1 MHz", &["Hz"]).ok(), Some(1e6));
+        assert_eq!(parse_value("3.3 V", &["V"]).ok(), Some(3.3));
+        assert_eq!(parse_value("1meg", &ohm).ok(), Some(1e6));
+        assert_eq!(parse_value("2.2MEG", &ohm).ok(), Some(2.2e6));
+        assert_eq!(parse_value("4 k 7", &ohm).ok(), Some(4_700.0));
+        assert!(parse_value("meg", &ohm).is_err());
+    }
 
     /// IEC 60062:2016 value codes as listed in the project's check values
     /// (published, as transcribed by general encyclopedias; "u" for "µ" is

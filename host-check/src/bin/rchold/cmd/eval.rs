@@ -38,5 +38,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     } else {
         emit(&eval::render_text(&sf, &report))?;
     }
+    if let Some(Err(f)) = &report.window {
+        // The same refusal, and exit code, as every other command gives this corner.
+        return Err(sf.corner_refusal(f).into());
+    }
     Ok(if report.nominal.is_ok() { ExitCode::SUCCESS } else { ExitCode::from(1) })
 }

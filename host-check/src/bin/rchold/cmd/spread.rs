@@ -82,8 +82,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if let Some(years) = a.years {
         aged::age_parts(&mut sf, years, a.at_temp)?;
     }
-    let window = sf.spread.window(&sf.stage).ok();
-    let rss = spread::rss(&sf.stage, &sf.spread, dist).map_err(|e| sf.model_error(e))?;
+    let window = Some(sf.window()?);
+    let rss = spread::rss(&sf.stage, &sf.spread, dist).map_err(|e| sf.refusal(e))?;
     let progress = bar(samples as u64, "boards");
     let how = if a.exact { Eval::Exact } else { Eval::Fast };
     let mc = spread::monte_carlo_with(&sf.stage, &sf.spread, dist, samples, a.seed, how, &|done, _| {

@@ -5,7 +5,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use host_check::design::timer_vs_rc::{compare, render_comparison, Currents, TimerClock};
-use host_check::fmt::{corner_text, secs};
+use host_check::fmt::secs;
 use host_check::Error;
 
 use crate::args::{bad, emit, fraction, stage, stage_name, value};
@@ -62,10 +62,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             )
         }
     };
-    let nominal = rc_model::Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(|e| sf.model_error(e))?;
-    let window = sf.spread.window(&sf.stage).map_err(|f| {
-        Error::Input(format!("{}: the corner {} fails: {}", a.stage.display(), corner_text(f.corner), f.error))
-    })?;
+    let nominal = sf.nominal()?;
+    let window = sf.window()?;
     let clock = TimerClock { hz, tolerance };
     let c = compare(secs(nominal.hold), &window, clock);
     let vdd_v = f64::from(sf.stage.vdd_uv) * 1e-6;
