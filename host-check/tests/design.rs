@@ -319,14 +319,21 @@ fn spread_ages_an_electrolytic_by_the_ten_degree_rule() {
     ]);
     assert!((worn / new - 0.8).abs() < 1e-4, "{worn} vs {new}");
     assert!((half / new - 0.9).abs() < 1e-4, "{half} vs {new}");
-    // The report says which parts the Monte Carlo drew, and that the worst case holds the aging.
+    // The report says which parts it describes: the worst case, the root-sum-square and the
+    // Monte Carlo all take new parts (the file's aging is for `window`).
     let out = run(dir.path(), &["spread", "e.toml", "--samples", "100"]);
     assert!(
-        text(&out.stdout)
-            .contains("new parts; the worst case and root-sum-square include the capacitor at end of life (20 % lost)"),
+        text(&out.stdout).contains(
+            "new parts in the worst case, root-sum-square and Monte Carlo alike; the file's [aging] (end of life, 20 % lost)"
+        ),
         "{}",
         text(&out.stdout)
     );
+    let v: serde_json::Value =
+        serde_json::from_slice(&run(dir.path(), &["spread", "e.toml", "--samples", "2000", "--json"]).stdout)
+            .unwrap_or_default();
+    let (wc_min, mc_min) = (v["worst_case"]["min_s"].as_f64(), v["monte_carlo"]["min_s"].as_f64());
+    assert!(wc_min.zip(mc_min).is_some_and(|(w, m)| w <= m && m < w * 1.25), "{wc_min:?} {mc_min:?}");
     let out = run(dir.path(), &["spread", "e.toml", "--samples", "100", "--years", "1.5", "--at-temp", "85"]);
     assert!(text(&out.stdout).contains("every capacitor aged 1.5 years first"), "{}", text(&out.stdout));
 }

@@ -271,6 +271,72 @@ fn month_label(x: f64) -> String {
     }
 }
 
+/// Labelled bars, each with an optional second value drawn beside it.
+#[derive(Debug, Clone)]
+pub struct Bars<'a> {
+    /// Title above the plot.
+    pub title: &'a str,
+    /// What the bars measure, with its unit.
+    pub quantity: &'a str,
+    /// (label, value, second value).
+    pub bars: &'a [(String, f64, Option<f64>)],
+}
+
+/// A bar chart: first-order values in the data colour, second values (a
+/// check of them) beside in the centre colour.
+#[must_use]
+pub fn bars(b: &Bars<'_>) -> String {
+    svg(|root| {
+        let n = b.bars.len().max(1);
+        let top = b.bars.iter().map(|x| x.1.max(x.2.unwrap_or(0.0))).fold(1e-9, f64::max) * 1.1;
+        let mut chart = ChartBuilder::on(root)
+            .caption(b.title, (FONT, 15))
+            .margin(12)
+            .x_label_area_size(42)
+            .y_label_area_size(56)
+            .build_cartesian_2d(0.0..n as f64, 0.0..top)
+            .map_err(err)?;
+        let labels: Vec<String> = b.bars.iter().map(|x| x.0.clone()).collect();
+        chart
+            .configure_mesh()
+            .disable_x_mesh()
+            .x_labels(n * 2 + 1)
+            .x_label_formatter(&|x| {
+                let k = x.floor();
+                let i = k as usize;
+                if (x - k - 0.5).abs() < 0.01 {
+                    labels.get(i).cloned().unwrap_or_default()
+                } else {
+                    String::new()
+                }
+            })
+            .y_desc(b.quantity)
+            .y_label_formatter(&|v| format!("{v:.0}"))
+            .draw()
+            .map_err(err)?;
+        let first = Ink::Data.rgb().filled();
+        let second = Ink::Centre.rgb().filled();
+        chart
+            .draw_series(b.bars.iter().enumerate().map(|(i, x)| {
+                let at = i as f64;
+                Rectangle::new([(at + 0.12, 0.0), (at + 0.48, x.1)], first)
+            }))
+            .map_err(err)?
+            .label("first order, from the model")
+            .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], first));
+        if b.bars.iter().any(|x| x.2.is_some()) {
+            chart
+                .draw_series(b.bars.iter().enumerate().filter_map(|(i, x)| {
+                    x.2.map(|v| Rectangle::new([(i as f64 + 0.52, 0.0), (i as f64 + 0.88, v.max(0.0))], second))
+                }))
+                .map_err(err)?
+                .label("Monte Carlo, with it frozen")
+                .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], second));
+        }
+        legend(&mut chart, SeriesLabelPosition::UpperRight)
+    })
+}
+
 /// Values over time, the x axis in calendar dates (UTC).
 #[must_use]
 pub fn trend(t: &Trend<'_>) -> String {
@@ -448,6 +514,18 @@ mod tests {
         assert!(s.contains("bay &lt;1&gt;"), "{s}");
         assert!(s.contains("600.0 ms") || s.contains("700.0 ms"));
         assert!(count(&s, "<rect") >= 5);
+    }
+
+    #[test]
+    fn bars_are_labelled() {
+        let bars = [("c".to_owned(), 80.0, Some(79.0)), ("r".to_owned(), 20.0, None)];
+        let s = bars_svg_for_test(&bars);
+        assert!(s.contains(">\nc\n<") || s.contains(">c<"), "{s}");
+        assert!(s.contains("Monte Carlo, with it frozen"));
+    }
+
+    fn bars_svg_for_test(b: &[(String, f64, Option<f64>)]) -> String {
+        bars(&Bars { title: "t", quantity: "share (%)", bars: b })
     }
 
     #[test]

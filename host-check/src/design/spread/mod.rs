@@ -24,6 +24,7 @@ mod blocks;
 mod board;
 mod lanes;
 mod order;
+pub mod sensitivity;
 
 use rand::SeedableRng;
 use rand_xoshiro::Xoshiro256PlusPlus;
@@ -205,34 +206,16 @@ pub fn monte_carlo_with(
     Monte { samples, refused, mean_s: mean, sd_s: sd, min_s, max_s, percentiles, holds: v }
 }
 
-/// Root-sum-square spread: each parameter moved alone to both ends of its
-/// tolerance (one-at-a-time corners of [`Spread::at_corner`]); its standard
-/// deviation is the half-range over √3 (uniform) or over k (normal at k σ).
-/// Returns (nominal hold, σ), s.
+/// Root-sum-square spread: the root of the sum of every parameter's
+/// first-order variance ([`sensitivity::first_order`]). Returns (nominal
+/// hold, σ), s.
 ///
 /// # Errors
 /// The model's error at the first corner it cannot evaluate.
 pub fn rss(nominal: &Stage, spread: &Spread, dist: Dist) -> Result<(f64, f64), rc_model::Error> {
     let h0 = Model::new(nominal).and_then(|m| m.evaluate()).map(|e| secs(e.hold))?;
-    let active = spread.active();
-    let mut var = 0.0;
-    for bit in 0..16u16 {
-        if active & (1 << bit) == 0 {
-            continue;
-        }
-        let at = |high: bool| -> Result<f64, rc_model::Error> {
-            let corner = rc_model::window::Corner { high: if high { 1 << bit } else { 0 }, active: 1 << bit };
-            let s = spread.at_corner(nominal, corner)?;
-            Model::new(&s).and_then(|m| m.evaluate()).map(|e| secs(e.hold))
-        };
-        let half = 0.5 * (at(true)? - at(false)?).abs();
-        let sigma = match dist {
-            Dist::Uniform => half / 3f64.sqrt(),
-            Dist::Normal { k_sigma } => half / k_sigma,
-        };
-        var += sigma * sigma;
-    }
-    Ok((h0, var.sqrt()))
+    let shares = sensitivity::first_order(nominal, spread, dist)?;
+    Ok((h0, shares.iter().map(|s| s.sigma_s * s.sigma_s).sum::<f64>().sqrt()))
 }
 
 /// Process capability of the Monte Carlo holds against a spec (NIST/SEMATECH
@@ -279,13 +262,21 @@ pub fn histogram_svg(m: &Monte, window: Option<&Window>, spec: Option<(f64, f64)
     chart::histogram(&Histogram { title, quantity: "hold", unit: "s", lo, hi, bins: &counts, marks: &marks })
 }
 
+/// The shares of the variance as a bar chart (SVG).
+#[must_use]
+pub fn shares_svg(shares: &[sensitivity::Share], title: &str) -> String {
+    let bars: Vec<(String, f64, Option<f64>)> =
+        shares.iter().map(|s| (s.param.to_owned(), 100.0 * s.share, s.frozen_share.map(|f| 100.0 * f))).collect();
+    chart::bars(&chart::Bars { title, quantity: "share of the hold's variance (%)", bars: &bars })
+}
+
 /// How old the Monte Carlo's capacitors are.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum Parts {
     /// New parts, and no aging in the spread.
     New,
-    /// New parts, while the worst case and the root-sum-square also take
-    /// the spread's aging (the `[aging]` table) as a corner.
+    /// New parts everywhere, although the stage file has an `[aging]` table
+    /// (which `window` uses).
     NewBesideAging(Aging),
     /// Every capacitor aged this many years first (`--years`).
     Aged {
@@ -299,33 +290,48 @@ impl Parts {
         match self {
             Parts::New => None,
             Parts::NewBesideAging(a) => Some(format!(
-                "new parts; the worst case and root-sum-square include the capacitor {}; --years Y ages every board",
+                "new parts in the worst case, root-sum-square and Monte Carlo alike; the file's [aging] ({}) is left out here (window uses it; --years Y ages every board)",
                 match a {
-                    Aging::Class2 { hours, .. } => format!("aged {hours} h"),
-                    Aging::EndOfLife { loss_ppm } => format!("at end of life ({} % lost)", f64::from(loss_ppm) / 1e4),
+                    Aging::Class2 { hours, .. } => format!("class 2, {hours} h"),
+                    Aging::EndOfLife { loss_ppm } => format!("end of life, {} % lost", f64::from(loss_ppm) / 1e4),
                 }
             )),
-            Parts::Aged { years } => Some(format!("every capacitor aged {years} years first")),
+            Parts::Aged { years } => Some(format!(
+                "every capacitor aged {years} years first, in the worst case, root-sum-square and Monte Carlo alike"
+            )),
         }
     }
 }
 
-/// The report, as text or JSON. `(nominal_s, rss_sd_s)`: the nominal hold
-/// and the root-sum-square σ, s.
+/// Everything `rchold spread` reports.
+#[derive(Debug, Clone)]
+pub struct Report<'a> {
+    /// The stage's name.
+    pub name: &'a str,
+    /// The Monte Carlo.
+    pub m: &'a Monte,
+    /// How old the parts are.
+    pub parts: Parts,
+    /// Nominal hold, s.
+    pub nominal_s: f64,
+    /// Root-sum-square σ, s.
+    pub rss_sd_s: f64,
+    /// The worst case over every corner.
+    pub window: Option<&'a Window>,
+    /// The specification window, s.
+    pub spec: Option<(f64, f64)>,
+    /// Cp/Cpk against the specification.
+    pub cap: Option<&'a Capability>,
+    /// Each parameter's part in the spread, largest first.
+    pub shares: &'a [sensitivity::Share],
+}
+
+/// The report, as text or JSON.
 #[must_use]
-#[allow(clippy::too_many_arguments)]
-pub fn render(
-    name: &str,
-    m: &Monte,
-    parts: Parts,
-    (nominal_s, rss_sd_s): (f64, f64),
-    window: Option<&Window>,
-    spec: Option<(f64, f64)>,
-    cap: Option<&Capability>,
-    json: bool,
-) -> String {
+pub fn render(r: &Report<'_>, json: bool) -> String {
     use crate::fmt::{corner_text, si};
     use std::fmt::Write as _;
+    let Report { name, m, parts, nominal_s, rss_sd_s, window, spec, cap, shares } = *r;
     if json {
         let v = serde_json::json!({
             "stage": name,
@@ -335,9 +341,10 @@ pub fn render(
                 "min_corner": corner_text(w.min_corner), "max_corner": corner_text(w.max_corner), "corners": w.corners,
             })),
             "rss_sd_s": rss_sd_s,
+            "sensitivity": shares,
             "monte_carlo": m,
             "monte_carlo_age_years": match parts { Parts::Aged { years } => years, _ => 0.0 },
-            "monte_carlo_parts": parts.text().unwrap_or_else(|| "new parts".to_owned()),
+            "parts": parts.text().unwrap_or_else(|| "new parts".to_owned()),
             "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
             "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
         });
@@ -364,6 +371,28 @@ pub fn render(
         "root-sum-square",
         format!("σ {} ({:.2} % of nominal)", si(rss_sd_s, "s"), 100.0 * rss_sd_s / nominal_s),
     );
+    if !shares.is_empty() {
+        let checked = shares.iter().any(|s| s.frozen_share.is_some());
+        let _ = writeln!(
+            o,
+            "    share of the variance (first order){}",
+            if checked {
+                format!(" · Monte Carlo with it frozen (± {:.1} %)", 100.0 * sensitivity::freezing_error(m.samples))
+            } else {
+                String::new()
+            }
+        );
+        for sh in shares {
+            let _ = writeln!(
+                o,
+                "    {:<7} {:>6.1} %{}  elasticity {}",
+                sh.param,
+                100.0 * sh.share,
+                sh.frozen_share.map_or_else(String::new, |f| format!(" · {:>6.1} %", 100.0 * f)),
+                sh.elasticity.map_or_else(|| "–".to_owned(), |e| format!("{e:+.3} %/%"))
+            );
+        }
+    }
     line(
         &mut o,
         &format!("Monte Carlo, {} boards", m.samples),

@@ -4,7 +4,8 @@
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use host_check::design::spread::{self, aged, Dist, Eval, Parts};
+use host_check::design::spread::{self, aged, sensitivity, Dist, Eval, Parts};
+use host_check::fmt::secs;
 use host_check::stage::values::parse_value;
 use host_check::Error;
 
@@ -38,9 +39,14 @@ pub struct Args {
     /// Operating temperature for an electrolytic's aging, °C (needs `rated_hours` and `rated_temp` in `[aging]`).
     #[arg(long)]
     at_temp: Option<f64>,
-    /// Write a histogram with the window and spec marked (SVG).
+    /// Write a histogram with the window and spec marked (SVG), and beside it
+    /// FILE-shares.svg, the bar chart of each parameter's share of the variance.
     #[arg(long, value_name = "FILE")]
     plot: Option<PathBuf>,
+    /// Check each parameter's share by the Monte Carlo: the variance lost with it frozen
+    /// at nominal (one more run per parameter).
+    #[arg(long)]
+    check_shares: bool,
     /// Evaluate every sample with the fixed-point model instead of the fast vector closed form (slower, same statistics).
     #[arg(long)]
     exact: bool,
@@ -74,29 +80,53 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         Dist::Uniform
     };
     let spec = a.spec.as_deref().map(spec).transpose()?;
+    // The worst case, the root-sum-square and the Monte Carlo describe the same parts.
     let parts = match (a.years, sf.spread.aging) {
-        (Some(years), _) => Parts::Aged { years },
-        (None, Some(law)) => Parts::NewBesideAging(law),
+        (Some(years), _) => {
+            aged::age_parts(&mut sf, years, a.at_temp)?;
+            Parts::Aged { years }
+        }
+        (None, Some(law)) => {
+            sf.spread.aging = None;
+            Parts::NewBesideAging(law)
+        }
         (None, None) => Parts::New,
     };
-    if let Some(years) = a.years {
-        aged::age_parts(&mut sf, years, a.at_temp)?;
-    }
-    let window = Some(sf.window()?);
-    let rss = spread::rss(&sf.stage, &sf.spread, dist).map_err(|e| sf.refusal(e))?;
+    let window = sf.window()?;
+    let mut shares = sensitivity::first_order(&sf.stage, &sf.spread, dist).map_err(|e| sf.refusal(e))?;
+    let rss_sd_s = shares.iter().map(|s| s.sigma_s * s.sigma_s).sum::<f64>().sqrt();
     let progress = bar(samples as u64, "boards");
     let how = if a.exact { Eval::Exact } else { Eval::Fast };
     let mc = spread::monte_carlo_with(&sf.stage, &sf.spread, dist, samples, a.seed, how, &|done, _| {
         progress.set_position(done as u64);
     });
     progress.finish_and_clear();
+    if a.check_shares {
+        sensitivity::check_by_freezing(&sf.stage, &sf.spread, dist, samples, a.seed, &mut shares);
+    }
     let cap = spec.map(|(lo, hi)| spread::capability(&mc, lo, hi));
     let name = stage_name(&sf, &a.stage);
     if let Some(path) = &a.plot {
         let title = format!("hold of {name}, {samples} boards");
-        write(path, spread::histogram_svg(&mc, window.as_ref(), spec, &title))?;
+        write(path, spread::histogram_svg(&mc, Some(&window), spec, &title))?;
+        let shares_path = path.with_file_name(format!(
+            "{}-shares.svg",
+            path.file_stem().map_or_else(|| "spread".into(), |s| s.to_string_lossy())
+        ));
+        write(&shares_path, spread::shares_svg(&shares, &format!("what drives the hold of {name}")))?;
     }
-    emit(&spread::render(&name, &mc, parts, rss, window.as_ref(), spec, cap.as_ref(), a.json))?;
+    let report = spread::Report {
+        name: &name,
+        m: &mc,
+        parts,
+        nominal_s: secs(sf.nominal()?.hold),
+        rss_sd_s,
+        window: Some(&window),
+        spec,
+        cap: cap.as_ref(),
+        shares: &shares,
+    };
+    emit(&spread::render(&report, a.json))?;
     Ok(ExitCode::SUCCESS)
 }
 
