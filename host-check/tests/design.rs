@@ -280,6 +280,13 @@ fn timer_vs_rc_and_curve() {
         &["timer-vs-rc", "stage.toml", "--clock", "1M", "--clock-tolerance", "2%", "--stage-current", "2u"],
     );
     assert_eq!(bad.status.code(), Some(2));
+    // JSON: the comparison, the counters with their prescalers, the charge per press.
+    let out = run(dir.path(), &["timer-vs-rc", "stage.toml", "--clock", "16MHz", "--clock-tolerance", "2%", "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_default();
+    // 0.7395 s at 16 MHz = 11.83e6 ticks: a 16-bit counter needs a prescaler of 256 (11.83e6 / 65,535 = 180.6, math).
+    assert_eq!(v["comparison"]["counters"][0]["prescaler"].as_u64(), Some(256), "{v}");
+    assert_eq!(v["comparison"]["counters"][1]["prescaler"].as_u64(), Some(1));
+    assert!(v["comparison"]["charge_per_press_c"].as_f64().is_some_and(|q| q > 4e-6 && q < 6e-6), "{v}");
     let out = run(dir.path(), &["curve", "stage.toml", "--plot", "c.svg"]);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     let svg = std::fs::read_to_string(dir.path().join("c.svg")).unwrap_or_default();

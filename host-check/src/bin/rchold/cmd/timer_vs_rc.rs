@@ -4,11 +4,12 @@
 use std::path::PathBuf;
 use std::process::ExitCode;
 
-use host_check::design::timer_vs_rc::{compare, render_comparison, Currents, TimerClock};
+use host_check::design::timer_vs_rc::{charge_per_press, compare, render_comparison, Currents, TimerClock};
 use host_check::fmt::secs;
+use host_check::reference::StageF;
 use host_check::Error;
 
-use crate::args::{bad, emit, fraction, stage, stage_name, value};
+use crate::args::{bad, emit, fraction, stage, stage_name, value, within};
 
 /// Options of `rchold timer-vs-rc`.
 #[derive(clap::Args)]
@@ -27,6 +28,12 @@ pub struct Args {
     /// Current of the MCU asleep with one timer running ("1.5u").
     #[arg(long)]
     sleep_current: Option<String>,
+    /// Presses a day, for the stage's average current (its charge per press adds to it).
+    #[arg(long, default_value_t = 10.0)]
+    presses_per_day: f64,
+    /// Print JSON instead of the text report.
+    #[arg(long)]
+    json: bool,
 }
 
 /// `"50ppm"` or `"2%"` as a fraction, 0 … 50 %.
@@ -53,8 +60,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let tolerance = clock_tolerance(&a.clock_tolerance)?;
     let amps =
         |opt: &str, v: &Option<String>| v.as_deref().map(|t| value(opt, t, &["A"], 0.0, 1.0, "0 A to 1 A")).transpose();
+    let presses_per_day = within("presses-per-day", a.presses_per_day, 0.0..=1e6, "0 to 1000000")?;
     let currents = match (amps("stage-current", &a.stage_current)?, amps("sleep-current", &a.sleep_current)?) {
-        (Some(stage_quiescent_a), Some(timer_sleep_a)) => Some(Currents { stage_quiescent_a, timer_sleep_a }),
+        (Some(stage_quiescent_a), Some(timer_sleep_a)) => {
+            Some(Currents { stage_quiescent_a, timer_sleep_a, presses_per_day })
+        }
         (None, None) => None,
         _ => {
             return Err(
@@ -65,9 +75,13 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let nominal = sf.nominal()?;
     let window = sf.window()?;
     let clock = TimerClock { hz, tolerance };
-    let c = compare(secs(nominal.hold), &window, clock);
+    let f = StageF::from(&sf.stage);
+    let node_v = nominal.cap_at_release.uv_q32() as f64 / 4_294_967_296.0 * 1e-6;
+    let r_eff = 1.0 / (1.0 / f.r + 1.0 / f.r_leak);
+    let q = charge_per_press(f.c, node_v, r_eff, f.i_in, f.press);
+    let c = compare(secs(nominal.hold), &window, clock, q);
     let vdd_v = f64::from(sf.stage.vdd_uv) * 1e-6;
-    emit(&render_comparison(&stage_name(&sf, &a.stage), &c, clock, currents, vdd_v, &window))?;
+    emit(&render_comparison(&stage_name(&sf, &a.stage), &c, clock, currents, vdd_v, &window, a.json))?;
     Ok(ExitCode::SUCCESS)
 }
 
