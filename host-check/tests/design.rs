@@ -385,3 +385,27 @@ fn every_command_refuses_alike() {
         }
     }
 }
+
+/// `compare` marks what differs between two stage files; `press` tabulates hold against
+/// press length and answers a retrigger.
+#[test]
+fn compare_and_press() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    write(dir.path(), "a.toml", GOOD);
+    write(dir.path(), "b.toml", &GOOD.replace("c = \"1u\"", "c = \"2.2u\""));
+    let out = run(dir.path(), &["compare", "a.toml", "b.toml"]);
+    let t = text(&out.stdout);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    // The hold is proportional to C: 2.2 µF holds 2.2 times as long (math).
+    assert!(t.contains("≠ hold") && t.contains("+120.00 %"), "{t}");
+    let out = run(dir.path(), &["compare", "a.toml", "a.toml", "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_default();
+    assert_eq!(v["a"]["hold_s"], v["b"]["hold_s"]);
+    let out = run(dir.path(), &["press", "a.toml", "--again-after", "2", "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_default();
+    assert!(v["presses"].as_array().is_some_and(|p| p.len() >= 5), "{v}");
+    // 2 s after a 739.5 ms hold ended: the output went off in between.
+    assert_eq!(v["retrigger"]["dropped"].as_bool(), Some(true), "{v}");
+    let out = run(dir.path(), &["press", "a.toml", "--first", "1ns"]);
+    assert_eq!(out.status.code(), Some(1), "a press too short to turn the output on: {}", text(&out.stderr));
+}

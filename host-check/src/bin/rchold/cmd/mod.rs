@@ -8,12 +8,14 @@ use clap::Subcommand;
 
 mod aging;
 mod agree;
+mod compare;
 mod curve;
 mod demo;
 mod eval;
 mod ingest;
 mod listen;
 mod pick;
+mod press;
 mod sources;
 mod spread;
 mod synth_log;
@@ -31,8 +33,12 @@ pub enum Command {
     Window(window::Args),
     /// Choose R and C from preferred-number series for a target hold and tolerance.
     Pick(pick::Args),
+    /// Hold against press length, and a second press during the hold (retrigger).
+    Press(press::Args),
     /// Compare the stage's spread with a software timer on a crystal or an internal RC oscillator.
     TimerVsRc(timer_vs_rc::Args),
+    /// Two stage files side by side: timing, window, warnings and what drives the spread.
+    Compare(compare::Args),
     /// Plot the node voltage through press and release, with thresholds and the extreme corners (SVG).
     Curve(curve::Args),
     /// How the hold spreads over the tolerances: worst case, root-sum-square and Monte Carlo.
@@ -61,7 +67,9 @@ pub fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::Eval(a) => eval::run(a),
         Command::Window(a) => window::run(a),
         Command::Pick(a) => pick::run(a),
+        Command::Press(a) => press::run(a),
         Command::TimerVsRc(a) => timer_vs_rc::run(a),
+        Command::Compare(a) => compare::run(a),
         Command::Curve(a) => curve::run(a),
         Command::Spread(a) => spread::run(a),
         Command::Agree(a) => agree::run(a),
