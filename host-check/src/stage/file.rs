@@ -318,7 +318,18 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
     let raw: Raw = toml::from_str(text).map_err(|e| {
         let offset = e.span().map(|s| s.start);
         let msg = e.message().lines().next().unwrap_or("invalid TOML").trim().to_string();
-        StageFileError { file: path.to_path_buf(), line: offset.map(|o| cx.line_of(o)), key: None, message: msg }
+        let line = offset.map(|o| cx.line_of(o));
+        // "missing field `r`": name the key, say it is required and what is accepted.
+        let field = msg.strip_prefix("missing field `").and_then(|m| m.strip_suffix('`'));
+        match field.and_then(|f| crate::stage::keys::missing(f, None)) {
+            Some(k) => StageFileError {
+                file: path.to_path_buf(),
+                line,
+                key: Some(k.key.to_owned()),
+                message: format!("missing (required; {}: {})", k.unit, k.accepted),
+            },
+            None => StageFileError { file: path.to_path_buf(), line, key: None, message: msg },
+        }
     })?;
     let st = &raw.stage;
     let vdd = cx.si(&st.vdd, "stage.vdd", VOLT, 1.6, 18.0, Quantity::Vdd.range())?;

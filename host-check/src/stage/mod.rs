@@ -3,5 +3,6 @@
 
 pub mod eseries;
 pub mod file;
+pub mod keys;
 pub mod netlist;
 pub mod values;
