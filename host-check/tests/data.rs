@@ -174,3 +174,50 @@ fn listen_from_a_file_then_report() {
     assert_eq!(v["all"]["total"], 300);
     assert_eq!(v["recheck"]["agreed"], 300);
 }
+
+/// The README's excerpt of the demo's output is what the demo prints for the default
+/// seed, line for line (lines marked "…" are left out), on any day: the run ends on a
+/// fixed day, so its times and reports do not depend on when it runs.
+#[test]
+fn the_readme_excerpt_is_the_demos_output() {
+    let readme = include_str!("../../README.md");
+    let start = readme.find("own demo data.").and_then(|i| readme[i..].find("```text\n").map(|j| i + j + 8));
+    let excerpt = start.and_then(|a| readme[a..].find("```").map(|b| &readme[a..a + b])).unwrap_or_default();
+    assert!(excerpt.lines().count() > 10, "no excerpt found");
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let out = rchold(dir.path(), &["demo", "--out", "d"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let printed = text(&out.stdout);
+    let mut lines = printed.lines();
+    for want in excerpt.lines().filter(|l| !l.trim().is_empty() && l.trim() != "…") {
+        assert!(lines.any(|l| l == want), "the demo did not print, in this order:\n{want}\n\nit printed:\n{printed}");
+    }
+    // `report` on the demo's store writes the demo's page, byte for byte.
+    let out = rchold(dir.path(), &["report", "--db", "d/rchold-demo.db", "--out", "r"]);
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let page = |p: &str| std::fs::read(dir.path().join(p)).unwrap_or_default();
+    assert!(!page("d/report.html").is_empty());
+    assert!(page("d/report.html") == page("r/report.html"), "report's page differs from the demo's");
+    // Aging leaves the fixture's boards out, yield the field units.
+    let aging = text(&rchold(dir.path(), &["aging", "--db", "d/rchold-demo.db", "--json"]).stdout);
+    let v: serde_json::Value = serde_json::from_str(&aging).unwrap_or_default();
+    assert_eq!(v["units"].as_array().map(Vec::len), Some(200), "only the 200 field units");
+    let y = text(&rchold(dir.path(), &["yield", "--db", "d/rchold-demo.db", "--json"]).stdout);
+    let v: serde_json::Value = serde_json::from_str(&y).unwrap_or_default();
+    assert_eq!(v["all"]["total"].as_u64(), Some(1984), "only the fixture's boards");
+    // Alerts: exit 1 past the limit, with one line saying why; 0 otherwise.
+    let db = ["--db", "d/rchold-demo.db"];
+    for (args, code, why) in [
+        (vec!["aging", "--alert", "beyond"], 1, "alert: 9 of 200 units beyond the limit"),
+        (vec!["aging", "--alert", "at-risk"], 1, "alert: 16 of 200 units beyond the limit or at risk"),
+        (vec!["yield", "--alert-below", "99%"], 1, "alert: yield 98.89 % is below 99.00 %"),
+        (vec!["yield", "--alert-below", "98%"], 0, ""),
+        (vec!["yield", "--alert-below", "120%"], 2, "--alert-below \"120%\""),
+    ] {
+        let mut all = args.clone();
+        all.extend_from_slice(&db);
+        let out = rchold(dir.path(), &all);
+        assert_eq!(out.status.code(), Some(code), "{all:?}: {}", text(&out.stderr));
+        assert!(text(&out.stderr).contains(why), "{all:?}: {}", text(&out.stderr));
+    }
+}

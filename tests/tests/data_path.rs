@@ -87,7 +87,7 @@ fn demo_scenario_end_to_end() {
     // Fleet: forecasts against the simulated truth (crossing of 80 % of the commissioning value).
     let f = &out.fleet;
     assert_eq!(f.units.len(), sc.units as usize);
-    let start = time::parse_ms(demo::FLEET_START.as_bytes()).unwrap_or(0);
+    let start = demo::fleet_start_ms(sc.days);
     let mut compared = 0;
     for u in &f.units {
         let truth = l.truth_ms.iter().find(|t| t.0 == u.unit).and_then(|t| t.1);

@@ -142,6 +142,13 @@ pub struct Setup {
 }
 
 impl Setup {
+    /// Whether this is a field unit's setup: no lower pass limit (it tracks
+    /// its capacitor's drift rather than judging a production window).
+    #[must_use]
+    pub const fn is_field(&self) -> bool {
+        self.hold_min_ticks == 0
+    }
+
     /// SHA-256 over every field, hex.
     #[must_use]
     pub fn digest(&self) -> String {

@@ -115,6 +115,9 @@ pub struct FleetReport {
     pub records_used: u64,
     /// Records skipped.
     pub records_skipped: u64,
+    /// Of those, records with no deviation of their own and no stage file
+    /// stored for their setup to compute one from.
+    pub skipped_without_stage: u64,
     /// 10th, 50th and 90th percentile of the rates, % per year.
     pub rate_percentiles: Option<(f64, f64, f64)>,
 }
@@ -126,13 +129,21 @@ pub struct FleetTally {
     setups: HashMap<i64, Setup>,
     used: u64,
     skipped: u64,
+    without_stage: u64,
 }
 
 impl FleetTally {
     /// A collector; `setups` let records without a deviation be converted.
     #[must_use]
     pub fn new(setups: &HashMap<i64, Setup>) -> FleetTally {
-        FleetTally { units: BTreeMap::new(), stages: HashMap::new(), setups: setups.clone(), used: 0, skipped: 0 }
+        FleetTally {
+            units: BTreeMap::new(),
+            stages: HashMap::new(),
+            setups: setups.clone(),
+            used: 0,
+            skipped: 0,
+            without_stage: 0,
+        }
     }
 
     fn ratio(&mut self, r: &Record, setup_id: Option<i64>) -> Option<f64> {
@@ -166,7 +177,13 @@ impl FleetTally {
                     }
                 }
             }
-            _ => self.skipped += 1,
+            _ => {
+                self.skipped += 1;
+                let stage_known = setup_id.and_then(|id| self.stages.get(&id)).is_some_and(Option::is_some);
+                if r.c_deviation_ppm.is_none() && r.hold_ticks.is_some() && !stage_known {
+                    self.without_stage += 1;
+                }
+            }
         }
     }
 
@@ -191,6 +208,7 @@ impl FleetTally {
             units,
             records_used: self.used,
             records_skipped: self.skipped,
+            skipped_without_stage: self.without_stage,
             rate_percentiles,
         }
     }
@@ -277,8 +295,20 @@ pub fn render_text(r: &FleetReport, max_rows: usize) -> String {
         time::date_of(r.now_ms),
         r.limit_ratio
     );
-    if r.records_skipped > 0 {
-        let _ = writeln!(o, "  {} records without a hold or deviation were skipped", r.records_skipped);
+    if r.skipped_without_stage > 0 {
+        let _ = writeln!(
+            o,
+            "  {} records carry no capacitance deviation and no stage file is stored for them to compute one: \
+             store their setup with --stage when listening or ingesting",
+            r.skipped_without_stage
+        );
+    }
+    if r.records_skipped > r.skipped_without_stage {
+        let _ = writeln!(
+            o,
+            "  {} records without a hold or deviation were skipped",
+            r.records_skipped - r.skipped_without_stage
+        );
     }
     if let Some((a, b, c)) = r.rate_percentiles {
         let _ = writeln!(o, "  capacitance change per year: p10 {a:+.2} %, median {b:+.2} %, p90 {c:+.2} %");

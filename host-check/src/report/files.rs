@@ -3,11 +3,17 @@
 //! `yield`, `aging` and `demo` commands all write through it, so a report
 //! folder looks the same whoever wrote it.
 
+use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
+use hold_firmware::drift::DriftState;
+use hold_firmware::record::Record;
+
+use crate::data::store::{Filter, Setup, Store, Stored};
 use crate::fmt::file_safe;
+use crate::report::aging::FleetTally;
 use crate::report::aging::{self, FleetReport, UnitTrend};
-use crate::report::yields::{self, YieldReport};
+use crate::report::yields::{self, Tally, YieldReport};
 use crate::Error;
 
 /// A folder of report files, and what was written into it.
@@ -112,9 +118,95 @@ pub fn needing_attention(f: &FleetReport) -> Vec<&UnitTrend> {
     v
 }
 
+/// Which reports a stored record belongs in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Role {
+    /// Fixture yield: every record except those measured against a field
+    /// setup ([`Setup::is_field`]: a window that passes any hold judges nothing).
+    pub yields: bool,
+    /// Fleet aging: records measured against a field setup, or reporting a
+    /// drift state past settling (a fixture measures a board once and
+    /// tracks no drift).
+    pub aging: bool,
+}
+
+/// The reports `r`, measured against `setup`, belongs in.
+#[must_use]
+pub fn role(r: &Record, setup: Option<&Setup>) -> Role {
+    let field_setup = setup.is_some_and(Setup::is_field);
+    Role { yields: !field_setup, aging: field_setup || r.drift != DriftState::Settling }
+}
+
+/// One pass over the store's records that `filter` selects, each with its
+/// station's name and its [`role`].
+///
+/// # Errors
+/// The store's errors.
+pub fn each_record(store: &Store, filter: &Filter, mut each: impl FnMut(&str, &Stored, Role)) -> Result<u64, Error> {
+    let setups = store.setups()?;
+    let stations = store.stations()?;
+    let unknown = String::from("?");
+    Ok(store.for_each(filter, |s| {
+        let role = role(&s.record, s.setup_id.and_then(|id| setups.get(&id)));
+        each(stations.get(&s.station_id).unwrap_or(&unknown), &s, role);
+    })?)
+}
+
+/// The whole report of a store into `dir`: the yield of the records that
+/// belong in it (with the `f64` re-check and `rejects.csv`), the aging of its
+/// field records, their text files and charts (the twelve units that need
+/// attention soonest), and `report.html` with the store's sources. The
+/// demo writes its report folder through this too.
+///
+/// # Errors
+/// The store's errors, or [`Error::Io`] naming a file.
+pub fn store_report(
+    store: &Store,
+    filter: &Filter,
+    dir: &Path,
+    limit_ratio: f64,
+    horizon_months: u32,
+) -> Result<(YieldReport, crate::report::aging::FleetReport, Vec<PathBuf>), Error> {
+    let mut out = ReportDir::create(dir)?;
+    let setups: HashMap<i64, Setup> = store.setups()?;
+    let rejects_path = out.path("rejects.csv");
+    let rej = std::fs::File::create(&rejects_path).map_err(|e| Error::io(&rejects_path, e))?;
+    let mut tally = Tally::new(&setups, true, Some(Box::new(std::io::BufWriter::new(rej))));
+    let mut fleet = FleetTally::new(&setups);
+    each_record(store, filter, |station, s, role| {
+        if role.aging {
+            fleet.add(station, s.measured_ms, &s.record, s.setup_id);
+        }
+        if role.yields {
+            tally.add(station, &s.batch, s.measured_ms, &s.record, s.setup_id);
+        }
+    })?;
+    let y = tally.finish().map_err(|e| Error::io(&rejects_path, e))?;
+    out.files.push(rejects_path);
+    let f = fleet.finish(limit_ratio, horizon_months);
+    let yc = out.yields(&y, 40)?;
+    let units: Vec<&UnitTrend> = needing_attention(&f).into_iter().take(12).collect();
+    let ac = out.aging(&f, 40, &units)?;
+    let html = crate::report::html::page(&y, &f, &store.sources()?, &yc, &ac);
+    out.put("report.html", &html)?;
+    Ok((y, f, out.files))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn roles_follow_the_setup_and_the_drift_state() {
+        let s = crate::report::yields::tests::example_setup();
+        let board = crate::report::yields::tests::judged(&s, 1, 739_617);
+        assert_eq!(role(&board, Some(&s)), Role { yields: true, aging: false });
+        let tracking = Record { drift: DriftState::Steady, ..board };
+        assert_eq!(role(&tracking, Some(&s)), Role { yields: true, aging: true });
+        let field = Setup { hold_min_ticks: 0, ..s };
+        assert_eq!(role(&board, Some(&field)), Role { yields: false, aging: true });
+        assert_eq!(role(&board, None), Role { yields: true, aging: false });
+    }
 
     #[test]
     fn files_land_in_the_folder_and_a_bad_folder_is_named() -> Result<(), Error> {

@@ -4,6 +4,7 @@
 use std::fmt::Write as _;
 
 use crate::data::codes::VERDICTS;
+use crate::data::store::Source;
 use crate::data::time;
 use crate::fmt::xml;
 use crate::fmt::{si, CAUTION, STORED_ENERGY};
@@ -40,10 +41,10 @@ table{border-collapse:collapse;margin:0.5em 0}td,th{padding:2px 10px;border-bott
 th{background:#f2f4f7}td.l,th.l{text-align:left}.note{background:#fff6e0;border-left:4px solid #d08020;padding:0.5em 1em}\
 pre{background:#f6f6f6;padding:0.6em}svg{max-width:100%;height:auto}";
 
-/// The page: the ledger (when given), the yield section with its charts and
+/// The page: the store's sources, the yield section with its charts and
 /// the fleet section with its charts.
 #[must_use]
-pub fn page(y: &YieldReport, f: &FleetReport, ledger: Option<&str>, yc: &YieldCharts, ac: &AgingCharts) -> String {
+pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldCharts, ac: &AgingCharts) -> String {
     let mut o = String::new();
     let _ = write!(
         o,
@@ -59,8 +60,15 @@ pub fn page(y: &YieldReport, f: &FleetReport, ledger: Option<&str>, yc: &YieldCh
             time::date_of(f.now_ms)
         );
     }
-    if let Some(l) = ledger {
-        let _ = write!(o, "<h2>Record accounting</h2><pre>{}</pre>", xml(l));
+    if !sources.is_empty() {
+        o.push_str(
+            "<h2>Sources</h2><table><tr><th>id</th><th class=l>kind</th><th>stored</th><th>repeated</th>\
+             <th>bad frames</th><th>bytes</th><th class=l>name</th></tr>",
+        );
+        for x in sources {
+            row(&mut o, &[r(x.id), l(&x.kind), r(x.records), r(x.duplicates), r(x.bad_frames), r(x.bytes), l(&x.name)]);
+        }
+        o.push_str("</table>");
     }
     yield_section(&mut o, y, yc);
     fleet_section(&mut o, f, ac);
@@ -181,7 +189,16 @@ mod tests {
         t.add("<script>", "B&1", 0, &judged(&s, 1, 100_000), Some(1));
         let y = t.finish()?;
         let f = FleetTally::new(&setups).finish(0.8, 12);
-        let p = page(&y, &f, Some("ledger <ok>"), &YieldCharts::default(), &AgingCharts::default());
+        let src = Source {
+            id: 1,
+            kind: "log".into(),
+            name: "ledger <ok>".into(),
+            records: 1,
+            duplicates: 0,
+            bad_frames: 0,
+            bytes: 9,
+        };
+        let p = page(&y, &f, &[src], &YieldCharts::default(), &AgingCharts::default());
         assert!(!p.contains("<script>") && p.contains("&lt;script&gt;") && p.contains("B&amp;1"));
         assert!(p.contains("ledger &lt;ok&gt;"));
         assert!(p.trim_end().ends_with("</html>") && p.contains("licensed practice"));

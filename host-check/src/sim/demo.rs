@@ -14,7 +14,9 @@
 //!    self-contained HTML page.
 //!
 //! Everything is seeded: the same seed gives the same boards, faults and
-//! fleet (arrival times of bay A's stream are the wall clock).
+//! fleet, and the same times: the run ends on [`RUN_END`], a fixed day
+//! before the demo is run, so a seed gives the same store and reports on
+//! any day.
 
 use std::fmt::Write as _;
 use std::io::Cursor;
@@ -33,9 +35,9 @@ use crate::data::store::{Filter, Setup, Store};
 use crate::data::{log, time};
 use crate::design::spread::{self, Dist};
 use crate::report::aging;
-use crate::report::aging::{FleetReport, FleetTally, UnitTrend};
-use crate::report::files::{needing_attention, ReportDir};
-use crate::report::yields::{Tally, YieldReport};
+use crate::report::aging::FleetReport;
+use crate::report::files::store_report;
+use crate::report::yields::YieldReport;
 use crate::sim::twin::{Fault, Twin};
 use crate::stage::file::{self as stagefile, StageFile};
 use crate::Error;
@@ -49,8 +51,27 @@ pub const METER_TOML: &str = include_str!("../../../examples/kestrel-meter.toml"
 pub const CLOCK_HZ: u32 = 1_000_000;
 /// Guard band of the fixture window, ppm.
 pub const GUARD_PPM: u32 = 20_000;
-/// First day of the fleet's measurements.
-pub const FLEET_START: &str = "2024-01-01T06:00:00Z";
+/// The simulated run's last day: the fleet's last measurement.
+pub const RUN_END: &str = "2026-11-30T06:00:00Z";
+
+/// Time of the demo's last field measurement, UTC ms: [`RUN_END`], a fixed
+/// day (so a seed gives the same store and reports on any day) that lies
+/// before the demo is run.
+#[must_use]
+pub fn run_end_ms() -> i64 {
+    time::parse_ms(RUN_END.as_bytes()).unwrap_or(0)
+}
+
+/// Time of the fleet's first measurement for `days` days of measuring, UTC
+/// ms: the fleet measures daily up to [`run_end_ms`].
+#[must_use]
+pub fn fleet_start_ms(days: u32) -> i64 {
+    run_end_ms() - i64::from(days.saturating_sub(1)) * 86_400_000
+}
+
+/// Time between two boards on a fixture bay, ms: bay A starts two days
+/// before the run's end, bay B one day before.
+const FIXTURE_PERIOD_MS: i64 = 14_000;
 
 /// Sizes of the scenario.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -221,7 +242,7 @@ fn fixture_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Record>, S
             let injected: Vec<Fault> = fault.map(|f| vec![f.0]).unwrap_or_default();
             let m = measure(&board, &injected, config, model, sc.seed ^ u64::from(i))?;
             Ok(Record {
-                seq: 0,
+                seq: i,
                 unit_id: 3_100_001 + i,
                 press_ticks: m.press_ticks,
                 on_ticks: m.on_ticks,
@@ -266,7 +287,7 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
     setup.hold_min_ticks = config.hold_min_ticks;
     setup.hold_max_ticks = config.hold_max_ticks;
     let (tlo, thi) = sf.spread.temp_mdeg_c.unwrap_or(rc_model::limits::TEMP_MDEG_C);
-    let start = time::parse_ms(FLEET_START.as_bytes()).ok_or_else(|| sim("the fleet start is not a time"))?;
+    let start = fleet_start_ms(sc.days);
     type UnitRun = Result<(Vec<Record>, Option<i64>), Error>;
     let units: Vec<UnitRun> = (0..sc.units)
         .into_par_iter()
@@ -385,7 +406,8 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
             station: "bay-A".into(),
             batch: format!("L3-{}", 2_648 + k),
             setup_id: Some(board_setup_id),
-            time: TimeRule::Arrival,
+            // The station numbers its tests: seq is the board's place in the run.
+            time: TimeRule::Sequence { start_ms: run_end_ms() - 2 * 86_400_000, period_ms: FIXTURE_PERIOD_MS },
         };
         let name = format!("bay-A serial, batch {}", labels.batch);
         let s = send(&mut store, &name, chunk, &labels, &mut rng, (97, 151))?;
@@ -405,7 +427,7 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
     ));
     let (fleet_recs, meter_setup) = fleet_records(sc, &mut ledger)?;
     let meter_setup_id = store.setup_id(&meter_setup)?;
-    let start = time::parse_ms(FLEET_START.as_bytes()).ok_or_else(|| sim("the fleet start is not a time"))?;
+    let start = fleet_start_ms(sc.days);
     for recs in &fleet_recs {
         let Some(first) = recs.first() else { continue };
         let labels = Labels {
@@ -422,31 +444,9 @@ pub fn run(sc: &Scenario, db: &Path, out_dir: &Path, mut say: impl FnMut(&str)) 
     }
 
     say("reporting …");
-    let setups = store.setups()?;
-    let stations = store.stations()?;
-    let rejects_path = out_dir.join("rejects.csv");
-    let rej = std::fs::File::create(&rejects_path).map_err(|e| Error::io(&rejects_path, e))?;
-    let mut tally = Tally::new(
-        &setups.iter().filter(|(&id, _)| id == board_setup_id).map(|(&k, v)| (k, v.clone())).collect(),
-        true,
-        Some(Box::new(std::io::BufWriter::new(rej))),
-    );
-    let mut fleet_tally = FleetTally::new(&setups);
-    let unknown = String::from("?");
-    store
-        .for_each(&Filter::default(), |s| {
-            let name = stations.get(&s.station_id).unwrap_or(&unknown);
-            if s.setup_id == Some(meter_setup_id) {
-                fleet_tally.add(name, s.measured_ms, &s.record, s.setup_id);
-            } else {
-                tally.add(name, &s.batch, s.measured_ms, &s.record, s.setup_id);
-            }
-        })
-        .map_err(sim)?;
-    let yields = tally.finish().map_err(|e| Error::io(&rejects_path, e))?;
-    files.push(rejects_path);
-    let fleet = fleet_tally.finish(0.8, 12);
-    files.extend(write_reports(out_dir, &yields, &fleet, Some(&ledger))?);
+    // The same report any store gets (`rchold report`); the demo's own ledger is printed.
+    let (yields, fleet, written) = store_report(&store, &Filter::default(), out_dir, 0.8, 12)?;
+    files.extend(written);
     Ok(Outcome { yields, fleet, ledger, files })
 }
 
@@ -461,7 +461,7 @@ fn bay_b_logs(
     ledger: &mut Ledger,
 ) -> Result<Vec<PathBuf>, Error> {
     let mut files = Vec::new();
-    let base = time::now_ms() - 8 * 3_600_000;
+    let base = run_end_ms() - 86_400_000;
     for (k, chunk) in bay_b.chunks(bay_b.len().div_ceil(2).max(1)).enumerate() {
         let (bytes, _) = framed(chunk, rng, 0, 0)?;
         let path = out_dir.join(format!("bay-B-L3-{}.csv", 2_648 + k));
@@ -470,7 +470,7 @@ fn bay_b_logs(
         let mut reader = crate::data::frames::FrameReader::new(Cursor::new(bytes));
         let mut i = 0i64;
         while let Some(r) = reader.next_record().map_err(sim)? {
-            log::write_line(&mut w, base + i * 14_000, "bay-B", &format!("L3-{}", 2_648 + k), &r)
+            log::write_line(&mut w, base + i * FIXTURE_PERIOD_MS, "bay-B", &format!("L3-{}", 2_648 + k), &r)
                 .map_err(|e| Error::io(&path, e))?;
             i += 1;
             ledger.bay_b_lines += 1;
@@ -519,26 +519,6 @@ pub fn ledger_text(l: &Ledger) -> String {
         ok(l.fleet_sent == l.fleet_stored + l.fleet_bad && l.fleet_bad == l.fleet_damaged)
     );
     o
-}
-
-/// Writes `yield.txt`, `aging.txt`, the SVGs and `report.html` into `dir`,
-/// with the charts of the twelve units that need attention soonest.
-///
-/// # Errors
-/// [`Error::Io`] naming the file.
-pub fn write_reports(
-    dir: &Path,
-    y: &YieldReport,
-    f: &FleetReport,
-    ledger: Option<&Ledger>,
-) -> Result<Vec<PathBuf>, Error> {
-    let mut out = ReportDir::create(dir)?;
-    let yc = out.yields(y, 40)?;
-    let units: Vec<&UnitTrend> = needing_attention(f).into_iter().take(12).collect();
-    let ac = out.aging(f, 40, &units)?;
-    let html = crate::report::html::page(y, f, ledger.map(ledger_text).as_deref(), &yc, &ac);
-    out.put("report.html", &html)?;
-    Ok(out.files)
 }
 
 #[cfg(test)]

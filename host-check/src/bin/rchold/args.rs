@@ -40,6 +40,15 @@ pub fn fraction(opt: &str, text: &str, lo: f64, hi: f64, accepted: &str) -> Resu
     }
 }
 
+/// An end-of-life loss of capacitance (`"-20%"` or `"20%"`) as the
+/// remaining ratio C/C₀ (0.8), above 0 % and below 100 % lost.
+pub fn end_of_life(opt: &str, text: &str) -> Result<f64, Error> {
+    let accepted = "a loss of 0 % … 100 % (\"-20%\")";
+    fraction(opt, text.trim_start_matches('-'), f64::MIN_POSITIVE, 1.0 - f64::EPSILON, accepted)
+        .map(|loss| 1.0 - loss)
+        .map_err(|_| bad(opt, text, "not a loss of capacitance", accepted))
+}
+
 /// A count or number inside `range`.
 pub fn within<T: PartialOrd + std::fmt::Display>(
     opt: &str,

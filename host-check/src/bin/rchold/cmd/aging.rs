@@ -5,10 +5,10 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use host_check::data::store::Store;
-use host_check::report::aging::{self, FleetTally, UnitTrend};
-use host_check::report::files::{needing_attention, ReportDir};
+use host_check::report::aging::{self, FleetTally, Status, UnitTrend};
+use host_check::report::files::{each_record, needing_attention, ReportDir};
 
-use crate::args::{bad, emit, emit_json, fraction, Select};
+use crate::args::{emit, emit_json, end_of_life, Select};
 
 /// Options of `rchold aging`.
 #[derive(clap::Args)]
@@ -36,24 +36,28 @@ pub struct Args {
     /// Rows in the text report.
     #[arg(long, default_value_t = 30)]
     rows: usize,
+    /// Exit with 1 (after the report) when any unit is beyond its limit (`beyond`), or
+    /// beyond it or at risk within --months (`at-risk`), for cron or CI to raise an alert.
+    #[arg(long, value_parser = ["beyond", "at-risk"])]
+    alert: Option<String>,
 }
 
 /// Prints the report.
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
-    let accepted = "a loss of 0 % … 100 % (\"-20%\")";
-    let loss = fraction("limit", a.limit.trim_start_matches('-'), f64::MIN_POSITIVE, 1.0 - f64::EPSILON, accepted)
-        .map_err(|_| bad("limit", &a.limit, "not a loss of capacitance", accepted))?;
+    let limit_ratio = end_of_life("limit", &a.limit)?;
     let mut filter = a.select.filter()?;
     filter.unit_id = a.unit;
     let store = Store::open_existing(&a.db)?;
     let setups = store.setups()?;
-    let stations = store.stations()?;
     let mut tally = FleetTally::new(&setups);
-    let unknown = String::from("?");
-    store.for_each(&filter, |s| {
-        tally.add(stations.get(&s.station_id).unwrap_or(&unknown), s.measured_ms, &s.record, s.setup_id);
+    // Without --station, a fixture's boards (measured once, no drift tracked) are left out.
+    let all = a.select.station.is_some();
+    each_record(&store, &filter, |station, s, role| {
+        if all || role.aging {
+            tally.add(station, s.measured_ms, &s.record, s.setup_id);
+        }
     })?;
-    let report = tally.finish(1.0 - loss, a.months);
+    let report = tally.finish(limit_ratio, a.months);
     if let Some(out) = &a.out {
         let units: Vec<&UnitTrend> =
             if a.unit.is_some() { report.units.iter().collect() } else { needing_attention(&report) };
@@ -63,6 +67,23 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         emit_json(&report)?;
     } else {
         emit(&aging::render_text(&report, a.rows))?;
+    }
+    let flagged = report
+        .units
+        .iter()
+        .filter(|u| match a.alert.as_deref() {
+            Some("beyond") => u.status == Status::BeyondLimit,
+            Some(_) => matches!(u.status, Status::BeyondLimit | Status::AtRisk),
+            None => false,
+        })
+        .count();
+    if flagged > 0 {
+        eprintln!(
+            "rchold: alert: {flagged} of {} units {}",
+            report.units.len(),
+            if a.alert.as_deref() == Some("beyond") { "beyond the limit" } else { "beyond the limit or at risk" }
+        );
+        return Ok(ExitCode::from(1));
     }
     Ok(ExitCode::SUCCESS)
 }

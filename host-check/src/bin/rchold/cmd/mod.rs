@@ -16,6 +16,7 @@ mod ingest;
 mod listen;
 mod pick;
 mod press;
+mod report;
 mod sources;
 mod spread;
 mod synth_log;
@@ -53,6 +54,8 @@ pub enum Command {
     Yield(yields::Args),
     /// Fleet aging: each unit's capacitance trend, rate per year and forecast end of life.
     Aging(aging::Args),
+    /// The whole report of a store into a folder: yield, aging, charts and the HTML page.
+    Report(report::Args),
     /// What the store holds: each stream and log with its counts.
     Sources(sources::Args),
     /// The whole data path on simulated boards and field units, end to end, with an HTML report.
@@ -77,6 +80,7 @@ pub fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::Ingest(a) => ingest::run(a),
         Command::Yield(a) => yields::run(a),
         Command::Aging(a) => aging::run(a),
+        Command::Report(a) => report::run(a),
         Command::Sources(a) => sources::run(a),
         Command::Demo(a) => demo::run(a),
         Command::SynthLog(a) => synth_log::run(a),

@@ -8,11 +8,11 @@ use std::process::ExitCode;
 
 use host_check::data::log;
 use host_check::data::store::{Filter, Store};
-use host_check::report::files::ReportDir;
+use host_check::report::files::{each_record, ReportDir};
 use host_check::report::yields::{self, Tally, YieldReport};
 use host_check::Error;
 
-use crate::args::{emit, emit_json, Select, SetupArgs};
+use crate::args::{emit, emit_json, fraction, Select, SetupArgs};
 
 /// Options of `rchold yield`.
 #[derive(clap::Args)]
@@ -39,6 +39,10 @@ pub struct Args {
     /// Rows per table in the text report.
     #[arg(long, default_value_t = 20)]
     rows: usize,
+    /// Exit with 1 (after the report) when the yield of all stations is below this ("98%"),
+    /// for cron or CI to raise an alert.
+    #[arg(long, value_name = "PERCENT")]
+    alert_below: Option<String>,
 }
 
 type RejectLog = Option<Box<dyn Write + Send>>;
@@ -48,12 +52,13 @@ fn from_store(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldR
     let (given, override_id) = a.setup.replacing()?;
     // A --stage given here replaces the stored setups (id 0 for all records).
     let setups = if override_id.is_some() { given } else { store.setups()? };
-    let stations = store.stations()?;
     let mut tally = Tally::new(&setups, !a.skip_recheck, reject_log);
-    let unknown = String::from("?");
-    store.for_each(filter, |s| {
-        let name = stations.get(&s.station_id).unwrap_or(&unknown);
-        tally.add(name, &s.batch, s.measured_ms, &s.record, override_id.or(s.setup_id));
+    // Without --station, records measured against a field setup are aging's only.
+    let all = a.select.station.is_some();
+    each_record(&store, filter, |station, s, role| {
+        if all || role.yields {
+            tally.add(station, &s.batch, s.measured_ms, &s.record, override_id.or(s.setup_id));
+        }
     })?;
     tally.finish().map_err(|e| Error::io("rejects.csv", e))
 }
@@ -73,6 +78,7 @@ fn from_logs(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldRe
 /// Prints the report; exit code 1 when the `f64` re-check disagrees with a verdict.
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let filter = a.select.filter()?;
+    let floor = a.alert_below.as_deref().map(|t| fraction("alert-below", t, 0.0, 1.0, "0 % to 100 %")).transpose()?;
     a.setup.setup()?;
     let mut dir = a.out.as_deref().map(ReportDir::create).transpose()?;
     let reject_log: RejectLog = match &dir {
@@ -93,5 +99,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         emit(&yields::render_text(&report, a.rows))?;
     }
     let disagree = report.recheck.as_ref().is_some_and(|r| r.disagreements_total > 0);
-    Ok(if disagree { ExitCode::from(1) } else { ExitCode::SUCCESS })
+    let low = floor.filter(|&f| report.all.total > 0 && (report.all.passed() as f64) < f * report.all.total as f64);
+    if let Some(f) = low {
+        eprintln!(
+            "rchold: alert: yield {:.2} % is below {:.2} % ({} of {} passed)",
+            100.0 * report.all.passed() as f64 / report.all.total as f64,
+            100.0 * f,
+            report.all.passed(),
+            report.all.total
+        );
+    }
+    Ok(if disagree || low.is_some() { ExitCode::from(1) } else { ExitCode::SUCCESS })
 }
