@@ -142,7 +142,7 @@ echo "field unit: the host's run sent the same bytes"
 boards aging-check "$GEN/aging-$M0.bin"
 rm -f "$GEN/aging.db" "$GEN/aging.db-wal" "$GEN/aging.db-shm"
 cargo run -q -p host-check --bin rchold -- listen "$GEN/aging-$M0.bin" --station emulated-field \
-    --stage examples/kestrel-meter.toml --clock 10k --seq-start 2024-01-01T06:00:00Z --seq-period 1d \
+    --stage examples/kestrel-meter.toml --clock 10k --field --seq-start 2024-01-01T06:00:00Z --seq-period 1d \
     --db "$GEN/aging.db" --quiet
 # The forecast from the first year alone, against the simulated truth (C/C0 = 0.80 on day 608.75).
 cargo run -q -p host-check --bin rchold -- aging --db "$GEN/aging.db" --to 2025-01-01 --json > "$GEN/aging.json"

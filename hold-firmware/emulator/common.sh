@@ -18,13 +18,13 @@ qemu() {
 
 # The inputs the firmware includes when built: the golden vectors (computed
 # on this host) and the field tester's settings blob (from the Kestrel-5
-# stage file, ticks of a 10 kHz clock).
+# stage file's field window, ticks of a 10 kHz clock).
 generate_inputs() {
     mkdir -p "$GEN"
     cargo run -q --release -p rc-model --example golden_vectors -- "$GEN/vectors.bin"
-    cargo run -q -p host-check --bin rchold -- window examples/kestrel-meter.toml --clock 10k \
+    cargo run -q -p host-check --bin rchold -- window examples/kestrel-meter.toml --clock 10k --field \
         --emit bin --out "$GEN/field-setup.bin"
-    # The fixture scenario: the Lumen-3 stage at 10 kHz, its boards drawn on the host.
+    # The fixture scenario: the Lumen-3 stage's fixture window at 10 kHz, its boards drawn on the host.
     cargo run -q -p host-check --bin rchold -- window examples/lumen-keypad.toml --clock 10k \
         --emit bin --out "$GEN/fixture-setup.bin"
     cargo run -q -p host-check --example emulator_boards -- write examples/lumen-keypad.toml 10000 \

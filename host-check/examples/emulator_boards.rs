@@ -49,7 +49,7 @@ use std::process::ExitCode;
 use hold_firmware::drift::DriftState;
 use hold_firmware::record;
 use host_check::design::spread::{draw, Dist};
-use host_check::stage::file as stagefile;
+use host_check::stage::file::{self as stagefile, Purpose};
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rc_model::{Diode, Stage};
@@ -107,7 +107,8 @@ fn write(stage: &Path, clock_hz: u32, out: &Path) -> Result<(), String> {
     for i in 0..HEALTHY {
         boards.push((
             i,
-            draw(&sf.stage, &sf.spread, Dist::Uniform, 0x1CE_B0A7D, u64::from(i)),
+            // New boards as the fixture sees them: its spread (no aging, the fixture's temperature).
+            draw(&sf.stage, &sf.spread_for(Purpose::Fixture), Dist::Uniform, 0x1CE_B0A7D, u64::from(i)),
             None,
             "within-window",
             "none",

@@ -23,7 +23,7 @@ fn eval_prints_timing_window_findings_and_caution() {
         "active for a 100.0 ms press ... 839.4 ms",
         "turn-on latency ............... 161.4 µs",
         "turn-on latency",
-        "window over 16 corners ........ 539.9 ms to 1.195 s",
+        "field window, 16 corners ...... 539.9 ms to 1.195 s",
         "shortest at r- c- rise- fall+",
         "longest at  r+ c+ rise- fall-",
         "findings",

@@ -335,3 +335,55 @@ fn async_engine_gives_the_same_verdicts() {
         }
     }
 }
+
+/// A new board whose capacitor is 36 % low: the field window (which allows for
+/// the end-of-life loss of 20 %) would pass it; the fixture window (new parts)
+/// fails it, and the measurement names the capacitor (about −36 %).
+#[test]
+fn a_new_board_with_c_36_percent_low_fails_the_fixture_window() {
+    use host_check::design::window::{default_poll_ns, settings};
+    use host_check::stage::file::{parse, Purpose};
+    // Our own example: a 12 V power-hold stage, 4.7 MΩ and 10 µF, on a 32.768 kHz tester.
+    let text = r#"
+[stage]
+r = "4.7M"
+c = "10u"
+vdd = "12"
+driver_ohms = "50"
+charge_ohms = "1k"
+series_ohms = "0"
+leak_ohms = "inf"
+diode = { drop = "0.6" }
+[input]
+family = "4000b-schmitt"
+[press]
+duration = "2"
+[tolerance]
+r = "1%"
+c = "10%"
+vdd = "5%"
+[environment]
+temp_min = "-20"
+temp_max = "70"
+[aging]
+kind = "end-of-life"
+loss = "20%"
+"#;
+    let sf = parse(std::path::Path::new("powerhold.toml"), text).unwrap_or_else(|e| panic!("{e}"));
+    let poll = default_poll_ns(&sf).unwrap_or_else(|e| panic!("{e}"));
+    let mut low = sf.stage;
+    low.c_ff = low.c_ff * 64 / 100;
+    let judge = |purpose| {
+        let s = settings(&sf, purpose, 32_768, 20_000, poll).unwrap_or_else(|e| panic!("{e}"));
+        let twin = Twin::new(&low, &[], 32_768, 7);
+        let (trig, out, delay, clock) = twin.handles();
+        Tester::new(trig, out, delay, clock, s.config, s.stage).measure().unwrap_or_else(|e| panic!("{e}"))
+    };
+    let field = judge(Purpose::Field);
+    assert_eq!(field.verdict, Verdict::WithinWindow, "the field window allows for the aged capacitor");
+    let fixture = judge(Purpose::Fixture);
+    assert_eq!(fixture.verdict, Verdict::Short, "{fixture:?}");
+    let dev = fixture.c_deviation_ppm.unwrap_or(0);
+    assert!((-400_000..=-320_000).contains(&dev), "the capacitor named at {dev} ppm: {fixture:?}");
+    assert_ne!(fixture.hint, Hint::None);
+}

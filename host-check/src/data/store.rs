@@ -564,6 +564,21 @@ impl Store {
         rows.collect::<Result<_, _>>().map_err(|e| self.err(e))
     }
 
+    /// Stations with a record that reports a drift state past settling:
+    /// stations of field units (a fixture measures a board once).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn drift_stations(&self) -> Result<std::collections::HashSet<i64>, StoreError> {
+        let settling = i64::from(codes::drift_code(hold_firmware::drift::DriftState::Settling));
+        let mut st = self
+            .conn
+            .prepare("SELECT DISTINCT station_id FROM measurement WHERE drift != ?1")
+            .map_err(|e| self.err(e))?;
+        let rows = st.query_map([settling], |r| r.get::<_, i64>(0)).map_err(|e| self.err(e))?;
+        rows.collect::<Result<_, _>>().map_err(|e| self.err(e))
+    }
+
     /// Measurements stored in all.
     ///
     /// # Errors

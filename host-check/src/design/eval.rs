@@ -8,7 +8,7 @@ use serde_json::json;
 
 use crate::fmt::{corner_text, secs, si, CAUTION, STORED_ENERGY};
 use crate::reference::StageF;
-use crate::stage::file::StageFile;
+use crate::stage::file::{Purpose, StageFile};
 
 /// A design warning: a stable code and a sentence with its numbers.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -24,8 +24,10 @@ pub struct Warning {
 pub struct EvalReport {
     /// The nominal evaluation, or why the stage does not work.
     pub nominal: Result<Evaluation, Error>,
-    /// The tolerance window, or the corner that fails.
+    /// The field window (every corner of the file), or the corner that fails.
     pub window: Option<Result<Window, rc_model::window::CornerFailure>>,
+    /// The fixture window (new parts at the fixture's temperature).
+    pub fixture_window: Option<Result<Window, rc_model::window::CornerFailure>>,
     /// Design warnings.
     pub warnings: Vec<Warning>,
 }
@@ -40,6 +42,11 @@ pub fn evaluate(sf: &StageFile) -> EvalReport {
     let nominal = Model::new(stage).and_then(|m| m.evaluate());
     let window = match &nominal {
         Ok(_) if sf.spread.active() != 0 => Some(sf.spread.window(stage)),
+        _ => None,
+    };
+    let fixture = sf.spread_for(Purpose::Fixture);
+    let fixture_window = match &nominal {
+        Ok(_) if fixture.active() != 0 => Some(fixture.window(stage)),
         _ => None,
     };
     let mut warnings = Vec::new();
@@ -125,7 +132,7 @@ pub fn evaluate(sf: &StageFile) -> EvalReport {
             message: format!("the capacitor stores {} at {}: {STORED_ENERGY}", si(energy, "J"), si(f.vdd, "V")),
         });
     }
-    EvalReport { nominal, window, warnings }
+    EvalReport { nominal, window, fixture_window, warnings }
 }
 
 /// The warning about the current the driver must give at the start of a
@@ -237,7 +244,7 @@ pub fn render_text(sf: &StageFile, r: &EvalReport) -> String {
             let _ = writeln!(out);
             line(
                 &mut out,
-                &format!("window over {} corners", w.corners),
+                &format!("field window, {} corners", w.corners),
                 &format!("{} to {}", si(secs(w.min), "s"), si(secs(w.max), "s")),
             );
             let _ = writeln!(out, "    shortest at {}", corner_text(w.min_corner));
@@ -248,6 +255,13 @@ pub fn render_text(sf: &StageFile, r: &EvalReport) -> String {
             let _ = writeln!(out, "  window: the corner {} fails: {}", corner_text(cf.corner), cf.error);
         }
         None => {}
+    }
+    if let Some(Ok(w)) = &r.fixture_window {
+        line(
+            &mut out,
+            &format!("fixture window, {} corners", w.corners),
+            &format!("{} to {} (new parts)", si(secs(w.min), "s"), si(secs(w.max), "s")),
+        );
     }
     if !r.warnings.is_empty() {
         let _ = writeln!(out);
@@ -296,6 +310,9 @@ pub fn render_json(sf: &StageFile, r: &EvalReport) -> serde_json::Value {
         }
         Some(Err(cf)) => v["window"] = json!({"error": cf.error.to_string(), "corner": corner_text(cf.corner)}),
         None => {}
+    }
+    if let Some(Ok(w)) = &r.fixture_window {
+        v["fixture_window"] = json!({"min_s": secs(w.min), "max_s": secs(w.max), "corners": w.corners});
     }
     v
 }

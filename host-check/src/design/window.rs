@@ -9,7 +9,7 @@ use rc_model::{Model, Prepared};
 use serde_json::json;
 
 use crate::fmt::si;
-use crate::stage::file::StageFile;
+use crate::stage::file::{Purpose, StageFile};
 use crate::Error;
 
 /// How to write the window.
@@ -25,20 +25,21 @@ pub enum Emit {
     Bin,
 }
 
-/// The firmware settings for a stage file: its window over every corner in
-/// the file (tolerances, temperature range, aging), widened by `guard_ppm`,
+/// The firmware settings for a stage file: its window for `purpose` (the
+/// fixture's: new parts at the fixture's temperature; the field's: every
+/// corner in the file, environment and aging included), widened by `guard_ppm`,
 /// one tick of quantisation and one poll of latency on each side; and the
 /// stage prepared for the firmware's hot path over the file's temperature range.
 ///
 /// # Errors
 /// The stage file's error when the stage or a corner cannot be evaluated or
 /// the window does not fit the clock.
-pub fn settings(sf: &StageFile, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Setup, Error> {
+pub fn settings(sf: &StageFile, purpose: Purpose, clock_hz: u32, guard_ppm: u32, poll_ns: u32) -> Result<Setup, Error> {
     let model = Model::new(&sf.stage).map_err(|e| sf.refusal(e))?;
-    let window = sf.window()?;
+    let window = sf.window_for(purpose)?;
     let config = Config::from_model(&model, &window, clock_hz, guard_ppm, poll_ns)
         .map_err(|e| Error::Input(format!("{}: {e}", sf.path.display())))?;
-    let stage = Prepared::prepare(&sf.stage, &sf.spread, clock_hz)
+    let stage = Prepared::prepare(&sf.stage, &sf.spread_for(purpose), clock_hz)
         .map_err(|e| Error::Input(format!("{}: preparing the stage for the firmware: {e}", sf.path.display())))?;
     Ok(Setup { config, stage })
 }
@@ -55,7 +56,7 @@ pub fn default_poll_ns(sf: &StageFile) -> Result<u32, Error> {
 
 /// The settings written as `emit` (text, Rust or JSON; the blob is `Config::to_blob`).
 #[must_use]
-pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
+pub fn render(setup: &Setup, purpose: Purpose, emit: Emit, name: &str) -> String {
     let c = &setup.config;
     let secs = |t: u64| t as f64 / f64::from(c.clock_hz);
     let stage = &setup.stage;
@@ -65,7 +66,13 @@ pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
     match emit {
         Emit::Text => {
             let mut o = String::new();
-            let _ = writeln!(o, "firmware window for {name} at {}", si(f64::from(c.clock_hz), "Hz"));
+            let _ = writeln!(
+                o,
+                "firmware {} window for {name} at {} ({})",
+                purpose.name(),
+                si(f64::from(c.clock_hz), "Hz"),
+                purpose.covers()
+            );
             let row = |o: &mut String, label: &str, t: u64| {
                 let _ = writeln!(o, "  {label:<22} {t:>14} ticks  ({})", si(secs(t), "s"));
             };
@@ -88,7 +95,7 @@ pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
             o
         }
         Emit::Rust => format!(
-            "/// Hold-stage test window for {name}, made by `rchold window`.\n\
+            "/// Hold-stage {} window for {name} ({}), made by `rchold window`.\n\
              pub const HOLD_WINDOW: hold_firmware::Config = hold_firmware::Config {{\n    \
              clock_hz: {},\n    settle_ticks: {},\n    press_ticks: {},\n    glitch_ticks: {},\n    poll_ns: {},\n    \
              on_timeout_ticks: {},\n    hold_min_ticks: {},\n    hold_max_ticks: {},\n    hold_timeout_ticks: {},\n    \
@@ -96,6 +103,8 @@ pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
              /// The same timings and the stage prepared for the hot path, as the settings blob:\n\
              /// `hold_firmware::Setup::from_blob(&HOLD_SETUP)` (CRC-checked, versioned).\n\
              pub const HOLD_SETUP: [u8; hold_firmware::BLOB_LEN] = [{}];\n",
+            purpose.name(),
+            purpose.covers(),
             c.clock_hz,
             c.settle_ticks,
             c.press_ticks,
@@ -111,6 +120,8 @@ pub fn render(setup: &Setup, emit: Emit, name: &str) -> String {
         Emit::Json | Emit::Bin => {
             let v = json!({
                 "stage": name,
+                "window": purpose,
+                "covers": purpose.covers(),
                 "clock_hz": c.clock_hz,
                 "settle_ticks": c.settle_ticks,
                 "press_ticks": c.press_ticks,
@@ -143,12 +154,13 @@ mod tests {
     fn the_window_holds_the_nominal_and_widens_with_the_guard() -> Result<(), Error> {
         let sf = crate::testing::example();
         let poll = default_poll_ns(&sf)?;
-        let tight = settings(&sf, 1_000_000, 0, poll)?.config;
-        let wide = settings(&sf, 1_000_000, 20_000, poll)?.config;
+        let tight = settings(&sf, Purpose::Fixture, 1_000_000, 0, poll)?.config;
+        let wide = settings(&sf, Purpose::Fixture, 1_000_000, 20_000, poll)?.config;
         // The example's nominal hold is 739.6 ms: 739,617 ticks at 1 MHz.
         assert!(tight.hold_min_ticks < 739_617 && 739_617 < tight.hold_max_ticks);
         assert!(wide.hold_min_ticks < tight.hold_min_ticks && wide.hold_max_ticks > tight.hold_max_ticks);
-        assert!(render(&settings(&sf, 1_000_000, 20_000, poll)?, Emit::Text, "t").contains("pass from"));
+        assert!(render(&settings(&sf, Purpose::Fixture, 1_000_000, 20_000, poll)?, Purpose::Fixture, Emit::Text, "t")
+            .contains("pass from"));
         Ok(())
     }
 }

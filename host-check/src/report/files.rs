@@ -6,9 +6,6 @@
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
-use hold_firmware::drift::DriftState;
-use hold_firmware::record::Record;
-
 use crate::data::store::{Filter, Setup, Store, Stored};
 use crate::fmt::file_safe;
 use crate::report::aging::FleetTally;
@@ -124,17 +121,19 @@ pub struct Role {
     /// Fixture yield: every record except those measured against a field
     /// setup ([`Setup::is_field`]: a window that passes any hold judges nothing).
     pub yields: bool,
-    /// Fleet aging: records measured against a field setup, or reporting a
-    /// drift state past settling (a fixture measures a board once and
-    /// tracks no drift).
+    /// Fleet aging: records measured against a field setup, or from a
+    /// station whose units report drift states past settling (a fixture
+    /// measures a board once and tracks no drift); a field unit's first,
+    /// settling records count too.
     pub aging: bool,
 }
 
-/// The reports `r`, measured against `setup`, belongs in.
+/// The reports a record belongs in: measured against `setup`, at a station
+/// whose units do (`drift_station`) or do not track drift.
 #[must_use]
-pub fn role(r: &Record, setup: Option<&Setup>) -> Role {
+pub fn role(setup: Option<&Setup>, drift_station: bool) -> Role {
     let field_setup = setup.is_some_and(Setup::is_field);
-    Role { yields: !field_setup, aging: field_setup || r.drift != DriftState::Settling }
+    Role { yields: !field_setup, aging: field_setup || drift_station }
 }
 
 /// One pass over the store's records that `filter` selects, each with its
@@ -145,9 +144,10 @@ pub fn role(r: &Record, setup: Option<&Setup>) -> Role {
 pub fn each_record(store: &Store, filter: &Filter, mut each: impl FnMut(&str, &Stored, Role)) -> Result<u64, Error> {
     let setups = store.setups()?;
     let stations = store.stations()?;
+    let drifting = store.drift_stations()?;
     let unknown = String::from("?");
     Ok(store.for_each(filter, |s| {
-        let role = role(&s.record, s.setup_id.and_then(|id| setups.get(&id)));
+        let role = role(s.setup_id.and_then(|id| setups.get(&id)), drifting.contains(&s.station_id));
         each(stations.get(&s.station_id).unwrap_or(&unknown), &s, role);
     })?)
 }
@@ -197,15 +197,13 @@ mod tests {
     use super::*;
 
     #[test]
-    fn roles_follow_the_setup_and_the_drift_state() {
+    fn roles_follow_the_setup_and_the_station() {
         let s = crate::report::yields::tests::example_setup();
-        let board = crate::report::yields::tests::judged(&s, 1, 739_617);
-        assert_eq!(role(&board, Some(&s)), Role { yields: true, aging: false });
-        let tracking = Record { drift: DriftState::Steady, ..board };
-        assert_eq!(role(&tracking, Some(&s)), Role { yields: true, aging: true });
+        assert_eq!(role(Some(&s), false), Role { yields: true, aging: false });
+        assert_eq!(role(Some(&s), true), Role { yields: true, aging: true });
         let field = Setup { hold_min_ticks: 0, ..s };
-        assert_eq!(role(&board, Some(&field)), Role { yields: false, aging: true });
-        assert_eq!(role(&board, None), Role { yields: true, aging: false });
+        assert_eq!(role(Some(&field), false), Role { yields: false, aging: true });
+        assert_eq!(role(None, false), Role { yields: true, aging: false });
     }
 
     #[test]

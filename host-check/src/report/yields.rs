@@ -25,7 +25,7 @@ use crate::fmt::si;
 use crate::reference::{self, StageF};
 use crate::report::chart::{self, Histogram, Ink, Mark};
 use crate::report::stats::{self, Moments};
-use crate::stage::file as stagefile;
+use crate::stage::file::{self as stagefile, Purpose, StageFile};
 use crate::Error;
 
 /// Bins of the hold histogram.
@@ -36,6 +36,9 @@ pub const BINS: usize = 60;
 pub struct RecheckWindow {
     /// Setup name.
     pub setup: String,
+    /// Which window of the stage file the stored one is (the fixture's when
+    /// it is neither).
+    pub purpose: Purpose,
     /// Shortest corner hold, s (reference).
     pub min_s: f64,
     /// Longest corner hold, s (reference).
@@ -57,34 +60,55 @@ struct Checker {
     clock_hz: f64,
 }
 
+/// The shortest and longest hold over every corner of `spread`, by the
+/// `f64` reference, s.
+fn corner_holds(sf: &StageFile, spread: &rc_model::window::Spread) -> Result<(f64, f64), String> {
+    let active = spread.active();
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    let mut high: u16 = 0;
+    loop {
+        let s = spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
+        let h = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?.hold;
+        lo = lo.min(h);
+        hi = hi.max(h);
+        if high == active {
+            break;
+        }
+        high = high.wrapping_sub(active) & active;
+    }
+    Ok((lo, hi))
+}
+
 impl Checker {
     /// Builds the `f64` window of a setup: the same corners (the spread's
     /// parameter extremes), each evaluated by the reference; widened by the
     /// guard, one poll and one tick on each side as `Config::from_window` does.
     fn new(setup: &Setup) -> Result<Checker, String> {
         let sf = stagefile::parse(Path::new(&setup.name), &setup.stage_toml).map_err(|e| e.to_string())?;
-        let active = sf.spread.active();
-        let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
-        let mut high: u16 = 0;
-        loop {
-            let s = sf.spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
-            let h = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?.hold;
-            lo = lo.min(h);
-            hi = hi.max(h);
-            if high == active {
+        let clock = f64::from(setup.clock_hz);
+        let poll = hold_firmware::poll_ticks(setup.poll_ns, setup.clock_hz);
+        // The stored window is the fixture's or the field's: recompute both, keep the one it is.
+        let mut best = None;
+        for purpose in [Purpose::Fixture, Purpose::Field] {
+            let (lo, hi) = corner_holds(&sf, &sf.spread_for(purpose))?;
+            let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
+            let (ref_min, ref_max) = hold_firmware::widen(min_t, max_t, setup.guard_ppm, poll);
+            // Rounding may move an edge by a tick; more than that is another window.
+            let matches = ref_min.abs_diff(setup.hold_min_ticks) <= 2 && ref_max.abs_diff(setup.hold_max_ticks) <= 2;
+            if matches || best.is_none() {
+                best = Some((purpose, lo, hi, ref_min, ref_max, !matches));
+            }
+            if matches {
                 break;
             }
-            high = high.wrapping_sub(active) & active;
         }
-        let clock = f64::from(setup.clock_hz);
-        let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
-        let poll = hold_firmware::poll_ticks(setup.poll_ns, setup.clock_hz);
-        let (ref_min, ref_max) = hold_firmware::widen(min_t, max_t, setup.guard_ppm, poll);
-        // Rounding may move an edge by a tick; more than that is a window set by hand.
-        let custom = ref_min.abs_diff(setup.hold_min_ticks) > 2 || ref_max.abs_diff(setup.hold_max_ticks) > 2;
+        let Some((purpose, lo, hi, ref_min, ref_max, custom)) = best else {
+            return Err("no window".into());
+        };
         Ok(Checker {
             window: RecheckWindow {
                 setup: setup.name.clone(),
+                purpose,
                 min_s: lo,
                 max_s: hi,
                 hold_min_ticks: ref_min,
@@ -838,8 +862,9 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             for w in &rc.windows {
                 let _ = writeln!(
                     o,
-                    "    {}: reference window {} … {} ticks, firmware window {} … {} ticks{}",
+                    "    {}: reference {} window {} … {} ticks, firmware window {} … {} ticks{}",
                     w.setup,
+                    w.purpose.name(),
                     w.hold_min_ticks,
                     w.hold_max_ticks,
                     w.stored_ticks.0,
@@ -902,8 +927,9 @@ pub(crate) mod tests {
     pub(crate) fn example_setup() -> Setup {
         let sf = crate::testing::example();
         let poll_ns = crate::design::window::default_poll_ns(&sf).unwrap_or(1_000);
-        let c =
-            crate::design::window::settings(&sf, 1_000_000, 20_000, poll_ns).unwrap_or_else(|e| panic!("{e}")).config;
+        let c = crate::design::window::settings(&sf, crate::stage::file::Purpose::Fixture, 1_000_000, 20_000, poll_ns)
+            .unwrap_or_else(|e| panic!("{e}"))
+            .config;
         Setup {
             name: "lumen-keypad.toml".into(),
             stage_toml: crate::sim::demo::BOARD_TOML.into(),

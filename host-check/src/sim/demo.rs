@@ -39,7 +39,7 @@ use crate::report::aging::FleetReport;
 use crate::report::files::store_report;
 use crate::report::yields::YieldReport;
 use crate::sim::twin::{Fault, Twin};
-use crate::stage::file::{self as stagefile, StageFile};
+use crate::stage::file::{self as stagefile, Purpose, StageFile};
 use crate::Error;
 
 /// The fixture's stage file (built in).
@@ -144,8 +144,14 @@ fn stage_file(name: &str, text: &str) -> Result<StageFile, Error> {
     Ok(stagefile::parse(Path::new(name), text)?)
 }
 
-fn setup_of(sf: &StageFile, name: &str, text: &str, poll_ns: u32) -> Result<(Setup, Config, Prepared), Error> {
-    let settings = crate::design::window::settings(sf, CLOCK_HZ, GUARD_PPM, poll_ns)?;
+fn setup_of(
+    sf: &StageFile,
+    purpose: Purpose,
+    name: &str,
+    text: &str,
+    poll_ns: u32,
+) -> Result<(Setup, Config, Prepared), Error> {
+    let settings = crate::design::window::settings(sf, purpose, CLOCK_HZ, GUARD_PPM, poll_ns)?;
     let (config, model) = (settings.config, settings.stage);
     Ok((
         Setup {
@@ -222,7 +228,7 @@ fn fixture_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Record>, S
     let sf = stage_file("lumen-keypad.toml", BOARD_TOML)?;
     let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(sim)?;
     let poll_ns = (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32;
-    let (setup, config, model) = setup_of(&sf, "lumen-keypad.toml", BOARD_TOML, poll_ns)?;
+    let (setup, config, model) = setup_of(&sf, Purpose::Fixture, "lumen-keypad.toml", BOARD_TOML, poll_ns)?;
     let plan = fault_plan();
     // About one board in 80 has a fault, spread through the run.
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(sc.seed ^ 0xF1);
@@ -279,7 +285,7 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
     let sf = stage_file("kestrel-meter.toml", METER_TOML)?;
     let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(sim)?;
     let poll_ns = (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32;
-    let (mut setup, mut config, model) = setup_of(&sf, "kestrel-meter.toml", METER_TOML, poll_ns)?;
+    let (mut setup, mut config, model) = setup_of(&sf, Purpose::Field, "kestrel-meter.toml", METER_TOML, poll_ns)?;
     // A field unit tracks drift, not a production window: it accepts any
     // hold up to its timeout and reports the deviation; its setup says so.
     config.hold_min_ticks = 0;

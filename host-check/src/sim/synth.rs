@@ -16,7 +16,7 @@ use crate::design::window;
 use crate::fmt::secs;
 use crate::report::stats::box_muller;
 use crate::sim::demo::{BOARD_TOML, CLOCK_HZ, GUARD_PPM};
-use crate::stage::file as stagefile;
+use crate::stage::file::{self as stagefile, Purpose};
 use crate::Error;
 
 /// Boards per batch.
@@ -35,7 +35,7 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
     let sf = stagefile::parse(Path::new("lumen-keypad.toml"), BOARD_TOML)?;
     let nominal = sf.nominal()?;
     let nominal_ticks = secs(nominal.hold) * f64::from(CLOCK_HZ);
-    let config = window::settings(&sf, CLOCK_HZ, GUARD_PPM, window::default_poll_ns(&sf)?)?.config;
+    let config = window::settings(&sf, Purpose::Fixture, CLOCK_HZ, GUARD_PPM, window::default_poll_ns(&sf)?)?.config;
     let io = |e| Error::io(out, e);
     let f = std::fs::File::create(out).map_err(io)?;
     let mut w = std::io::BufWriter::with_capacity(1 << 20, f);

@@ -76,6 +76,14 @@ struct Raw {
     tolerance: Option<RawTolerance>,
     environment: Option<RawEnvironment>,
     aging: Option<RawAging>,
+    fixture: Option<RawFixture>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawFixture {
+    temp_min: Sv,
+    temp_max: Sv,
 }
 
 #[derive(Deserialize)]
@@ -193,6 +201,41 @@ pub struct StageFile {
     /// An electrolytic's rated life: hours at a temperature in m°C (`[aging]`
     /// `rated_hours`, `rated_temp`), for aging horizons by the 10 °C rule.
     pub rated_life: Option<(u32, i32)>,
+    /// The fixture's own temperature range, m°C (`[fixture]`); none: the
+    /// stage's reference temperature.
+    pub fixture_temp_mdeg_c: Option<(i32, i32)>,
+}
+
+/// What a window is for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Purpose {
+    /// Judging a new board on the fixture: new parts (no aging) at the
+    /// fixture's temperature (`[fixture]`, else the reference temperature).
+    Fixture,
+    /// Judging a unit in the field: the product's environment
+    /// (`[environment]`) and the aging horizon (`[aging]`).
+    Field,
+}
+
+impl Purpose {
+    /// Its name in reports.
+    #[must_use]
+    pub const fn name(self) -> &'static str {
+        match self {
+            Purpose::Fixture => "fixture",
+            Purpose::Field => "field",
+        }
+    }
+
+    /// What it covers, in words.
+    #[must_use]
+    pub const fn covers(self) -> &'static str {
+        match self {
+            Purpose::Fixture => "new parts at the fixture's temperature",
+            Purpose::Field => "the environment's temperatures and the aging horizon",
+        }
+    }
 }
 
 struct Ctx<'a> {
@@ -321,7 +364,13 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         let line = offset.map(|o| cx.line_of(o));
         // "missing field `r`": name the key, say it is required and what is accepted.
         let field = msg.strip_prefix("missing field `").and_then(|m| m.strip_suffix('`'));
-        match field.and_then(|f| crate::stage::keys::missing(f, None)) {
+        // The error points at the table that lacks the key: "[fixture]" names it.
+        let table = offset
+            .and_then(|o| text.get(o..))
+            .and_then(|t| t.strip_prefix('['))
+            .and_then(|t| t.split(']').next())
+            .map(str::trim);
+        match field.and_then(|f| crate::stage::keys::missing(f, table)) {
             Some(k) => StageFileError {
                 file: path.to_path_buf(),
                 line,
@@ -392,6 +441,15 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
     if let Some(env) = &raw.environment {
         parse_environment(&mut cx, env, &mut spread)?;
     }
+    let fixture_temp_mdeg_c = match &raw.fixture {
+        Some(f) => {
+            let lo =
+                cx.si(&f.temp_min, "fixture.temp_min", &["°C", "C"], -55.0, 150.0, Quantity::Temperature.range())?;
+            let hi = cx.si(&f.temp_max, "fixture.temp_max", &["°C", "C"], lo, 150.0, "temp_min to +150 °C")?;
+            Some(((lo * 1e3).round() as i32, (hi * 1e3).round() as i32))
+        }
+        None => None,
+    };
     let (aging, rated_life) = match &raw.aging {
         Some(a) => parse_aging(&mut cx, a)?,
         None => (None, None),
@@ -406,6 +464,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         spread,
         origins: cx.origins,
         rated_life,
+        fixture_temp_mdeg_c,
     })
 }
 
@@ -672,7 +731,34 @@ impl StageFile {
         Model::new(&self.stage).and_then(|m| m.evaluate()).map_err(|e| self.refusal(e))
     }
 
-    /// The window over every corner of the file.
+    /// The spread a window for `purpose` covers: the fixture's has no aging
+    /// and the fixture's temperature range (none given: the reference
+    /// temperature only); the field's is the file's whole spread.
+    #[must_use]
+    pub fn spread_for(&self, purpose: Purpose) -> Spread {
+        match purpose {
+            Purpose::Field => self.spread,
+            Purpose::Fixture => Spread { aging: None, temp_mdeg_c: self.fixture_temp_mdeg_c, ..self.spread },
+        }
+    }
+
+    /// The window for `purpose` over its corners.
+    ///
+    /// # Errors
+    /// As [`StageFile::window`].
+    pub fn window_for(&self, purpose: Purpose) -> Result<Window, crate::Error> {
+        let spread = self.spread_for(purpose);
+        spread.window(&self.stage).map_err(|f| {
+            if f.corner.active == 0 {
+                self.refusal(f.error)
+            } else {
+                self.corner_refusal(&f)
+            }
+        })
+    }
+
+    /// The field window: over every corner of the file (tolerances,
+    /// environment, aging).
     ///
     /// # Errors
     /// As [`StageFile::refusal`] at the nominal stage, else

@@ -59,6 +59,8 @@ pub const KEYS: &[Key] = &[
     opt("environment.c_tempco", "ppm/°C", "-100000 to 100000"),
     opt("environment.drop_tempco", "V/°C", "-10 mV/°C to 10 mV/°C (default −2 mV/°C)"),
     opt("environment.threshold_tempco", "ppm/°C", "-100000 to 100000"),
+    req("fixture.temp_min", "°C", Quantity::Temperature.range()),
+    req("fixture.temp_max", "°C", "temp_min to +150 °C"),
     req("aging.kind", "law", "class2 or end-of-life"),
     opt("aging.loss_per_decade", "%", "class2: 0 % to 100 % per decade of hours"),
     opt("aging.ref_hours", "h", "class2: 1 h to 1 000 000 h (default 1000)"),

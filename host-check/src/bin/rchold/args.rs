@@ -11,7 +11,7 @@ use clap::Args;
 use host_check::data::store::{Filter, Setup, Store};
 use host_check::data::time;
 use host_check::design::window;
-use host_check::stage::file as stagefile;
+use host_check::stage::file::{self as stagefile, Purpose};
 use host_check::stage::values::{parse_tolerance, parse_value, Tol};
 use host_check::Error;
 use indicatif::{ProgressBar, ProgressStyle};
@@ -111,10 +111,12 @@ pub fn stage_name(sf: &stagefile::StageFile, path: &Path) -> String {
     sf.name.clone().unwrap_or_else(|| path.display().to_string())
 }
 
-/// The tester's clock, guard and poll options as firmware settings:
-/// `(setup, guard ppm, poll ns)`; the poll defaults to 1/1000 of the hold.
+/// The tester's clock, guard and poll options as firmware settings for
+/// `purpose`: `(setup, guard ppm, poll ns)`; the poll defaults to 1/1000 of
+/// the hold.
 pub fn tester(
     sf: &stagefile::StageFile,
+    purpose: Purpose,
     clock: &str,
     guard: &str,
     poll: Option<&str>,
@@ -125,7 +127,7 @@ pub fn tester(
         Some(p) => (value("poll", p, &["s"], 1e-6, 1.0, "1 µs to 1 s")? * 1e9).round() as u32,
         None => window::default_poll_ns(sf)?,
     };
-    Ok((window::settings(sf, clock_hz.round() as u32, guard_ppm, poll_ns)?, guard_ppm, poll_ns))
+    Ok((window::settings(sf, purpose, clock_hz.round() as u32, guard_ppm, poll_ns)?, guard_ppm, poll_ns))
 }
 
 /// The stage a station measures against (optional).
@@ -143,6 +145,10 @@ pub struct SetupArgs {
     /// The tester's poll period ("100us"); default: 1/1000 of the nominal hold.
     #[arg(long)]
     pub poll: Option<String>,
+    /// The stations are field units: judge with the field window (environment and aging)
+    /// instead of the fixture's (new parts at the fixture's temperature).
+    #[arg(long)]
+    pub field: bool,
 }
 
 impl SetupArgs {
@@ -151,7 +157,8 @@ impl SetupArgs {
         let Some(path) = &self.stage else { return Ok(None) };
         let text = std::fs::read_to_string(path).map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
         let sf = stagefile::parse(path, &text)?;
-        let (setup, guard_ppm, poll_ns) = tester(&sf, &self.clock, &self.guard, self.poll.as_deref())?;
+        let purpose = if self.field { Purpose::Field } else { Purpose::Fixture };
+        let (setup, guard_ppm, poll_ns) = tester(&sf, purpose, &self.clock, &self.guard, self.poll.as_deref())?;
         let c = setup.config;
         Ok(Some(Setup {
             name: path.file_name().map_or_else(|| path.display().to_string(), |n| n.to_string_lossy().into_owned()),

@@ -1,10 +1,12 @@
 //! `rchold window STAGE.toml --clock F`: the firmware's pass window and
-//! timings in ticks, as text, a Rust constant, JSON or the settings blob.
+//! timings in ticks, as text, a Rust constant, JSON or the settings blob;
+//! the fixture's window unless `--field`.
 
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use host_check::design::window::{render, Emit};
+use host_check::stage::file::Purpose;
 use host_check::Error;
 
 use crate::args::{emit, stage, stage_name, tester, write};
@@ -29,12 +31,17 @@ pub struct Args {
     /// Write to this file instead of standard output.
     #[arg(long)]
     out: Option<PathBuf>,
+    /// The field window (the environment's temperatures and the aging horizon) instead of the
+    /// fixture's (new parts at the fixture's temperature, `[fixture]` or the reference).
+    #[arg(long)]
+    field: bool,
 }
 
 /// Writes the window.
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let sf = stage(&a.stage)?;
-    let (setup, _, _) = tester(&sf, &a.clock, &a.guard, a.poll.as_deref())?;
+    let purpose = if a.field { Purpose::Field } else { Purpose::Fixture };
+    let (setup, _, _) = tester(&sf, purpose, &a.clock, &a.guard, a.poll.as_deref())?;
     let how = match a.emit.as_str() {
         "rust" => Emit::Rust,
         "json" => Emit::Json,
@@ -44,8 +51,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     match (how, &a.out) {
         (Emit::Bin, Some(out)) => write(out, setup.to_blob())?,
         (Emit::Bin, None) => return Err(Error::Input("--emit bin writes a binary blob: give --out FILE".into()).into()),
-        (_, Some(out)) => write(out, render(&setup, how, &stage_name(&sf, &a.stage)))?,
-        (_, None) => emit(&render(&setup, how, &stage_name(&sf, &a.stage)))?,
+        (_, Some(out)) => write(out, render(&setup, purpose, how, &stage_name(&sf, &a.stage)))?,
+        (_, None) => emit(&render(&setup, purpose, how, &stage_name(&sf, &a.stage)))?,
     }
     Ok(ExitCode::SUCCESS)
 }
