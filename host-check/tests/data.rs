@@ -221,3 +221,43 @@ fn the_readme_excerpt_is_the_demos_output() {
         assert!(text(&out.stderr).contains(why), "{all:?}: {}", text(&out.stderr));
     }
 }
+
+/// A tester that writes no hints: the f64 re-check confirms its verdicts (exit 0),
+/// reports the hints it would give instead, and leaves the same gross faults out of
+/// Cp/Cpk as for a tester that writes them.
+#[test]
+fn the_recheck_judges_verdicts_and_hints_apart() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "ours.csv", 3_000, 5);
+    let ours = std::fs::read_to_string(dir.path().join("ours.csv")).unwrap_or_default();
+    let mut lines = ours.lines();
+    let header = lines.next().unwrap_or_default();
+    // Blank every hint: the same log as another tester would write it.
+    let theirs: String = std::iter::once(header.to_owned())
+        .chain(lines.map(|l| {
+            let mut f: Vec<&str> = l.split(',').collect();
+            if let Some(h) = f.get_mut(11) {
+                *h = "none";
+            }
+            f.join(",")
+        }))
+        .map(|l| l + "\n")
+        .collect();
+    std::fs::write(dir.path().join("theirs.csv"), theirs).unwrap_or_else(|e| panic!("{e}"));
+    let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
+    let report = |file: &str| {
+        let out = rchold(dir.path(), &["yield", "--csv", file, "--stage", &stage, "--json"]);
+        (out.status.code(), serde_json::from_slice::<serde_json::Value>(&out.stdout).unwrap_or_default())
+    };
+    let (code_ours, v_ours) = report("ours.csv");
+    let (code_theirs, v_theirs) = report("theirs.csv");
+    assert_eq!(code_ours, Some(0));
+    assert_eq!(code_theirs, Some(0), "only hints differ: not an error");
+    assert_eq!(v_theirs["recheck"]["disagreements_total"], 0);
+    assert!(v_theirs["recheck"]["hints_differ"].as_u64().unwrap_or(0) > 0, "{}", v_theirs["recheck"]);
+    assert_eq!(v_ours["recheck"]["hints_differ"], 0);
+    // Cp/Cpk leave out the same gross faults, judged by the re-check's hint.
+    assert_eq!(v_theirs["all"]["gross"], v_ours["all"]["gross"]);
+    assert_eq!(v_theirs["all"]["cpk"], v_ours["all"]["cpk"]);
+    assert!(v_ours["all"]["gross"].as_u64().unwrap_or(0) > 0);
+}

@@ -121,6 +121,13 @@ impl Checker {
         })
     }
 
+    /// The capacitance deviation from nominal the reference infers from a
+    /// hold, ppm.
+    fn implied_c_ppm(&self, hold_ticks: u64) -> Option<f64> {
+        let c = reference::inverse_c(&self.stage, hold_ticks as f64 / self.clock_hz).ok()?;
+        Some((c / self.stage.c - 1.0) * 1e6)
+    }
+
     /// The verdict and hint the reference gives a hold, for the verdicts a
     /// hold alone decides (within window, short, long).
     fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
@@ -212,7 +219,9 @@ impl Group {
         ]
     }
 
-    fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>) {
+    /// Adds one record; `gross` says whether its cause is a gross fault
+    /// (wrong part, open capacitor or diode), which Cp/Cpk leaves out.
+    fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>, gross: bool) {
         self.total += 1;
         if let Some(c) = self.verdicts.get_mut(usize::from(codes::verdict_code(r.verdict))) {
             *c += 1;
@@ -221,7 +230,7 @@ impl Group {
         if !matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) {
             return;
         }
-        if matches!(r.hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode) {
+        if gross {
             self.gross += 1;
             return;
         }
@@ -322,6 +331,8 @@ pub struct Disagreement {
     pub firmware: (&'static str, &'static str),
     /// Reference verdict and hint.
     pub reference: (&'static str, &'static str),
+    /// Only the hint differs (the verdicts agree): reported, not an error.
+    pub hint_only: bool,
 }
 
 /// The re-check's summary.
@@ -337,10 +348,13 @@ pub struct Recheck {
     pub agreed: u64,
     /// Records without a setup or a hold-decided verdict (not re-checked).
     pub not_checkable: u64,
-    /// Disagreements (the first [`Tally::keep`]).
+    /// Disagreements (the first [`Tally::keep`]), verdicts and hints.
     pub disagreements: Vec<Disagreement>,
-    /// Disagreements in all.
+    /// Verdicts the reference disagrees with, in all (an error: exit 1).
     pub disagreements_total: u64,
+    /// Records whose verdict the reference confirms but whose hint it
+    /// would give otherwise (reported with the reference's hint; not an error).
+    pub hints_differ: u64,
 }
 
 /// Yield per batch or per day.
@@ -504,8 +518,18 @@ impl Tally {
                 w
             }
         };
+        // The re-check's own judgement, where there is a stage: its hint decides what is a
+        // gross fault, and its implied C fills in a record that carries none.
+        let checker = setup_id.and_then(|id| self.checkers.get(&id));
+        let decided = matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long);
+        let judged = match (checker, r.hold_ticks) {
+            (Some(c), Some(h)) if decided => Some((c.judge(h), c.implied_c_ppm(h))),
+            _ => None,
+        };
+        let hint = judged.map_or(r.hint, |((_, h), _)| h);
+        let gross = matches!(hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode);
         if let Some(g) = self.stations.get_mut(si) {
-            g.add(r, window);
+            g.add(r, window, gross);
         }
         let pass = u64::from(r.verdict.passes());
         let last = self.station_batch.get(si).copied().unwrap_or(usize::MAX);
@@ -553,7 +577,10 @@ impl Tally {
                     verdict: r.verdict.name(),
                     hint: r.hint.name(),
                     hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
-                    c_dev_pct: r.c_deviation_ppm.map(|d| f64::from(d) / 1e4),
+                    c_dev_pct: r
+                        .c_deviation_ppm
+                        .map(|d| f64::from(d) / 1e4)
+                        .or(judged.and_then(|(_, c)| c).map(|ppm| ppm / 1e4)),
                 });
             }
             if self.reject_error.is_none() {
@@ -565,25 +592,28 @@ impl Tally {
             }
         }
         if let Some(rc) = self.recheck.as_mut() {
-            let checker = setup_id.and_then(|id| self.checkers.get(&id));
-            match (checker, r.hold_ticks) {
-                (Some(c), Some(h)) if matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) => {
+            match (judged, r.hold_ticks) {
+                (Some(((v, hint), _)), Some(h)) => {
                     rc.checked += 1;
-                    let (v, hint) = c.judge(h);
-                    if v == r.verdict && hint == r.hint {
+                    let verdict_agrees = v == r.verdict;
+                    if verdict_agrees {
                         rc.agreed += 1;
                     } else {
                         rc.disagreements_total += 1;
-                        if rc.disagreements.len() < self.keep {
-                            rc.disagreements.push(Disagreement {
-                                station: station.to_owned(),
-                                unit: r.unit_id,
-                                seq: r.seq,
-                                hold_ticks: h,
-                                firmware: (r.verdict.name(), r.hint.name()),
-                                reference: (v.name(), hint.name()),
-                            });
-                        }
+                    }
+                    if verdict_agrees && hint != r.hint {
+                        rc.hints_differ += 1;
+                    }
+                    if (!verdict_agrees || hint != r.hint) && rc.disagreements.len() < self.keep {
+                        rc.disagreements.push(Disagreement {
+                            station: station.to_owned(),
+                            unit: r.unit_id,
+                            seq: r.seq,
+                            hold_ticks: h,
+                            firmware: (r.verdict.name(), r.hint.name()),
+                            reference: (v.name(), hint.name()),
+                            hint_only: verdict_agrees,
+                        });
                     }
                 }
                 _ => rc.not_checkable += 1,
@@ -629,6 +659,7 @@ impl Tally {
             a.agreed += b.agreed;
             a.not_checkable += b.not_checkable;
             a.disagreements_total += b.disagreements_total;
+            a.hints_differ += b.hints_differ;
             let room = self.keep.saturating_sub(a.disagreements.len());
             a.disagreements.extend(b.disagreements.into_iter().take(room));
         }
@@ -875,11 +906,26 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             for e in &rc.setup_errors {
                 let _ = writeln!(o, "    not re-checked: {e}");
             }
+            if rc.hints_differ > 0 {
+                let _ = writeln!(
+                    o,
+                    "    {} confirmed verdicts carry another hint than the reference gives (shown below; not an error)",
+                    rc.hints_differ
+                );
+            }
             for d in rc.disagreements.iter().take(max_rows) {
                 let _ = writeln!(
                     o,
-                    "    {} unit {} seq {} hold {} ticks: firmware {}/{}, reference {}/{}",
-                    d.station, d.unit, d.seq, d.hold_ticks, d.firmware.0, d.firmware.1, d.reference.0, d.reference.1
+                    "    {} unit {} seq {} hold {} ticks: firmware {}/{}, reference {}/{}{}",
+                    d.station,
+                    d.unit,
+                    d.seq,
+                    d.hold_ticks,
+                    d.firmware.0,
+                    d.firmware.1,
+                    d.reference.0,
+                    d.reference.1,
+                    if d.hint_only { " (hint only)" } else { "" }
                 );
             }
         }
