@@ -261,3 +261,46 @@ fn the_recheck_judges_verdicts_and_hints_apart() {
     assert_eq!(v_theirs["all"]["cpk"], v_ours["all"]["cpk"]);
     assert!(v_ours["all"]["gross"].as_u64().unwrap_or(0) > 0);
 }
+
+/// A log that leaves verdict and hint empty: rchold judges each hold against the
+/// stored window, and the yield equals the one of the same log with the tester's
+/// verdicts; without a stage the file is refused in one line and nothing is stored.
+#[test]
+fn rchold_judges_holds_a_log_leaves_unjudged() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "ours.csv", 2_000, 9);
+    let ours = std::fs::read_to_string(dir.path().join("ours.csv")).unwrap_or_default();
+    let mut lines = ours.lines();
+    let header = lines.next().unwrap_or_default().to_owned();
+    let blank: String = std::iter::once(header)
+        .chain(lines.map(|l| {
+            let mut f: Vec<&str> = l.split(',').collect();
+            for i in [10, 11] {
+                if let Some(x) = f.get_mut(i) {
+                    *x = "";
+                }
+            }
+            f.join(",")
+        }))
+        .map(|l| l + "\n")
+        .collect();
+    std::fs::write(dir.path().join("blank.csv"), blank).unwrap_or_else(|e| panic!("{e}"));
+    let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
+    let refused = rchold(dir.path(), &["ingest", "blank.csv", "--db", "b.db"]);
+    assert_eq!(refused.status.code(), Some(2));
+    let err = text(&refused.stderr);
+    assert!(err.contains("blank.csv:2:") && err.contains("accepted") && err.lines().count() == 1, "{err}");
+    for (file, db) in [("ours.csv", "o.db"), ("blank.csv", "b.db")] {
+        let out = rchold(dir.path(), &["ingest", file, "--stage", &stage, "--db", db]);
+        assert_eq!(out.status.code(), Some(0), "{file}: {}", text(&out.stderr));
+    }
+    let summary = |db: &str| {
+        let out = rchold(dir.path(), &["yield", "--db", db, "--json"]);
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_default();
+        (v["all"]["total"].clone(), v["all"]["verdicts"].clone(), v["all"]["cpk"].clone(), v["rejects_total"].clone())
+    };
+    assert_eq!(summary("o.db"), summary("b.db"));
+    let direct = rchold(dir.path(), &["yield", "--csv", "blank.csv", "--stage", &stage, "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&direct.stdout).unwrap_or_default();
+    assert_eq!(v["all"]["verdicts"], summary("o.db").1, "{}", text(&direct.stderr));
+}

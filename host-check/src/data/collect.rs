@@ -20,6 +20,7 @@ use crate::data::frames::{Counts, FrameReader};
 use crate::data::log::{self, LogError};
 use crate::data::store::{hex, Store, StoreError, Written};
 use crate::data::time;
+use crate::report::yields::{HoldJudge, NO_JUDGE};
 
 /// Records per commit while listening.
 pub const COMMIT_RECORDS: u64 = 4_096;
@@ -250,6 +251,15 @@ pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<I
     if let Some(source_id) = store.log_source(&digest)? {
         return Ok(Ingested::AlreadyStored { source_id });
     }
+    // Lines that leave verdict or hint empty are judged against the stored setup's window.
+    let setup = match setup_id {
+        Some(id) => store.setups()?.remove(&id),
+        None => None,
+    };
+    let judge = setup.as_ref().map(HoldJudge::new).transpose().map_err(|e| CollectError::Io {
+        what: path.display().to_string(),
+        error: std::io::Error::other(e.to_string()),
+    })?;
     let mut batch = store.batch()?;
     let name = path.display().to_string();
     let Some(source_id) = batch.begin_log(&name, &digest, time::now_ms(), bytes)? else {
@@ -262,6 +272,14 @@ pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<I
     let mut store_error = None;
     let mut last_station: Option<(String, i64)> = None;
     let lines = log::read(path, file, |_, l| {
+        let mut judged;
+        let l = if l.unjudged() {
+            judged = l.clone();
+            judge.as_ref().ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut judged)?;
+            &judged
+        } else {
+            l
+        };
         let station = match &last_station {
             Some((name, id)) if name == l.station => *id,
             _ => {

@@ -15,8 +15,8 @@
 //! | `on_ticks` | turn-on latency; empty if it never turned on | 0 … 2^63 − 1 or empty |
 //! | `hold_ticks` | hold; empty if none was measured | 0 … 2^63 − 1 or empty; required for `within-window`, `short`, `long` |
 //! | `temp_c` | temperature at the stage, °C | −55 … 150 or empty |
-//! | `verdict` | the tester's verdict | `within-window`, `short`, `long`, `no-response`, `stuck-active`, `not-idle`, `chatter` |
-//! | `hint` | cause hint | `none`, `wrong-part`, `aged-or-wrong-tolerance`, `near-the-edge`, `open-capacitor`, `no-charge-path`, `open-resistor-or-shorted-node`, `noisy-output` |
+//! | `verdict` | the tester's verdict | `within-window`, `short`, `long`, `no-response`, `stuck-active`, `not-idle`, `chatter`, or empty: rchold judges the hold against the stored window (`--stage`) |
+//! | `hint` | cause hint | `none`, `wrong-part`, `aged-or-wrong-tolerance`, `near-the-edge`, `open-capacitor`, `no-charge-path`, `open-resistor-or-shorted-node`, `noisy-output`, or empty (rchold's own, with `--stage`) |
 //! | `drift` | drift state | `settling`, `steady`, `drifting`, `beyond-limit` |
 //! | `c_dev_ppm` | capacitance deviation from nominal, ppm | −1 000 000 … 2 147 483 647 or empty |
 //!
@@ -89,8 +89,22 @@ pub struct Line<'a> {
     pub station: &'a str,
     /// Batch label.
     pub batch: &'a str,
-    /// The measurement.
+    /// The measurement. Where the line left the verdict or the hint empty,
+    /// they stand as within-window and none until [`Line::unjudged`] is
+    /// settled by judging the hold against a stored window.
     pub record: Record,
+    /// The line left the verdict empty: rchold is to judge the hold.
+    pub verdict_empty: bool,
+    /// The line left the hint empty.
+    pub hint_empty: bool,
+}
+
+impl Line<'_> {
+    /// Whether the line leaves its verdict or hint to rchold.
+    #[must_use]
+    pub const fn unjudged(&self) -> bool {
+        self.verdict_empty || self.hint_empty
+    }
 }
 
 fn text(b: &[u8]) -> String {
@@ -240,11 +254,24 @@ pub fn parse_fields_cached<'a>(
         }
         Ok(m as i32)
     })?;
-    let verdict = codes::verdict_named(verdict).ok_or_else(|| {
-        ("verdict", format!("{} is not a verdict (accepted: {})", text(verdict), codes::verdict_names()))
-    })?;
-    let hint = codes::hint_named(hint)
-        .ok_or_else(|| ("hint", format!("{} is not a hint (accepted: {})", text(hint), codes::hint_names())))?;
+    let (verdict_empty, hint_empty) = (verdict.is_empty(), hint.is_empty());
+    if verdict_empty && hold_ticks.is_none() {
+        return Err(("hold_ticks", "is empty, and so is verdict (accepted: a hold for rchold to judge)".into()));
+    }
+    let verdict = if verdict_empty {
+        Verdict::WithinWindow
+    } else {
+        codes::verdict_named(verdict).ok_or_else(|| {
+            ("verdict", format!("{} is not a verdict (accepted: {}, or empty)", text(verdict), codes::verdict_names()))
+        })?
+    };
+    let hint = if hint_empty {
+        hold_firmware::Hint::None
+    } else {
+        codes::hint_named(hint).ok_or_else(|| {
+            ("hint", format!("{} is not a hint (accepted: {}, or empty)", text(hint), codes::hint_names()))
+        })?
+    };
     let drift = codes::drift_named(drift).ok_or_else(|| {
         ("drift", format!("{} is not a drift state (accepted: {})", text(drift), codes::drift_names()))
     })?;
@@ -279,6 +306,8 @@ pub fn parse_fields_cached<'a>(
             drift,
             c_deviation_ppm,
         },
+        verdict_empty,
+        hint_empty,
     })
 }
 

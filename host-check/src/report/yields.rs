@@ -148,6 +148,59 @@ impl Checker {
     }
 }
 
+/// Judges holds that a log left unjudged, against a stored setup: the
+/// verdict by the stored window (the one the station used), the hint as
+/// the `f64` re-check gives it.
+pub struct HoldJudge {
+    checker: Checker,
+    window: (u64, u64),
+    clock_hz: u32,
+}
+
+impl HoldJudge {
+    /// The judge of a setup.
+    ///
+    /// # Errors
+    /// [`Error::Input`] when the setup's stage file cannot be evaluated.
+    pub fn new(setup: &Setup) -> Result<HoldJudge, Error> {
+        let checker = Checker::new(setup).map_err(|e| Error::Input(format!("{}: {e}", setup.name)))?;
+        Ok(HoldJudge { checker, window: (setup.hold_min_ticks, setup.hold_max_ticks), clock_hz: setup.clock_hz })
+    }
+
+    /// Fills in a line's empty verdict and hint.
+    ///
+    /// # Errors
+    /// A message for a line the setup cannot judge (no hold, another clock).
+    pub fn settle(&self, line: &mut log::Line<'_>) -> Result<(), String> {
+        if !line.unjudged() {
+            return Ok(());
+        }
+        let r = &mut line.record;
+        if r.clock_hz != self.clock_hz {
+            return Err(format!(
+                "clock_hz {} differs from the stored setup's {} Hz: the hold cannot be judged against it",
+                r.clock_hz, self.clock_hz
+            ));
+        }
+        let Some(hold) = r.hold_ticks else {
+            return Err("hold_ticks is empty: there is no hold to judge".into());
+        };
+        if line.verdict_empty {
+            r.verdict = Verdict::of_hold(hold, self.window.0, self.window.1);
+        }
+        if line.hint_empty {
+            r.hint = if r.verdict.passes() { Hint::None } else { self.checker.judge(hold).1 };
+        }
+        line.verdict_empty = false;
+        line.hint_empty = false;
+        Ok(())
+    }
+}
+
+/// The message for an unjudged line when no setup is stored.
+pub const NO_JUDGE: &str =
+    "verdict or hint is empty and no stage is given to judge the hold against (accepted: a verdict and a hint, or --stage)";
+
 /// Figures of one station (or of all).
 #[derive(Debug, Clone, Serialize)]
 pub struct Group {
@@ -754,6 +807,9 @@ pub fn tally_logs(
 ) -> Result<YieldReport, Error> {
     let mut total = Tally::new(setups, recheck, reject_log);
     let buffer = matches!(total.reject_log, RejectLog::Writer(_));
+    // Lines that leave verdict or hint empty are judged against the given stage's window.
+    let judge = setup_id.and_then(|id| setups.get(&id)).map(HoldJudge::new).transpose()?;
+    let judge = judge.as_ref();
     for path in paths {
         let pieces = log::split(path, threads)?;
         let results: Vec<Result<Tally, (u64, log::RangeError)>> = std::thread::scope(|scope| {
@@ -767,6 +823,10 @@ pub fn tally_logs(
                         }
                         log::read_range(path, a, b, |_, l| {
                             if keep(l) {
+                                let mut l = l.clone();
+                                if l.unjudged() {
+                                    judge.ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut l)?;
+                                }
                                 t.add(l.station, l.batch, l.measured_ms, &l.record, setup_id);
                             }
                             Ok(())
