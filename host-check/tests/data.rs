@@ -6,7 +6,7 @@ use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-use crate::util::{count, rchold, rename_stations, synth, text};
+use crate::util::{count, rchold, rename_stations, set_fields, synth, text};
 
 #[test]
 fn a_bad_log_is_refused_in_one_line_and_stores_nothing() {
@@ -229,21 +229,8 @@ fn the_readme_excerpt_is_the_demos_output() {
 fn the_recheck_judges_verdicts_and_hints_apart() {
     let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     synth(dir.path(), "ours.csv", 3_000, 5);
-    let ours = std::fs::read_to_string(dir.path().join("ours.csv")).unwrap_or_default();
-    let mut lines = ours.lines();
-    let header = lines.next().unwrap_or_default();
-    // Blank every hint: the same log as another tester would write it.
-    let theirs: String = std::iter::once(header.to_owned())
-        .chain(lines.map(|l| {
-            let mut f: Vec<&str> = l.split(',').collect();
-            if let Some(h) = f.get_mut(11) {
-                *h = "none";
-            }
-            f.join(",")
-        }))
-        .map(|l| l + "\n")
-        .collect();
-    std::fs::write(dir.path().join("theirs.csv"), theirs).unwrap_or_else(|e| panic!("{e}"));
+    // Every hint "none": the same log as another tester would write it.
+    set_fields(dir.path(), "ours.csv", "theirs.csv", &[(11, "none")]);
     let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
     let report = |file: &str| {
         let out = rchold(dir.path(), &["yield", "--csv", file, "--stage", &stage, "--json"]);
@@ -269,22 +256,7 @@ fn the_recheck_judges_verdicts_and_hints_apart() {
 fn rchold_judges_holds_a_log_leaves_unjudged() {
     let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     synth(dir.path(), "ours.csv", 2_000, 9);
-    let ours = std::fs::read_to_string(dir.path().join("ours.csv")).unwrap_or_default();
-    let mut lines = ours.lines();
-    let header = lines.next().unwrap_or_default().to_owned();
-    let blank: String = std::iter::once(header)
-        .chain(lines.map(|l| {
-            let mut f: Vec<&str> = l.split(',').collect();
-            for i in [10, 11] {
-                if let Some(x) = f.get_mut(i) {
-                    *x = "";
-                }
-            }
-            f.join(",")
-        }))
-        .map(|l| l + "\n")
-        .collect();
-    std::fs::write(dir.path().join("blank.csv"), blank).unwrap_or_else(|e| panic!("{e}"));
+    set_fields(dir.path(), "ours.csv", "blank.csv", &[(10, ""), (11, "")]);
     let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
     let refused = rchold(dir.path(), &["ingest", "blank.csv", "--db", "b.db"]);
     assert_eq!(refused.status.code(), Some(2));

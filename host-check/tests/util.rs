@@ -62,3 +62,24 @@ pub fn rename_stations(dir: &Path, name: &str, prefix: &str) {
     let t = std::fs::read_to_string(dir.join(name)).unwrap_or_default().replace(",line-", &format!(",{prefix}"));
     std::fs::write(dir.join(name), t).unwrap_or_else(|e| panic!("{e}"));
 }
+
+/// Copies the log `from` to `to` in `dir` with the given fields of every data
+/// line replaced: `(index, value)`, 0-based as in the log's header.
+pub fn set_fields(dir: &Path, from: &str, to: &str, fields: &[(usize, &str)]) {
+    let text = std::fs::read_to_string(dir.join(from)).unwrap_or_default();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap_or_default().to_owned();
+    let out: String = std::iter::once(header)
+        .chain(lines.map(|l| {
+            let mut f: Vec<&str> = l.split(',').collect();
+            for &(i, v) in fields {
+                if let Some(x) = f.get_mut(i) {
+                    *x = v;
+                }
+            }
+            f.join(",")
+        }))
+        .map(|l| l + "\n")
+        .collect();
+    std::fs::write(dir.join(to), out).unwrap_or_else(|e| panic!("{e}"));
+}
