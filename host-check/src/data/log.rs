@@ -5,7 +5,7 @@
 //!
 //! | field | meaning | accepted |
 //! |---|---|---|
-//! | `measured_at` | when, UTC | `YYYY-MM-DDTHH:MM:SS[.fff]Z`, 1970 … 9999 |
+//! | `measured_at` | when | `YYYY-MM-DDTHH:MM:SS[.fff]Z`, or with an offset `±HH:MM` (stored as UTC), 1970 … 9999 |
 //! | `station` | fixture or fleet name | 1 … 64 bytes of UTF-8, no control characters |
 //! | `batch` | production batch or fleet group | 0 … 64 bytes, as `station` |
 //! | `unit` | board or unit serial | 0 … 4 294 967 295 |

@@ -7,7 +7,7 @@ use ::time::macros::format_description;
 use ::time::{Date, OffsetDateTime, PrimitiveDateTime, Time, UtcOffset};
 
 /// Accepted form, for error messages.
-pub const FORM: &str = "YYYY-MM-DDTHH:MM:SS[.fff]Z, years 1970 … 9999";
+pub const FORM: &str = "YYYY-MM-DDTHH:MM:SS[.fff] with Z or an offset ±HH:MM, years 1970 … 9999";
 
 const MS_PER_DAY: i64 = 86_400_000;
 
@@ -30,9 +30,31 @@ pub struct DayCache {
 /// As [`parse_ms`], reusing the date from `cache` when it is the same.
 #[must_use]
 pub fn parse_ms_cached(s: &[u8], cache: &mut DayCache) -> Option<i64> {
-    if s.len() < 20 || s.last() != Some(&b'Z') || !matches!(s.get(10), Some(b'T' | b' ')) {
+    if s.len() < 20 || !matches!(s.get(10), Some(b'T' | b' ')) {
         return None;
     }
+    // The zone: "Z", or an offset "+01:00" / "-05:30" from UTC (stored as UTC).
+    let (end, offset_ms) = if s.last() == Some(&b'Z') {
+        (s.len() - 1, 0)
+    } else {
+        let z = s.get(s.len().checked_sub(6)?..)?;
+        let sign = match z.first() {
+            Some(b'+') => 1,
+            Some(b'-') => -1,
+            _ => return None,
+        };
+        let two = |a: usize| {
+            z.get(a..a + 2).filter(|d| d.iter().all(u8::is_ascii_digit)).map(|d| {
+                i64::from(d.first().copied().unwrap_or(b'0') - b'0') * 10
+                    + i64::from(d.get(1).copied().unwrap_or(b'0') - b'0')
+            })
+        };
+        let (h, m) = (two(1)?, two(4)?);
+        if z.get(3) != Some(&b':') || h > 23 || m > 59 {
+            return None;
+        }
+        (s.len() - 6, sign * (h * 60 + m) * 60_000)
+    };
     let date = s.get(..10)?;
     let day_ms = if cache.valid && cache.key == date {
         cache.day_ms
@@ -47,7 +69,7 @@ pub fn parse_ms_cached(s: &[u8], cache: &mut DayCache) -> Option<i64> {
         cache.valid = true;
         day_ms
     };
-    let clock = std::str::from_utf8(s.get(11..s.len() - 1)?).ok()?;
+    let clock = std::str::from_utf8(s.get(11..end)?).ok()?;
     let t = if clock.len() == 8 {
         Time::parse(clock, format_description!("[hour]:[minute]:[second]"))
     } else {
@@ -55,7 +77,8 @@ pub fn parse_ms_cached(s: &[u8], cache: &mut DayCache) -> Option<i64> {
     }
     .ok()?;
     let (h, m, sec, ns) = t.as_hms_nano();
-    Some(day_ms + ((i64::from(h) * 60 + i64::from(m)) * 60 + i64::from(sec)) * 1000 + i64::from(ns / 1_000_000))
+    let local = day_ms + ((i64::from(h) * 60 + i64::from(m)) * 60 + i64::from(sec)) * 1000 + i64::from(ns / 1_000_000);
+    Some(local - offset_ms)
 }
 
 fn at(ms: i64) -> Option<OffsetDateTime> {
@@ -135,6 +158,12 @@ mod tests {
         assert_eq!(parse_ms(b"2028-02-29T00:00:00Z").map(date_of).as_deref(), Some("2028-02-29"));
         assert_eq!(parse_date_or_time("2028-02-29"), parse_ms(b"2028-02-29T00:00:00Z"));
         assert_eq!(parse_rfc3339_ms("2000-01-01T01:00:00+01:00"), Some(946_684_800_000));
+        // Offsets are read and stored as UTC; a bad offset is refused.
+        assert_eq!(parse_ms(b"2000-01-01T01:00:00+01:00"), Some(946_684_800_000));
+        assert_eq!(parse_ms(b"1999-12-31T19:30:00.250-04:30"), Some(946_684_800_250));
+        for bad in ["2000-01-01T01:00:00+1:00", "2000-01-01T01:00:00+24:00", "2000-01-01T01:00:00*01:00"] {
+            assert_eq!(parse_ms(bad.as_bytes()), None, "{bad}");
+        }
         // The cache gives the same answers, and never accepts a bad date it has not seen.
         let mut c = DayCache::default();
         assert_eq!(parse_ms_cached(b"2000-01-01T00:00:01Z", &mut c), Some(946_684_801_000));
