@@ -276,3 +276,92 @@ fn rchold_judges_holds_a_log_leaves_unjudged() {
     let v: serde_json::Value = serde_json::from_slice(&direct.stdout).unwrap_or_default();
     assert_eq!(v["all"]["verdicts"], summary("o.db").1, "{}", text(&direct.stderr));
 }
+
+/// Another tester's log — its own columns in its own order, holds in ms, local
+/// times with an offset, its own verdict words, no hints — ingests through a
+/// mapping file and gives the same yield, Cpk and rejects as the same data in our
+/// schema; a mapping that names a missing column is refused in one line.
+#[test]
+fn a_foreign_log_ingests_through_a_mapping() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "ours.csv", 2_000, 13);
+    let ours = std::fs::read_to_string(dir.path().join("ours.csv")).unwrap_or_default();
+    let words = |v: &str| match v {
+        "within-window" => "PASS",
+        "short" => "LOW",
+        _ => "HIGH",
+    };
+    let local = time::format_description::parse_borrowed::<2>(
+        "[year]-[month]-[day] [hour]:[minute]:[second].[subsecond digits:3]",
+    )
+    .unwrap_or_default();
+    let mut foreign = String::from("Serial,Result,Hold [ms],Tester,Lot,Run,Timestamp,Temp,Press [ms],Latency [ms]\n");
+    for l in ours.lines().skip(1) {
+        let f: Vec<&str> = l.split(',').collect();
+        let g = |i: usize| f.get(i).copied().unwrap_or("");
+        let utc = time::OffsetDateTime::parse(g(0), &time::format_description::well_known::Rfc3339)
+            .unwrap_or_else(|e| panic!("{e}"));
+        let at = utc.to_offset(time::UtcOffset::from_hms(1, 0, 0).unwrap_or(time::UtcOffset::UTC)).format(&local);
+        let ms = |t: &str| t.parse::<f64>().map(|x| format!("{:.3}", x / 1000.0)).unwrap_or_default();
+        foreign.push_str(&format!(
+            "{},{},{},{},{},{},{},{},{},{}\n",
+            g(3),
+            words(g(10)),
+            ms(g(8)),
+            g(1),
+            g(2),
+            g(4),
+            at.unwrap_or_default(),
+            g(9),
+            ms(g(6)),
+            ms(g(7))
+        ));
+    }
+    std::fs::write(dir.path().join("foreign.csv"), foreign).unwrap_or_else(|e| panic!("{e}"));
+    let map = r#"
+[columns]
+measured_at = "Timestamp"
+station = "Tester"
+batch = "Lot"
+unit = "Serial"
+seq = "Run"
+hold = "Hold [ms]"
+press = "Press [ms]"
+on = "Latency [ms]"
+temp_c = "Temp"
+verdict = "Result"
+[units]
+clock = "1MHz"
+hold = "ms"
+press = "ms"
+on = "ms"
+[verdicts]
+PASS = "within-window"
+LOW = "short"
+HIGH = "long"
+[time]
+format = "[year]-[month]-[day] [hour]:[minute]:[second].[subsecond]"
+zone = "+01:00"
+"#;
+    std::fs::write(dir.path().join("map.toml"), map).unwrap_or_else(|e| panic!("{e}"));
+    let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
+    let ok = |args: &[&str]| {
+        let out = rchold(dir.path(), args);
+        assert_eq!(out.status.code(), Some(0), "{args:?}: {}", text(&out.stderr));
+        out
+    };
+    ok(&["ingest", "ours.csv", "--stage", &stage, "--db", "o.db"]);
+    ok(&["ingest", "foreign.csv", "--map", "map.toml", "--stage", &stage, "--db", "f.db"]);
+    let summary = |db: &str| {
+        let out = ok(&["yield", "--db", db, "--json"]);
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap_or_default();
+        (v["all"]["verdicts"].clone(), v["all"]["cpk"].clone(), v["rejects_total"].clone(), v["span_ms"].clone())
+    };
+    assert_eq!(summary("o.db"), summary("f.db"));
+    // A mapping naming a column the log does not have: one line, nothing stored.
+    std::fs::write(dir.path().join("bad.toml"), map.replace("\"Lot\"", "\"Batch\"")).unwrap_or_else(|e| panic!("{e}"));
+    let out = rchold(dir.path(), &["ingest", "foreign.csv", "--map", "bad.toml", "--stage", &stage, "--db", "x.db"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert!(err.contains("no column \"Batch\"") && err.lines().count() == 1, "{err}");
+}

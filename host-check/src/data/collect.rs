@@ -18,6 +18,7 @@ use sha2::{Digest as _, Sha256};
 
 use crate::data::frames::{Counts, FrameReader};
 use crate::data::log::{self, LogError};
+use crate::data::mapping::Mapping;
 use crate::data::store::{hex, Store, StoreError, Written};
 use crate::data::time;
 use crate::report::yields::{HoldJudge, NO_JUDGE};
@@ -247,6 +248,30 @@ pub fn file_digest(path: &Path) -> Result<(String, u64), CollectError> {
 /// # Errors
 /// The first bad line ([`CollectError::Log`]), read or store errors.
 pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<Ingested, CollectError> {
+    ingest_with(store, path, setup_id, None)
+}
+
+/// As [`ingest`], for another tester's log read through `mapping` (its
+/// lines leave the hint, and may leave the verdict, to be judged against
+/// the stored setup).
+///
+/// # Errors
+/// As [`ingest`].
+pub fn ingest_mapped(
+    store: &mut Store,
+    path: &Path,
+    setup_id: Option<i64>,
+    mapping: &Mapping,
+) -> Result<Ingested, CollectError> {
+    ingest_with(store, path, setup_id, Some(mapping))
+}
+
+fn ingest_with(
+    store: &mut Store,
+    path: &Path,
+    setup_id: Option<i64>,
+    mapping: Option<&Mapping>,
+) -> Result<Ingested, CollectError> {
     let (digest, bytes) = file_digest(path)?;
     if let Some(source_id) = store.log_source(&digest)? {
         return Ok(Ingested::AlreadyStored { source_id });
@@ -271,7 +296,7 @@ pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<I
     let file = std::fs::File::open(path).map_err(io_err(path))?;
     let mut store_error = None;
     let mut last_station: Option<(String, i64)> = None;
-    let lines = log::read(path, file, |_, l| {
+    let mut store_line = |_: u64, l: &log::Line<'_>| -> Result<(), String> {
         let mut judged;
         let l = if l.unjudged() {
             judged = l.clone();
@@ -297,7 +322,11 @@ pub fn ingest(store: &mut Store, path: &Path, setup_id: Option<i64>) -> Result<I
             store_error = Some(e);
             m
         })
-    });
+    };
+    let lines = match mapping {
+        Some(m) => m.read(path, &mut store_line),
+        None => log::read(path, file, &mut store_line),
+    };
     if let Some(e) = store_error {
         return Err(CollectError::Store(e));
     }

@@ -68,6 +68,14 @@ pub struct LogError {
     pub message: String,
 }
 
+impl LogError {
+    /// A problem at `line` of `file`, in `field` when one is at fault.
+    #[must_use]
+    pub fn at(file: &Path, line: u64, field: Option<&'static str>, message: String) -> LogError {
+        LogError { file: file.to_path_buf(), line, field, message }
+    }
+}
+
 impl fmt::Display for LogError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{}:{}: ", self.file.display(), self.line)?;
@@ -440,12 +448,7 @@ pub fn read<R: Read>(
     mut input: R,
     mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
 ) -> Result<u64, LogError> {
-    let at = |line: u64, field: Option<&'static str>, message: String| LogError {
-        file: file.to_path_buf(),
-        line,
-        field,
-        message,
-    };
+    let at = |line: u64, field: Option<&'static str>, message: String| LogError::at(file, line, field, message);
     let mut buf: Vec<u8> = Vec::with_capacity(BLOCK);
     let mut line_no = 0u64; // lines before the buffer's start
     let mut header_done = false;

@@ -6,5 +6,6 @@ pub mod codes;
 pub mod collect;
 pub mod frames;
 pub mod log;
+pub mod mapping;
 pub mod store;
 pub mod time;

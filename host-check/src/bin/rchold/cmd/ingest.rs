@@ -5,6 +5,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use host_check::data::collect::{self, Ingested};
+use host_check::data::mapping::Mapping;
 use host_check::data::store::Store;
 
 use crate::args::{bar, emit, SetupArgs};
@@ -20,17 +21,26 @@ pub struct Args {
     /// The measurement store (SQLite).
     #[arg(long, default_value = "rchold.db")]
     db: PathBuf,
+    /// Read another tester's CSV logs through this mapping file (TOML: columns, units,
+    /// verdict words, time format and zone; see the README).
+    #[arg(long, value_name = "FILE")]
+    map: Option<PathBuf>,
 }
 
 /// Stores each file and prints what it did; exit code 2 when any file was refused.
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
+    let mapping = a.map.as_deref().map(Mapping::load).transpose()?;
     let mut store = Store::open(&a.db)?;
     let setup_id = a.setup.id_in(&mut store)?;
     let progress = bar(a.files.len() as u64, "files");
     let mut failed = 0;
     for f in &a.files {
         progress.set_message(f.display().to_string());
-        let line = match collect::ingest(&mut store, f, setup_id) {
+        let result = match &mapping {
+            Some(m) => collect::ingest_mapped(&mut store, f, setup_id, m),
+            None => collect::ingest(&mut store, f, setup_id),
+        };
+        let line = match result {
             Ok(Ingested::Stored { written, lines }) => format!(
                 "{}: {lines} lines, {} stored, {} already stored (source {})\n",
                 f.display(),
