@@ -337,20 +337,64 @@ pub fn bars(b: &Bars<'_>) -> String {
     })
 }
 
+/// How a trend's time axis counts: in days for spans under 90 days (ticks
+/// on whole days), else in months (ticks on the first of a month).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum DateAxis {
+    Days,
+    Months,
+}
+
+const DAY_MS: i64 = 86_400_000;
+
+impl DateAxis {
+    fn for_span(span_ms: i64) -> DateAxis {
+        if span_ms < 90 * DAY_MS {
+            DateAxis::Days
+        } else {
+            DateAxis::Months
+        }
+    }
+
+    fn x(self, ms: i64) -> f64 {
+        match self {
+            DateAxis::Days => ms as f64 / DAY_MS as f64,
+            DateAxis::Months => months(ms),
+        }
+    }
+
+    fn label(self, x: f64) -> String {
+        match self {
+            DateAxis::Months => month_label(x),
+            DateAxis::Days if (x - x.round()).abs() < 1e-6 => time::date_of(x.round() as i64 * DAY_MS),
+            DateAxis::Days => {
+                let t = time::format_ms((x * DAY_MS as f64).round() as i64);
+                format!("{} {}", t.get(..10).unwrap_or(""), t.get(11..16).unwrap_or(""))
+            }
+        }
+    }
+}
+
 /// Values over time, the x axis in calendar dates (UTC).
 #[must_use]
 pub fn trend(t: &Trend<'_>) -> String {
     svg(|root| {
-        let xs = t.series.iter().flat_map(|s| s.points.iter().map(|p| months(p.0)));
-        let bx = t.bands.iter().flat_map(|b| [months(b.from_ms), months(b.to_ms)]);
-        let (x0, x1) = xs.chain(bx).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| (a.min(x), b.max(x)));
+        let all_ms = t
+            .series
+            .iter()
+            .flat_map(|s| s.points.iter().map(|p| p.0))
+            .chain(t.bands.iter().flat_map(|b| [b.from_ms, b.to_ms]));
+        let (first, last) = all_ms.fold((i64::MAX, i64::MIN), |(a, b), x| (a.min(x), b.max(x)));
+        let axis = DateAxis::for_span(last.saturating_sub(first));
+        let (x0, x1) = ok_range(axis.x(first), axis.x(last));
         let ys = t.series.iter().flat_map(|s| s.points.iter().map(|p| p.1)).chain(t.levels.iter().map(|m| m.at));
         let (y0, y1) =
             ys.filter(|y| y.is_finite()).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), y| (a.min(y), b.max(y)));
-        let (x0, x1) = ok_range(x0, x1);
         let (x0, x1) = (x0 - (x1 - x0) * 0.02, x1 + (x1 - x0) * 0.02);
         let (y0, y1) = ok_range(y0, y1);
         let pad = (y1 - y0) * 0.06;
+        // Enough decimals that neighbouring ticks differ.
+        let decimals = (-((y1 - y0) / 6.0).log10()).ceil().clamp(0.0, 6.0) as usize;
         let mut chart = ChartBuilder::on(root)
             .caption(t.title, (FONT, 14))
             .margin(12)
@@ -364,13 +408,13 @@ pub fn trend(t: &Trend<'_>) -> String {
             .y_labels(7)
             .x_desc("date (UTC)")
             .y_desc(t.y_desc)
-            .x_label_formatter(&|m| month_label(*m))
-            .y_label_formatter(&|v| format!("{v:.3}"))
+            .x_label_formatter(&|x| axis.label(*x))
+            .y_label_formatter(&|v| format!("{v:.decimals$}"))
             .draw()
             .map_err(err)?;
         for b in t.bands {
             let style = Ink::Warn.rgb().mix(0.18).filled();
-            let (a, z) = (months(b.from_ms), months(b.to_ms));
+            let (a, z) = (axis.x(b.from_ms), axis.x(b.to_ms));
             chart
                 .draw_series([Rectangle::new([(a, y0 - pad), (z, y1 + pad)], style)])
                 .map_err(err)?
@@ -379,7 +423,7 @@ pub fn trend(t: &Trend<'_>) -> String {
         }
         for s in t.series {
             let colour = s.ink.rgb();
-            let pts = s.points.iter().map(|&(ms, v)| (months(ms), v));
+            let pts = s.points.iter().map(|&(ms, v)| (axis.x(ms), v));
             let drawn = if s.dots {
                 chart.draw_series(pts.map(|p| Circle::new(p, 2, colour.filled()))).map_err(err)?
             } else {
@@ -545,6 +589,10 @@ mod tests {
         assert_eq!(month_label(months(start)), "2027-01");
         assert_eq!(month_start_ms(57 * 12), start);
         assert!(s.contains("95 % interval") && s.contains("end of life") && s.contains("date (UTC)"));
+        // A span of days is counted in days, on whole days.
+        assert_eq!(DateAxis::for_span(5 * DAY_MS), DateAxis::Days);
+        assert_eq!(DateAxis::Days.label(DateAxis::Days.x(start)), "2027-01-01");
+        assert_eq!(DateAxis::Days.label(DateAxis::Days.x(start + DAY_MS / 2)), "2027-01-01 12:00");
     }
 
     #[test]

@@ -21,11 +21,14 @@ pub struct ReportDir {
     pub files: Vec<PathBuf>,
 }
 
-/// The charts of a yield report: one hold histogram per station.
+/// The charts of a yield report: one hold histogram per station, and per
+/// station with three days or more its daily yield and EWMA chart.
 #[derive(Debug, Default)]
 pub struct YieldCharts {
     /// SVG per station with a window.
     pub holds: Vec<String>,
+    /// SVGs of the stations over time.
+    pub over_time: Vec<String>,
 }
 
 /// The charts of an aging report.
@@ -66,7 +69,8 @@ impl ReportDir {
         Ok(())
     }
 
-    /// `yield.txt` (`rows` per table) and `hold-STATION.svg` per station.
+    /// `yield.txt` (`rows` per table), `hold-STATION.svg` per station, and
+    /// `yield-STATION.svg` and `ewma-STATION.svg` for stations with three days or more.
     ///
     /// # Errors
     /// [`Error::Io`] naming the file.
@@ -77,6 +81,11 @@ impl ReportDir {
             if let Some(svg) = yields::histogram_svg(g) {
                 self.put(&format!("hold-{}.svg", file_safe(&g.name)), &svg)?;
                 charts.holds.push(svg);
+            }
+            if let Some((daily, ewma)) = yields::station_svgs(y, &g.name) {
+                self.put(&format!("yield-{}.svg", file_safe(&g.name)), &daily)?;
+                self.put(&format!("ewma-{}.svg", file_safe(&g.name)), &ewma)?;
+                charts.over_time.extend([daily, ewma]);
             }
         }
         Ok(charts)

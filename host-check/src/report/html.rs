@@ -94,6 +94,12 @@ fn yield_section(o: &mut String, y: &YieldReport, yc: &YieldCharts) {
     for svg in &yc.holds {
         o.push_str(svg);
     }
+    if !yc.over_time.is_empty() {
+        o.push_str("<h3>Over time</h3><p>Daily yield, and an EWMA chart of the daily mean hold per station (NIST/SEMATECH e-Handbook §6.3.2.4).</p>");
+        for svg in &yc.over_time {
+            o.push_str(svg);
+        }
+    }
     o.push_str("<h3>Per batch</h3><table><tr><th class=l>station</th><th class=l>batch</th><th>measured</th><th>yield</th></tr>");
     for b in &y.batches {
         row(o, &[l(&b.station), l(&b.key), r(b.total), r(pct(b.passed, b.total))]);

@@ -421,6 +421,12 @@ pub struct Part {
     pub total: u64,
     /// Passing.
     pub passed: u64,
+    /// The day's start, UTC ms (days only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub day_ms: Option<i64>,
+    /// The day's mean hold over the holds the capability counts, s (days only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hold_mean_s: Option<f64>,
 }
 
 /// The report.
@@ -464,7 +470,8 @@ pub struct Tally {
     batches: Vec<(usize, String, u64, u64)>,
     batch_index: HashMap<(usize, String), usize>,
     /// (station, day, total, passed), likewise.
-    days: Vec<(usize, i64, u64, u64)>,
+    /// (station, day, measured, passed, sum of the capability's holds (s), their count).
+    days: Vec<(usize, i64, u64, u64, f64, u64)>,
     day_index: HashMap<(usize, i64), usize>,
     windows: HashMap<i64, (f64, f64)>,
     last_window: (Option<i64>, Option<(f64, f64)>),
@@ -605,7 +612,7 @@ impl Tally {
         let d = match self.days.get(last) {
             Some(e) if e.1 == day => last,
             _ => *self.day_index.entry((si, day)).or_insert_with(|| {
-                self.days.push((si, day, 0, 0));
+                self.days.push((si, day, 0, 0, 0.0, 0));
                 self.days.len() - 1
             }),
         };
@@ -615,6 +622,11 @@ impl Tally {
         if let Some(e) = self.days.get_mut(d) {
             e.2 += 1;
             e.3 += pass;
+            // The day's mean hold, over the holds the capability counts (no gross faults).
+            if let (Some(h), true, false) = (r.hold_ticks, decided, gross) {
+                e.4 += h as f64 / f64::from(r.clock_hz.max(1));
+                e.5 += 1;
+            }
         }
         self.span =
             Some(self.span.map_or((measured_ms, measured_ms), |(a, b)| (a.min(measured_ms), b.max(measured_ms))));
@@ -693,15 +705,17 @@ impl Tally {
                 e.3 += passed;
             }
         }
-        for (s, d, total, passed) in o.days {
+        for (s, d, total, passed, sum, n) in o.days {
             let si = map.get(s).copied().unwrap_or(0);
             let k = *self.day_index.entry((si, d)).or_insert_with(|| {
-                self.days.push((si, d, 0, 0));
+                self.days.push((si, d, 0, 0, 0.0, 0));
                 self.days.len() - 1
             });
             if let Some(e) = self.days.get_mut(k) {
                 e.2 += total;
                 e.3 += passed;
+                e.4 += sum;
+                e.5 += n;
             }
         }
         let room = self.keep.saturating_sub(self.rejects.len());
@@ -760,17 +774,26 @@ impl Tally {
         let mut batches: Vec<Part> = self
             .batches
             .iter()
-            .map(|(s, b, total, passed)| Part { station: name(*s), key: b.clone(), total: *total, passed: *passed })
+            .map(|(s, b, total, passed)| Part {
+                station: name(*s),
+                key: b.clone(),
+                total: *total,
+                passed: *passed,
+                day_ms: None,
+                hold_mean_s: None,
+            })
             .collect();
         batches.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
         let mut days: Vec<Part> = self
             .days
             .iter()
-            .map(|(s, d, total, passed)| Part {
+            .map(|(s, d, total, passed, sum, n)| Part {
                 station: name(*s),
                 key: time::date_of(d * 86_400_000),
                 total: *total,
                 passed: *passed,
+                day_ms: Some(d * 86_400_000),
+                hold_mean_s: (*n > 0).then(|| sum / *n as f64),
             })
             .collect();
         days.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
@@ -993,6 +1016,58 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
     o
 }
 
+/// A station over time: its daily yield and an EWMA chart of its daily
+/// mean hold (NIST/SEMATECH e-Handbook §6.3.2.4: λ = 0.2, limits at
+/// L = 3 times the asymptotic σ of the EWMA, σ the spread of the daily
+/// means, centred on their mean). `None` below three days.
+#[must_use]
+pub fn station_svgs(r: &YieldReport, station: &str) -> Option<(String, String)> {
+    let days: Vec<&Part> = r.days.iter().filter(|d| d.station == station && d.day_ms.is_some()).collect();
+    if days.len() < 3 {
+        return None;
+    }
+    let at = |d: &Part| d.day_ms.unwrap_or(0) + 43_200_000;
+    let yields = chart::Series {
+        points: days.iter().map(|d| (at(d), 100.0 * d.passed as f64 / d.total.max(1) as f64)).collect(),
+        ink: Ink::Data,
+        dots: false,
+        label: Some("daily yield".into()),
+    };
+    let yield_svg = chart::trend(&chart::Trend {
+        title: &format!("{station}: yield per day"),
+        y_desc: "yield (%)",
+        series: &[yields],
+        levels: &[],
+        bands: &[],
+    });
+    let means: Vec<(i64, f64)> = days.iter().filter_map(|d| d.hold_mean_s.map(|m| (at(d), m))).collect();
+    let x: Vec<f64> = means.iter().map(|p| p.1).collect();
+    let centre = x.iter().sum::<f64>() / x.len().max(1) as f64;
+    let sigma = (x.iter().map(|v| (v - centre).powi(2)).sum::<f64>() / (x.len().max(2) - 1) as f64).sqrt();
+    let e = stats::ewma(&x, 0.2, centre, sigma, 3.0);
+    let series = [
+        chart::Series { points: means.clone(), ink: Ink::Muted, dots: true, label: Some("daily mean hold".into()) },
+        chart::Series {
+            points: means.iter().map(|p| p.0).zip(e.z.iter().copied()).collect(),
+            ink: Ink::Centre,
+            dots: false,
+            label: Some("EWMA, λ 0.2".into()),
+        },
+    ];
+    let levels = [
+        Mark { at: e.ucl, label: format!("upper limit {}", si(e.ucl, "s")), ink: Ink::Limit },
+        Mark { at: e.lcl, label: format!("lower limit {}", si(e.lcl, "s")), ink: Ink::Limit },
+    ];
+    let hold_svg = chart::trend(&chart::Trend {
+        title: &format!("{station}: daily mean hold, EWMA chart (NIST/SEMATECH §6.3.2.4)"),
+        y_desc: "hold (s)",
+        series: &series,
+        levels: &levels,
+        bands: &[],
+    });
+    Some((yield_svg, hold_svg))
+}
+
 /// The hold histogram of a group, with its window.
 #[must_use]
 pub fn histogram_svg(g: &Group) -> Option<String> {
@@ -1065,6 +1140,29 @@ pub(crate) mod tests {
             drift: DriftState::Settling,
             c_deviation_ppm: (!verdict.passes()).then_some(dev as i32),
         }
+    }
+
+    #[test]
+    fn a_station_over_days_gets_its_daily_yield_and_ewma() -> std::io::Result<()> {
+        let s = example_setup();
+        let setups = HashMap::from([(1, s.clone())]);
+        let mut t = Tally::new(&setups, false, None);
+        let day = 86_400_000;
+        for d in 0..5i64 {
+            for k in 0..10u32 {
+                let hold = 739_617 + u64::from(k) * 1_000 + d as u64 * 2_000;
+                t.add("bay", "B1", 1_798_761_600_000 + d * day, &judged(&s, k, hold), Some(1));
+            }
+        }
+        let y = t.finish()?;
+        assert_eq!(y.days.len(), 5);
+        let mean0 = y.days.first().and_then(|d| d.hold_mean_s).unwrap_or(0.0);
+        // Day 0: holds 739 617 … 748 617 ticks at 1 MHz, mean 744.117 ms (math).
+        assert!((mean0 - 0.744_117).abs() < 1e-9, "{mean0}");
+        let (daily, ewma) = station_svgs(&y, "bay").unwrap_or_default();
+        assert!(daily.contains("yield (%)") && ewma.contains("EWMA") && ewma.contains("upper limit"));
+        assert!(station_svgs(&y, "nowhere").is_none());
+        Ok(())
     }
 
     #[test]
