@@ -201,6 +201,14 @@ impl HoldJudge {
 pub const NO_JUDGE: &str =
     "verdict or hint is empty and no stage is given to judge the hold against (accepted: a verdict and a hint, or --stage)";
 
+/// What a record's hold is judged against: the pass window and the
+/// product's specification, s.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+struct Limits {
+    window_s: Option<(f64, f64)>,
+    spec_s: Option<(f64, f64)>,
+}
+
 /// Figures of one station (or of all).
 #[derive(Debug, Clone, Serialize)]
 pub struct Group {
@@ -224,6 +232,12 @@ pub struct Group {
     pub cp: Option<f64>,
     /// Cpk.
     pub cpk: Option<f64>,
+    /// The product's specification of the hold, s (the stage file's `[spec]`).
+    pub spec_s: Option<(f64, f64)>,
+    /// Cp against the specification.
+    pub spec_cp: Option<f64>,
+    /// Cpk against the specification.
+    pub spec_cpk: Option<f64>,
     /// Histogram of the hold over [`Group::hist_range_s`].
     pub bins: Vec<u64>,
     /// Range of the histogram, s.
@@ -244,6 +258,9 @@ impl Group {
             capability: None,
             cp: None,
             cpk: None,
+            spec_s: None,
+            spec_cp: None,
+            spec_cpk: None,
             bins: Vec::new(),
             hist_range_s: (0.0, 0.0),
             outside_hist: (0, 0),
@@ -274,7 +291,11 @@ impl Group {
 
     /// Adds one record; `gross` says whether its cause is a gross fault
     /// (wrong part, open capacitor or diode), which Cp/Cpk leaves out.
-    fn add(&mut self, r: &Record, window_s: Option<(f64, f64)>, gross: bool) {
+    fn add(&mut self, r: &Record, limits: Limits, gross: bool) {
+        let window_s = limits.window_s;
+        if self.spec_s.is_none() {
+            self.spec_s = limits.spec_s;
+        }
         self.total += 1;
         if let Some(c) = self.verdicts.get_mut(usize::from(codes::verdict_code(r.verdict))) {
             *c += 1;
@@ -317,6 +338,9 @@ impl Group {
         }
         self.hold_s.merge(&o.hold_s);
         self.gross += o.gross;
+        if self.spec_s.is_none() {
+            self.spec_s = o.spec_s;
+        }
         if self.window_s.is_none() {
             self.window_s = o.window_s;
             self.hist_range_s = o.hist_range_s;
@@ -333,14 +357,20 @@ impl Group {
 
     fn finish(&mut self) {
         self.hold_s.settle();
+        let sd = self.hold_s.sd();
+        if self.hold_s.n < 2 || sd <= 0.0 {
+            return;
+        }
         if let Some((lo, hi)) = self.window_s {
-            let sd = self.hold_s.sd();
-            if self.hold_s.n > 1 && sd > 0.0 {
-                let c = stats::capability(lo, hi, self.hold_s.mean, sd);
-                self.cp = Some(c.cp);
-                self.cpk = Some(c.cpk);
-                self.capability = Some(c);
-            }
+            let c = stats::capability(lo, hi, self.hold_s.mean, sd);
+            self.cp = Some(c.cp);
+            self.cpk = Some(c.cpk);
+            self.capability = Some(c);
+        }
+        if let Some((lo, hi)) = self.spec_s {
+            let c = stats::capability(lo, hi, self.hold_s.mean, sd);
+            self.spec_cp = Some(c.cp);
+            self.spec_cpk = Some(c.cpk);
         }
     }
 }
@@ -473,8 +503,8 @@ pub struct Tally {
     /// (station, day, measured, passed, sum of the capability's holds (s), their count).
     days: Vec<(usize, i64, u64, u64, f64, u64)>,
     day_index: HashMap<(usize, i64), usize>,
-    windows: HashMap<i64, (f64, f64)>,
-    last_window: (Option<i64>, Option<(f64, f64)>),
+    windows: HashMap<i64, Limits>,
+    last_window: (Option<i64>, Limits),
     checkers: HashMap<i64, Checker>,
     recheck: Option<Recheck>,
     rejects: Vec<Reject>,
@@ -496,7 +526,8 @@ impl Tally {
             .iter()
             .map(|(&id, s)| {
                 let c = f64::from(s.clock_hz);
-                (id, (s.hold_min_ticks as f64 / c, s.hold_max_ticks as f64 / c))
+                let spec_s = stagefile::parse(Path::new(&s.name), &s.stage_toml).ok().and_then(|sf| sf.spec_s);
+                (id, Limits { window_s: Some((s.hold_min_ticks as f64 / c, s.hold_max_ticks as f64 / c)), spec_s })
             })
             .collect();
         let mut checkers = HashMap::new();
@@ -531,7 +562,7 @@ impl Tally {
             batch_index: HashMap::new(),
             days: Vec::new(),
             day_index: HashMap::new(),
-            last_window: (None, None),
+            last_window: (None, Limits::default()),
             windows,
             checkers,
             recheck: recheck.then_some(rc),
@@ -573,7 +604,7 @@ impl Tally {
         let window = match self.last_window {
             (id, w) if id == setup_id => w,
             _ => {
-                let w = setup_id.and_then(|id| self.windows.get(&id)).copied();
+                let w = setup_id.and_then(|id| self.windows.get(&id)).copied().unwrap_or_default();
                 self.last_window = (setup_id, w);
                 w
             }
@@ -929,6 +960,14 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             r.all.gross
         );
     }
+    if let (Some((lo, hi)), Some(cp), Some(cpk)) = (r.all.spec_s, r.all.spec_cp, r.all.spec_cpk) {
+        let _ = writeln!(
+            o,
+            "  against the product's specification {} … {}: Cp {cp:.2} · Cpk {cpk:.2}",
+            si(lo, "s"),
+            si(hi, "s")
+        );
+    }
     let _ = writeln!(o, "\n  per batch");
     for b in r.batches.iter().take(max_rows) {
         let _ = writeln!(o, "    {:<16} {:<14} {:>9} {:>9}", b.station, b.key, b.total, pct(b.passed, b.total));
@@ -1162,6 +1201,25 @@ pub(crate) mod tests {
         let (daily, ewma) = station_svgs(&y, "bay").unwrap_or_default();
         assert!(daily.contains("yield (%)") && ewma.contains("EWMA") && ewma.contains("upper limit"));
         assert!(station_svgs(&y, "nowhere").is_none());
+        Ok(())
+    }
+
+    #[test]
+    fn cpk_against_the_products_specification() -> std::io::Result<()> {
+        let mut s = example_setup();
+        s.stage_toml.push_str("\n[spec]\nhold_min = \"600m\"\nhold_max = \"900m\"\n");
+        let setups = HashMap::from([(1, s.clone())]);
+        let mut t = Tally::new(&setups, false, None);
+        for k in 0..40u32 {
+            t.add("bay", "B1", 0, &judged(&s, k, 700_000 + u64::from(k) * 2_000), Some(1));
+        }
+        let y = t.finish()?;
+        assert_eq!(y.all.spec_s, Some((0.6, 0.9)));
+        // Mean 739 ms, σ 23.4 ms: Cpk = (739 − 600) / (3σ) ≈ 1.98 against the spec (NIST/SEMATECH §6.1.6 formula).
+        let (m, sd) = (y.all.hold_s.mean, y.all.hold_s.sd());
+        let want = ((m - 0.6).min(0.9 - m)) / (3.0 * sd);
+        assert!(y.all.spec_cpk.is_some_and(|c| (c - want).abs() < 1e-12), "{:?} vs {want}", y.all.spec_cpk);
+        assert!(render_text(&y, 5).contains("against the product's specification 600.0 ms … 900.0 ms"));
         Ok(())
     }
 

@@ -77,6 +77,14 @@ struct Raw {
     environment: Option<RawEnvironment>,
     aging: Option<RawAging>,
     fixture: Option<RawFixture>,
+    spec: Option<RawSpec>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawSpec {
+    hold_min: Sv,
+    hold_max: Sv,
 }
 
 #[derive(Deserialize)]
@@ -204,6 +212,9 @@ pub struct StageFile {
     /// The fixture's own temperature range, m°C (`[fixture]`); none: the
     /// stage's reference temperature.
     pub fixture_temp_mdeg_c: Option<(i32, i32)>,
+    /// The product's specification of the hold, s (`[spec]`): what Cp/Cpk
+    /// are reported against beside the pass window.
+    pub spec_s: Option<(f64, f64)>,
 }
 
 /// What a window is for.
@@ -450,6 +461,17 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         }
         None => None,
     };
+    let spec_s = match &raw.spec {
+        Some(sp) => {
+            let lo = cx.si(&sp.hold_min, "spec.hold_min", SECOND, 1e-6, 86_400.0, "1 µs to 24 h")?;
+            let hi = cx.si(&sp.hold_max, "spec.hold_max", SECOND, lo, 86_400.0, "above spec.hold_min, up to 24 h")?;
+            if hi <= lo {
+                return Err(cx.err(Some(sp.hold_max.span().start), "spec.hold_max", "must be above spec.hold_min"));
+            }
+            Some((lo, hi))
+        }
+        None => None,
+    };
     let (aging, rated_life) = match &raw.aging {
         Some(a) => parse_aging(&mut cx, a)?,
         None => (None, None),
@@ -465,6 +487,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         origins: cx.origins,
         rated_life,
         fixture_temp_mdeg_c,
+        spec_s,
     })
 }
 

@@ -61,6 +61,8 @@ pub const KEYS: &[Key] = &[
     opt("environment.threshold_tempco", "ppm/°C", "-100000 to 100000"),
     req("fixture.temp_min", "°C", Quantity::Temperature.range()),
     req("fixture.temp_max", "°C", "temp_min to +150 °C"),
+    req("spec.hold_min", "s", "1 µs to 24 h"),
+    req("spec.hold_max", "s", "above spec.hold_min, up to 24 h"),
     req("aging.kind", "law", "class2 or end-of-life"),
     opt("aging.loss_per_decade", "%", "class2: 0 % to 100 % per decade of hours"),
     opt("aging.ref_hours", "h", "class2: 1 h to 1 000 000 h (default 1000)"),

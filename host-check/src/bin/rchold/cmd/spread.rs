@@ -28,7 +28,7 @@ pub struct Args {
     /// Standard deviations a tolerance spans when --dist normal.
     #[arg(long, default_value_t = 3.0)]
     k_sigma: f64,
-    /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2").
+    /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2"); default: the stage file's [spec].
     #[arg(long)]
     spec: Option<String>,
     /// Age the capacitor this many years first, by the stage file's `[aging]` law: class 2
@@ -79,7 +79,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     } else {
         Dist::Uniform
     };
-    let spec = a.spec.as_deref().map(spec).transpose()?;
+    // The stage file's [spec] unless --spec gives another.
+    let spec = a.spec.as_deref().map(spec).transpose()?.or(sf.spec_s);
     // The worst case, the root-sum-square and the Monte Carlo describe the same parts.
     let parts = match (a.years, sf.spread.aging) {
         (Some(years), _) => {
