@@ -258,6 +258,10 @@ fn pick_lists_parts_or_says_none_fit() {
     let none = run(dir.path(), &["pick", "--hold", "30s", "--within", "5%"]);
     assert_eq!(none.status.code(), Some(1));
     assert!(text(&none.stdout).contains("no pair of preferred values"));
+    // The input is already a Schmitt input (the default): it is not suggested again.
+    assert!(!text(&none.stdout).contains("or a Schmitt input"), "{}", text(&none.stdout));
+    let plain = run(dir.path(), &["pick", "--hold", "30s", "--within", "5%", "--input", "hc"]);
+    assert!(text(&plain.stdout).contains("or a Schmitt input"), "{}", text(&plain.stdout));
     let bad = run(dir.path(), &["pick", "--hold", "30 years"]);
     assert_eq!(bad.status.code(), Some(2));
     assert!(text(&bad.stderr).contains("--hold \"30 years\""), "{}", text(&bad.stderr));

@@ -253,9 +253,12 @@ pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bo
         t.c_series.per_decade()
     );
     if found.is_empty() {
+        // Suggest a Schmitt input only where the input is not one already.
+        let schmitt = matches!(t.thresholds, Some(ThresholdSpread::Schmitt { .. }));
         let _ = writeln!(
             o,
-            "  no pair of preferred values keeps the worst case inside the target; widen --within, use tighter parts, or a Schmitt input"
+            "  no pair of preferred values keeps the worst case inside the target; widen --within, use tighter parts{}",
+            if schmitt { ", or a part with a narrower threshold band" } else { ", or a Schmitt input" }
         );
         return o;
     }
