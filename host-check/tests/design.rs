@@ -260,6 +260,13 @@ fn pick_lists_parts_or_says_none_fit() {
     assert!(text(&none.stdout).contains("no pair of preferred values"));
     // The input is already a Schmitt input (the default): it is not suggested again.
     assert!(!text(&none.stdout).contains("or a Schmitt input"), "{}", text(&none.stdout));
+    // --write gives a stage file that eval reads, with the first candidate's parts.
+    let w = run(dir.path(), &["pick", "--hold", "2s", "--within", "60%", "--vdd", "5", "--write", "p.toml", "--json"]);
+    let v: serde_json::Value = serde_json::from_slice(&w.stdout).unwrap_or_default();
+    let first = v["candidates"][0]["hold_s"].as_f64().or_else(|| v[0]["hold_s"].as_f64());
+    let e = run(dir.path(), &["eval", "p.toml", "--json"]);
+    let hold = serde_json::from_slice::<serde_json::Value>(&e.stdout).unwrap_or_default()["hold_s"].as_f64();
+    assert!(hold.zip(first).is_some_and(|(h, f)| (h / f - 1.0).abs() < 1e-6), "{hold:?} vs {first:?}: {v}");
     let plain = run(dir.path(), &["pick", "--hold", "30s", "--within", "5%", "--input", "hc"]);
     assert!(text(&plain.stdout).contains("or a Schmitt input"), "{}", text(&plain.stdout));
     let bad = run(dir.path(), &["pick", "--hold", "30 years"]);

@@ -226,6 +226,48 @@ pub fn template(
     Ok((stage, Some(spread)))
 }
 
+/// A stage file for a candidate: the template's supply, diode drop, driver
+/// and input family, the candidate's R and C with their tolerances (and the
+/// dielectric's aging), and a press long enough to charge C fully (1 s, or
+/// 20 charge time constants through the driver when longer).
+#[must_use]
+pub fn stage_toml(t: &Target, c: &Candidate, input: &str, name: &str) -> String {
+    let s = &t.template;
+    let drop_v = match s.diode {
+        Diode::Drop { drop_uv } => f64::from(drop_uv) * 1e-6,
+        Diode::Junction { .. } => 0.6,
+    };
+    let driver_ohm = s.driver_mohm as f64 * 1e-3;
+    let press_s = (20.0 * driver_ohm.max(1.0) * c.c_f).max(1.0);
+    let pct = |ppm: u32| format!("{}%", f64::from(ppm) / 1e4);
+    let aging = match c.dielectric.aging() {
+        Some(Aging::Class2 { k_milli_pct, ref_hours, hours }) => format!(
+            "\n[aging]\nkind = \"class2\"\nloss_per_decade = \"{}%\"\nref_hours = \"{ref_hours}\"\nhours = \"{hours}\"\n",
+            f64::from(k_milli_pct) / 1e3
+        ),
+        Some(Aging::EndOfLife { loss_ppm }) => {
+            format!("\n[aging]\nkind = \"end-of-life\"\nloss = \"{}\"\n", pct(loss_ppm))
+        }
+        None => String::new(),
+    };
+    format!(
+        "# Written by `rchold pick`: R and C for a {hold} hold within ±{within} ({dielectric} capacitor).\n\
+         name = {name:?}\n\n[stage]\nr = \"{r}\"\nc = \"{c_f}\"\nvdd = \"{vdd}\"\ndriver_ohms = \"{driver_ohm}\"\n\
+         charge_ohms = \"0\"\nseries_ohms = \"0\"\nleak_ohms = \"inf\"\ndiode = {{ drop = \"{drop_v}\" }}\n\n\
+         [input]\nfamily = {input:?}\n\n[press]\nduration = \"{press_s}\"\n\n\
+         [tolerance]\nr = \"{r_tol}\"\nc = \"{c_tol}\"\nvdd = \"{vdd_tol}\"\n{aging}",
+        hold = crate::fmt::si(t.hold_s, "s"),
+        within = pct((t.within * 1e6).round() as u32),
+        dielectric = c.dielectric.name(),
+        r = crate::fmt::si(c.r_ohm, "Ω"),
+        c_f = crate::fmt::si(c.c_f, "F"),
+        vdd = f64::from(s.vdd_uv) * 1e-6,
+        r_tol = pct(t.r_tol_ppm),
+        c_tol = pct(c.dielectric.tolerance().plus_ppm),
+        vdd_tol = pct(t.vdd_tol_ppm),
+    )
+}
+
 /// The report, as text or JSON.
 #[must_use]
 pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bool) -> String {
@@ -295,6 +337,28 @@ pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bo
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_written_stage_file_reads_back_with_the_candidates_hold() -> Result<(), Error> {
+        let (template, thresholds) = template(5.0, 0.6, 50.0, "hc-schmitt")?;
+        let t = Target {
+            hold_s: 5.0,
+            within: 0.6,
+            r_series: Series::E24,
+            r_tol_ppm: 10_000,
+            c_series: Series::E12,
+            template,
+            vdd_tol_ppm: 50_000,
+            thresholds,
+        };
+        let found = pick(&t);
+        let first = found.first().ok_or_else(|| Error::Input("no candidate".into()))?;
+        let text = stage_toml(&t, first, "hc-schmitt", "picked");
+        let sf = crate::stage::file::parse(std::path::Path::new("picked.toml"), &text)?;
+        let hold = secs(sf.nominal()?.hold);
+        assert!((hold / first.hold_s - 1.0).abs() < 1e-6, "{hold} vs {}\n{text}", first.hold_s);
+        Ok(())
+    }
 
     #[test]
     fn candidates_lie_within_the_asked_spread() -> Result<(), Error> {

@@ -3,11 +3,11 @@
 
 use std::process::ExitCode;
 
-use host_check::design::pick::{pick, render, template, Target};
+use host_check::design::pick::{pick, render, stage_toml, template, Target};
 use host_check::stage::eseries::Series;
 use host_check::Error;
 
-use crate::args::{bad, emit, fraction, value};
+use crate::args::{bad, emit, fraction, value, write};
 
 /// Options of `rchold pick`.
 #[derive(clap::Args)]
@@ -48,6 +48,10 @@ pub struct Args {
     /// Print JSON instead of the text report.
     #[arg(long)]
     json: bool,
+    /// Write the first candidate as a stage file (R, C, their tolerances and the
+    /// dielectric's aging, the supply, diode, driver and input) to check with eval or spread.
+    #[arg(long, value_name = "FILE")]
+    write: Option<std::path::PathBuf>,
 }
 
 fn series(opt: &str, text: &str) -> Result<Series, Error> {
@@ -79,5 +83,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     };
     let found = pick(&target);
     emit(&render(&target, &found, a.top, &a.input, a.json))?;
+    if let (Some(path), Some(first)) = (&a.write, found.first()) {
+        let name = format!("picked for a {} hold", a.hold);
+        write(path, stage_toml(&target, first, &a.input, &name))?;
+    }
     Ok(if found.is_empty() { ExitCode::from(1) } else { ExitCode::SUCCESS })
 }
