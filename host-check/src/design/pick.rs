@@ -338,10 +338,10 @@ pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bo
 mod tests {
     use super::*;
 
-    #[test]
-    fn the_written_stage_file_reads_back_with_the_candidates_hold() -> Result<(), Error> {
+    /// A 5 s hold within ±60 % on 5 V, a Schmitt input, E24 resistors at 1 %, E12 capacitors.
+    fn five_seconds() -> Result<Target, Error> {
         let (template, thresholds) = template(5.0, 0.6, 50.0, "hc-schmitt")?;
-        let t = Target {
+        Ok(Target {
             hold_s: 5.0,
             within: 0.6,
             r_series: Series::E24,
@@ -350,7 +350,12 @@ mod tests {
             template,
             vdd_tol_ppm: 50_000,
             thresholds,
-        };
+        })
+    }
+
+    #[test]
+    fn the_written_stage_file_reads_back_with_the_candidates_hold() -> Result<(), Error> {
+        let t = five_seconds()?;
         let found = pick(&t);
         let first = found.first().ok_or_else(|| Error::Input("no candidate".into()))?;
         let text = stage_toml(&t, first, "hc-schmitt", "picked");
@@ -362,17 +367,7 @@ mod tests {
 
     #[test]
     fn candidates_lie_within_the_asked_spread() -> Result<(), Error> {
-        let (template, thresholds) = template(5.0, 0.6, 50.0, "hc-schmitt")?;
-        let t = Target {
-            hold_s: 5.0,
-            within: 0.6,
-            r_series: Series::E24,
-            r_tol_ppm: 10_000,
-            c_series: Series::E12,
-            template,
-            vdd_tol_ppm: 50_000,
-            thresholds,
-        };
+        let t = five_seconds()?;
         let found = pick(&t);
         assert!(!found.is_empty());
         for c in &found {
