@@ -610,14 +610,14 @@ impl Tally {
             }
         };
         // The re-check's own judgement, where there is a stage: its hint decides what is a
-        // gross fault, and its implied C fills in a record that carries none.
+        // gross fault; a reject that carries no C deviation gets the one it implies.
         let checker = setup_id.and_then(|id| self.checkers.get(&id));
         let decided = matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long);
         let judged = match (checker, r.hold_ticks) {
-            (Some(c), Some(h)) if decided => Some((c.judge(h), c.implied_c_ppm(h))),
+            (Some(c), Some(h)) if decided => Some(c.judge(h)),
             _ => None,
         };
-        let hint = judged.map_or(r.hint, |((_, h), _)| h);
+        let hint = judged.map_or(r.hint, |(_, h)| h);
         let gross = matches!(hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode);
         if let Some(g) = self.stations.get_mut(si) {
             g.add(r, window, gross);
@@ -676,7 +676,10 @@ impl Tally {
                     c_dev_pct: r
                         .c_deviation_ppm
                         .map(|d| f64::from(d) / 1e4)
-                        .or(judged.and_then(|(_, c)| c).map(|ppm| ppm / 1e4)),
+                        // Computed for rejects only: the inverse is not free.
+                        .or_else(|| {
+                            checker.zip(r.hold_ticks).and_then(|(c, h)| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4)
+                        }),
                 });
             }
             if self.reject_error.is_none() {
@@ -689,7 +692,7 @@ impl Tally {
         }
         if let Some(rc) = self.recheck.as_mut() {
             match (judged, r.hold_ticks) {
-                (Some(((v, hint), _)), Some(h)) => {
+                (Some((v, hint)), Some(h)) => {
                     rc.checked += 1;
                     let verdict_agrees = v == r.verdict;
                     if verdict_agrees {
