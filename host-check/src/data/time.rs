@@ -2,9 +2,8 @@
 //! written in the RFC 3339 form `YYYY-MM-DDTHH:MM:SS[.fff]Z` by the `time`
 //! crate (the calendar, leap years and field ranges are its).
 
-use ::time::format_description::well_known::Rfc3339;
 use ::time::macros::format_description;
-use ::time::{Date, OffsetDateTime, PrimitiveDateTime, Time, UtcOffset};
+use ::time::{Date, OffsetDateTime, PrimitiveDateTime, Time};
 
 /// Accepted form, for error messages.
 pub const FORM: &str = "YYYY-MM-DDTHH:MM:SS[.fff] with Z or an offset ±HH:MM, years 1970 … 9999";
@@ -123,18 +122,19 @@ pub fn now_ms() -> i64 {
     i64::try_from(OffsetDateTime::now_utc().unix_timestamp_nanos() / 1_000_000).unwrap_or(i64::MAX)
 }
 
-/// An RFC 3339 time with any offset, as UTC milliseconds (for times a user
-/// types, such as `--from 2027-03-01T07:00:00+01:00`).
-#[must_use]
-pub fn parse_rfc3339_ms(s: &str) -> Option<i64> {
-    let t = OffsetDateTime::parse(s, &Rfc3339).ok()?.to_offset(UtcOffset::UTC);
-    i64::try_from(t.unix_timestamp_nanos() / 1_000_000).ok()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ::time::format_description::well_known::Rfc3339;
+    use ::time::UtcOffset;
     use proptest::prelude::*;
+
+    /// The `time` crate's own RFC 3339 reader, as UTC milliseconds: the
+    /// independent reading the tests hold ours against.
+    fn parse_rfc3339_ms(s: &str) -> Option<i64> {
+        let t = OffsetDateTime::parse(s, &Rfc3339).ok()?.to_offset(UtcOffset::UTC);
+        i64::try_from(t.unix_timestamp_nanos() / 1_000_000).ok()
+    }
 
     #[test]
     fn fixed_points() {
