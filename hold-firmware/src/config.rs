@@ -29,6 +29,17 @@ pub struct Config {
     pub hold_timeout_ticks: u64,
     /// More filtered-out glitches than this make the verdict chatter.
     pub chatter_limit: u16,
+    /// Shortest turn-on latency that passes (press to output active).
+    pub on_min_ticks: u64,
+    /// Longest turn-on latency that passes.
+    pub on_max_ticks: u64,
+    /// Turn-on latency of the nominal stage (0: unknown, latency not used
+    /// for diagnosis).
+    pub on_nominal_ticks: u64,
+    /// Delay between two reads of the output while waiting for it to turn
+    /// on, ns ([`on_poll_ns`]: finer than `poll_ns`, so that the latency is
+    /// resolved without polling the whole hold that fast).
+    pub on_poll_ns: u32,
 }
 
 /// Ticks of `span` at `clock_hz`, rounded.
@@ -41,6 +52,22 @@ fn ticks(span: Span, clock_hz: u32) -> Result<u64, ModelError> {
 #[must_use]
 pub const fn poll_ticks(poll_ns: u32, clock_hz: u32) -> u64 {
     poll_ns as u64 * clock_hz as u64 / 1_000_000_000
+}
+
+/// The poll period while waiting for the output to turn on, ns: 1/50 of the
+/// nominal turn-on latency `on_nominal_ns`, but no finer than 1 µs or one
+/// tick of a `clock_hz` timer, and no coarser than the hold's `poll_ns`.
+#[must_use]
+pub const fn on_poll_ns(on_nominal_ns: u64, poll_ns: u32, clock_hz: u32) -> u32 {
+    let tick_ns = if clock_hz == 0 { 1_000_000_000 } else { 1_000_000_000 / clock_hz as u64 };
+    let floor = if tick_ns > 1_000 { tick_ns } else { 1_000 };
+    let want = on_nominal_ns / 50;
+    let want = if want < floor { floor } else { want };
+    if want < poll_ns as u64 {
+        want as u32
+    } else {
+        poll_ns
+    }
 }
 
 /// The pass window in ticks from the model's shortest and longest hold in
@@ -67,9 +94,9 @@ impl Config {
     /// Settings for a stage: the press lasts the stage's press, but at least
     /// the turn-on latency plus five charge time constants (so the capacitor
     /// is charged to within 1 % of its target whatever the stage file says);
-    /// the pass window, widened also by one tick of timer quantisation and one
-    /// poll of latency on each side, is
-    /// is the model window widened by `guard_ppm` on each side; timeouts leave
+    /// the pass windows of the hold and of the turn-on latency are the
+    /// model's corner extremes widened by [`widen`] (`guard_ppm`, one tick
+    /// of timer quantisation and one poll on each side); timeouts leave
     /// room for a hold 16 times the window's maximum, so that a capacitor a
     /// decade too large reads as a long hold, not a stuck output.
     ///
@@ -86,21 +113,29 @@ impl Config {
         let min = ticks(window.min, clock_hz)?;
         let max = ticks(window.max, clock_hz)?;
         let latency = ticks(nominal.on_latency, clock_hz)?;
+        let (on_min, on_max) = (ticks(window.on_min, clock_hz)?, ticks(window.on_max, clock_hz)?);
         let full_charge = ticks(nominal.charge_tau, clock_hz)?.saturating_mul(5).saturating_add(latency);
         let press_ticks = ticks(press, clock_hz)?.max(full_charge);
         let poll_ticks = poll_ticks(poll_ns, clock_hz);
         let (hold_min_ticks, hold_max_ticks) = widen(min, max, guard_ppm, poll_ticks);
+        let on_timeout_ticks = (latency.saturating_mul(10)).max(press_ticks / 2).min(press_ticks).max(1);
+        let on_poll_ns = on_poll_ns(nominal.on_latency.ns(), poll_ns, clock_hz);
+        let (on_min_ticks, on_max_ticks) = widen(on_min, on_max, guard_ppm, self::poll_ticks(on_poll_ns, clock_hz));
         Ok(Config {
             clock_hz,
             settle_ticks: (max / 20).max(4 * poll_ticks).max(1),
             press_ticks,
             glitch_ticks: (4 * poll_ticks).max(1).min(min / 50 + 1),
             poll_ns,
-            on_timeout_ticks: (latency.saturating_mul(10)).max(press_ticks / 2).min(press_ticks).max(1),
+            on_timeout_ticks,
             hold_min_ticks,
             hold_max_ticks,
             hold_timeout_ticks: max.saturating_mul(16).max(1),
             chatter_limit: 8,
+            on_min_ticks,
+            on_max_ticks: on_max_ticks.min(on_timeout_ticks),
+            on_nominal_ticks: latency,
+            on_poll_ns,
         })
     }
 
@@ -122,6 +157,18 @@ impl Config {
 }
 
 impl Config {
+    /// A measured turn-on latency over the nominal one, ppm of 1; `None`
+    /// when the nominal latency is unknown or under ten turn-on polls (plus
+    /// a tick) long, too coarse to tell parts apart.
+    #[must_use]
+    pub fn on_ratio_ppm(&self, on_ticks: u64) -> Option<u64> {
+        let resolution = poll_ticks(self.on_poll_ns, self.clock_hz).saturating_add(1).saturating_mul(10);
+        if self.on_nominal_ticks == 0 || self.on_nominal_ticks < resolution {
+            return None;
+        }
+        u64::try_from(u128::from(on_ticks) * 1_000_000 / u128::from(self.on_nominal_ticks)).ok()
+    }
+
     /// Ticks as a model span.
     ///
     /// # Errors
@@ -131,13 +178,14 @@ impl Config {
     }
 }
 
-/// Length of a settings blob, bytes: 8 of header, 68 of [`Config`], the
+/// Length of a settings blob, bytes: 8 of header, 96 of [`Config`], the
 /// prepared stage, 4 of CRC.
 pub const BLOB_LEN: usize = 8 + CONFIG_LEN + PREPARED_LEN + 4;
-const CONFIG_LEN: usize = 68;
+const CONFIG_LEN: usize = 96;
 const BLOB_MAGIC: [u8; 4] = *b"RCHW";
-/// Version 2 added the prepared stage; version 1 blobs are refused.
-const BLOB_VERSION: u8 = 2;
+/// Version 2 added the prepared stage, version 3 the turn-on latency
+/// window; older blobs are refused (by version, whatever their length).
+const BLOB_VERSION: u8 = 3;
 
 /// Why a settings blob was refused.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -187,7 +235,9 @@ impl Setup {
     /// "RCHW", version 2, three reserved bytes; the [`Config`] fields
     /// little-endian in declaration order (clock u32, settle u64, press u64,
     /// glitch u64, poll u32, turn-on timeout u64, hold min u64, hold max u64,
-    /// hold timeout u64, chatter limit u16) and two reserved bytes; the
+    /// hold timeout u64, chatter limit u16) and two reserved bytes, then
+    /// turn-on min u64, turn-on max u64, nominal turn-on u64, turn-on poll
+    /// u32; the
     /// prepared stage ([`Prepared::to_bytes`]); CRC-32/ISO-HDLC of all before it.
     #[must_use]
     pub fn to_blob(&self) -> [u8; BLOB_LEN] {
@@ -213,6 +263,10 @@ impl Setup {
         put(&c.hold_timeout_ticks.to_le_bytes());
         put(&c.chatter_limit.to_le_bytes());
         put(&[0, 0]);
+        put(&c.on_min_ticks.to_le_bytes());
+        put(&c.on_max_ticks.to_le_bytes());
+        put(&c.on_nominal_ticks.to_le_bytes());
+        put(&c.on_poll_ns.to_le_bytes());
         put(&self.stage.to_bytes());
         let crc = crate::crc32::checksum(b.get(..BLOB_LEN - 4).unwrap_or(&[]));
         if let Some(dst) = b.get_mut(BLOB_LEN - 4..) {
@@ -227,14 +281,14 @@ impl Setup {
     /// [`BlobError`] for a wrong length, magic or version, a CRC mismatch, or
     /// contradictory settings.
     pub fn from_blob(blob: &[u8]) -> Result<Setup, BlobError> {
-        if blob.len() != BLOB_LEN {
-            return Err(BlobError::Length);
-        }
         if blob.get(..4) != Some(&BLOB_MAGIC[..]) {
-            return Err(BlobError::Magic);
+            return Err(if blob.len() < 4 { BlobError::Length } else { BlobError::Magic });
         }
         if blob.get(4) != Some(&BLOB_VERSION) {
-            return Err(BlobError::Version);
+            return Err(if blob.len() < 5 { BlobError::Length } else { BlobError::Version });
+        }
+        if blob.len() != BLOB_LEN {
+            return Err(BlobError::Length);
         }
         let body = blob.get(..BLOB_LEN - 4).ok_or(BlobError::Length)?;
         let crc = blob.get(BLOB_LEN - 4..).and_then(|c| <[u8; 4]>::try_from(c).ok()).ok_or(BlobError::Length)?;
@@ -249,25 +303,37 @@ impl Setup {
         };
         let u32_ = |s: &[u8]| s.try_into().map(u32::from_le_bytes).map_err(|_| BlobError::Length);
         let u64_ = |s: &[u8]| s.try_into().map(u64::from_le_bytes).map_err(|_| BlobError::Length);
-        let c = Config {
-            clock_hz: u32_(take(4)?)?,
-            settle_ticks: u64_(take(8)?)?,
-            press_ticks: u64_(take(8)?)?,
-            glitch_ticks: u64_(take(8)?)?,
-            poll_ns: u32_(take(4)?)?,
-            on_timeout_ticks: u64_(take(8)?)?,
-            hold_min_ticks: u64_(take(8)?)?,
-            hold_max_ticks: u64_(take(8)?)?,
-            hold_timeout_ticks: u64_(take(8)?)?,
-            chatter_limit: take(2)?.try_into().map(u16::from_le_bytes).map_err(|_| BlobError::Length)?,
-        };
+        let (clock_hz, settle_ticks, press_ticks, glitch_ticks) =
+            (u32_(take(4)?)?, u64_(take(8)?)?, u64_(take(8)?)?, u64_(take(8)?)?);
+        let (poll_ns, on_timeout_ticks) = (u32_(take(4)?)?, u64_(take(8)?)?);
+        let (hold_min_ticks, hold_max_ticks, hold_timeout_ticks) = (u64_(take(8)?)?, u64_(take(8)?)?, u64_(take(8)?)?);
+        let chatter_limit = take(2)?.try_into().map(u16::from_le_bytes).map_err(|_| BlobError::Length)?;
         take(2)?;
+        let c = Config {
+            clock_hz,
+            settle_ticks,
+            press_ticks,
+            glitch_ticks,
+            poll_ns,
+            on_timeout_ticks,
+            hold_min_ticks,
+            hold_max_ticks,
+            hold_timeout_ticks,
+            chatter_limit,
+            on_min_ticks: u64_(take(8)?)?,
+            on_max_ticks: u64_(take(8)?)?,
+            on_nominal_ticks: u64_(take(8)?)?,
+            on_poll_ns: u32_(take(4)?)?,
+        };
         let stage = Prepared::from_bytes(take(PREPARED_LEN)?).map_err(|_| BlobError::Invalid)?;
         if rc_model::check_clock(c.clock_hz).is_err()
             || c.hold_min_ticks > c.hold_max_ticks
             || c.hold_max_ticks > c.hold_timeout_ticks
             || c.press_ticks == 0
             || c.on_timeout_ticks > c.press_ticks
+            || c.on_min_ticks > c.on_max_ticks
+            || c.on_max_ticks > c.on_timeout_ticks
+            || c.on_poll_ns > c.poll_ns
             || stage.clock_hz() != c.clock_hz
         {
             return Err(BlobError::Invalid);
@@ -314,6 +380,10 @@ mod tests {
                 hold_max_ticks: 1_250_000,
                 hold_timeout_ticks: 20_000_000,
                 chatter_limit: 8,
+                on_min_ticks: 0,
+                on_max_ticks: 1_200,
+                on_nominal_ticks: 700,
+                on_poll_ns: 10_000,
             },
             stage: stage(),
         }
@@ -346,13 +416,19 @@ mod tests {
         assert_eq!(Setup::from_blob(&other_clock.to_blob()), Err(BlobError::Invalid));
     }
 
-    /// A version 1 blob (80 bytes, no prepared stage) is refused by version
-    /// when padded to length, and by length as it is.
+    /// Version 1 (80 bytes, no prepared stage) and version 2 blobs (no
+    /// latency window) are refused by version, at their own length or ours.
     #[test]
-    fn version_one_blobs_are_refused() {
-        let mut v1 = sample().to_blob();
-        v1[4] = 1;
-        assert_eq!(Setup::from_blob(&v1), Err(BlobError::Version));
-        assert_eq!(Setup::from_blob(&v1[..80]), Err(BlobError::Length));
+    fn older_blobs_are_refused_by_version() {
+        for version in [1u8, 2] {
+            let mut old = sample().to_blob();
+            old[4] = version;
+            assert_eq!(Setup::from_blob(&old), Err(BlobError::Version));
+            assert_eq!(Setup::from_blob(&old[..80]), Err(BlobError::Version));
+        }
+        assert_eq!(Setup::from_blob(b"RCH"), Err(BlobError::Length));
+        let mut wrong = sample();
+        wrong.config.on_min_ticks = wrong.config.on_max_ticks + 1;
+        assert_eq!(Setup::from_blob(&wrong.to_blob()), Err(BlobError::Invalid));
     }
 }

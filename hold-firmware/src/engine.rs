@@ -122,18 +122,24 @@ pub(crate) fn outcome(
         Verdict::NoResponse => Hint::NoChargePath,
         Verdict::StuckActive => Hint::OpenResistorOrShortedNode,
         Verdict::Chatter => Hint::NoisyOutput,
-        Verdict::Short | Verdict::Long => {
+        Verdict::Short | Verdict::Long | Verdict::FastStart | Verdict::SlowStart => {
             let hold = hold.unwrap_or(0);
-            if hold.saturating_mul(20) < config.hold_min_ticks {
+            let start_failed = matches!(verdict, Verdict::FastStart | Verdict::SlowStart);
+            if !start_failed && hold.saturating_mul(20) < config.hold_min_ticks {
                 Hint::OpenCapacitorOrDiode
             } else {
+                let on_ratio = match on {
+                    Some(on) => config.on_ratio_ppm(on),
+                    None => None,
+                };
                 match stage.deviation_ppm_at(hold, temp_mdeg_c) {
                     Ok(dev) => {
                         let dev = i64::from(dev);
                         m.c_deviation_ppm = Some(dev);
-                        Hint::from_deviation_ppm(dev)
+                        Hint::from_times(dev, on_ratio, start_failed)
                     }
                     // Outside the prepared range (a temperature the stage was not prepared for).
+                    Err(_) if start_failed => Hint::ChargePath,
                     Err(_) => Hint::WrongPart,
                 }
             }
@@ -144,7 +150,8 @@ pub(crate) fn outcome(
     m
 }
 
-/// The verdict on a completed hold.
+/// The verdict on a completed hold; the turn-on latency `on` is judged too
+/// when there is one (`None` for a retriggered hold).
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn judge(
     config: &Config,
@@ -156,10 +163,11 @@ pub(crate) fn judge(
     glitches: u16,
     dropped: bool,
 ) -> Measurement {
-    let verdict = if glitches > config.chatter_limit || dropped {
+    let c = config;
+    let verdict = if glitches > c.chatter_limit || dropped {
         Verdict::Chatter
     } else {
-        Verdict::of_hold(hold, config.hold_min_ticks, config.hold_max_ticks)
+        Verdict::of_times(on, hold, c.on_min_ticks, c.on_max_ticks, c.hold_min_ticks, c.hold_max_ticks)
     };
     outcome(config, stage, temp_mdeg_c, press, on, Some(hold), glitches, verdict)
 }
@@ -272,7 +280,9 @@ where
                 self.trigger.set_high().map_err(Error::Pin)?;
                 return Ok((on, t, dropped));
             }
-            self.delay.delay_ns(self.config.poll_ns);
+            // Fine polls until the output turns on (its latency is judged), then the hold's.
+            let poll = if filter.level { self.config.poll_ns } else { self.config.on_poll_ns };
+            self.delay.delay_ns(poll);
         }
     }
 
@@ -343,7 +353,8 @@ where
         let (_, press, dropped) = self.press(&mut filter, false)?;
         let stayed_active = ended.is_none() && !dropped;
         let second = match self.hold(&mut filter, None)? {
-            Some(hold) => self.judge(press, Some(0), hold, filter.glitches, dropped),
+            // The output was on before this press: no latency to judge.
+            Some(hold) => Measurement { on_ticks: Some(0), ..self.judge(press, None, hold, filter.glitches, dropped) },
             None => self.outcome(press, Some(0), None, filter.glitches, Verdict::StuckActive),
         };
         Ok(Retrigger { stayed_active, second })

@@ -20,6 +20,12 @@ pub enum Verdict {
     NotIdle,
     /// The output changed level more often than the chatter limit allows.
     Chatter,
+    /// The hold passes but the output turned on sooner than the turn-on
+    /// latency window allows.
+    FastStart,
+    /// The hold passes but the output turned on later than the turn-on
+    /// latency window allows.
+    SlowStart,
 }
 
 impl Verdict {
@@ -35,6 +41,37 @@ impl Verdict {
         } else {
             Verdict::WithinWindow
         }
+    }
+
+    /// The verdict of a completed measurement from its two windows (the one
+    /// rule; the engine and the host's re-check both judge by it): the hold
+    /// decides first ([`Verdict::of_hold`]); a passing hold then needs a
+    /// turn-on latency `on_ticks` inside `on_min_ticks ..= on_max_ticks`
+    /// (below: fast start, above: slow start). `on_ticks` `None` leaves the
+    /// latency unjudged (a retriggered hold, a log without it).
+    #[must_use]
+    pub const fn of_times(
+        on_ticks: Option<u64>,
+        hold_ticks: u64,
+        on_min_ticks: u64,
+        on_max_ticks: u64,
+        min_ticks: u64,
+        max_ticks: u64,
+    ) -> Verdict {
+        let v = Verdict::of_hold(hold_ticks, min_ticks, max_ticks);
+        match (v, on_ticks) {
+            (Verdict::WithinWindow, Some(on)) if on < on_min_ticks => Verdict::FastStart,
+            (Verdict::WithinWindow, Some(on)) if on > on_max_ticks => Verdict::SlowStart,
+            _ => v,
+        }
+    }
+
+    /// Whether the verdict was decided by the windows, from a measured hold
+    /// (within window, short, long, fast start, slow start): a record with
+    /// one of these has a hold, the others have none to judge.
+    #[must_use]
+    pub const fn needs_hold(self) -> bool {
+        matches!(self, Verdict::WithinWindow | Verdict::Short | Verdict::Long | Verdict::FastStart | Verdict::SlowStart)
     }
 
     /// Whether the board passes.
@@ -54,6 +91,8 @@ impl Verdict {
             Verdict::StuckActive => "stuck-active",
             Verdict::NotIdle => "not-idle",
             Verdict::Chatter => "chatter",
+            Verdict::FastStart => "fast-start",
+            Verdict::SlowStart => "slow-start",
         }
     }
 }
@@ -78,6 +117,12 @@ pub enum Hint {
     OpenResistorOrShortedNode,
     /// The output is noisy near the threshold (slow edge on a plain input, or interference).
     NoisyOutput,
+    /// The turn-on latency is off while the hold is not: the charge path
+    /// (driver, diode, a resistor in series with the capacitor).
+    ChargePath,
+    /// The hold is off while the turn-on latency is not: the discharge path
+    /// (the resistor, or the input's falling threshold), not the capacitor.
+    DischargePath,
 }
 
 impl Hint {
@@ -93,6 +138,45 @@ impl Hint {
             Hint::NoChargePath => "no-charge-path",
             Hint::OpenResistorOrShortedNode => "open-resistor-or-shorted-node",
             Hint::NoisyOutput => "noisy-output",
+            Hint::ChargePath => "charge-path",
+            Hint::DischargePath => "discharge-path",
+        }
+    }
+
+    /// The cause suggested by a hold *and* a turn-on latency. Both scale with
+    /// C, so a wrong capacitor moves them together; a wrong discharge
+    /// resistor moves only the hold, a wrong charge path only the latency.
+    /// `hold_dev_ppm` is the capacitance the hold implies (deviation from
+    /// nominal, ppm) and `on_ratio_ppm` the measured over the nominal
+    /// latency (ppm of 1, `None` when the latency is too coarse to tell).
+    /// For a failing hold (`start_failed` false) the capacitor competes with
+    /// the discharge path; for a failing latency with the charge path; the
+    /// explanation needing the smaller ratio of predicted to measured wins,
+    /// and a capacitor gets [`Hint::from_deviation_ppm`] of the failing
+    /// measurement.
+    #[must_use]
+    pub const fn from_times(hold_dev_ppm: i64, on_ratio_ppm: Option<u64>, start_failed: bool) -> Hint {
+        let hold_ppm = 1_000_000 + hold_dev_ppm;
+        let Some(on_ppm) = on_ratio_ppm else {
+            return Hint::from_deviation_ppm(hold_dev_ppm);
+        };
+        if hold_ppm <= 0 || on_ppm == 0 {
+            return Hint::from_deviation_ppm(hold_dev_ppm);
+        }
+        let hold_ppm = hold_ppm as u64;
+        // A capacitor predicts equal ratios; the other path predicts 1 for
+        // the measurement that passed.
+        let by_capacitor = spread_ppm(hold_ppm, on_ppm);
+        if start_failed {
+            if spread_ppm(hold_ppm, 1_000_000) < by_capacitor {
+                return Hint::ChargePath;
+            }
+            Hint::from_deviation_ppm(on_ppm as i64 - 1_000_000)
+        } else {
+            if spread_ppm(on_ppm, 1_000_000) < by_capacitor {
+                return Hint::DischargePath;
+            }
+            Hint::from_deviation_ppm(hold_dev_ppm)
         }
     }
 
@@ -116,6 +200,12 @@ impl Hint {
     }
 }
 
+/// The larger of two positive ratios over the smaller, ppm (≥ 1 000 000).
+const fn spread_ppm(a: u64, b: u64) -> u64 {
+    let (hi, lo) = if a > b { (a, b) } else { (b, a) };
+    (hi as u128 * 1_000_000 / lo as u128) as u64
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -128,5 +218,28 @@ mod tests {
         assert_eq!(Hint::from_deviation_ppm(400_000), Hint::AgedOrWrongTolerance);
         assert_eq!(Hint::from_deviation_ppm(-120_000), Hint::NearTheEdge);
         assert_eq!(Hint::from_deviation_ppm(2_000_000), Hint::WrongPart); // ×3
+    }
+
+    #[test]
+    fn hold_and_latency_tell_the_parts_apart() {
+        // C ×0.47: both drop together.
+        assert_eq!(Hint::from_times(-530_000, Some(470_000), true), Hint::AgedOrWrongTolerance);
+        // C ×0.1 read through a short hold.
+        assert_eq!(Hint::from_times(-900_000, Some(100_000), false), Hint::WrongPart);
+        // R ×0.1: the hold drops, the latency does not.
+        assert_eq!(Hint::from_times(-900_000, Some(1_010_000), false), Hint::DischargePath);
+        // A slow driver: the latency doubles, the hold does not move.
+        assert_eq!(Hint::from_times(20_000, Some(2_000_000), true), Hint::ChargePath);
+        // No usable latency: the capacitance alone.
+        assert_eq!(Hint::from_times(-900_000, None, false), Hint::WrongPart);
+    }
+
+    #[test]
+    fn the_hold_decides_before_the_latency() {
+        assert_eq!(Verdict::of_times(Some(5), 100, 10, 20, 50, 150), Verdict::FastStart);
+        assert_eq!(Verdict::of_times(Some(25), 100, 10, 20, 50, 150), Verdict::SlowStart);
+        assert_eq!(Verdict::of_times(Some(15), 100, 10, 20, 50, 150), Verdict::WithinWindow);
+        assert_eq!(Verdict::of_times(Some(5), 40, 10, 20, 50, 150), Verdict::Short);
+        assert_eq!(Verdict::of_times(None, 100, 10, 20, 50, 150), Verdict::WithinWindow);
     }
 }

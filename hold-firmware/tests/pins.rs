@@ -58,6 +58,10 @@ fn config() -> Config {
         hold_max_ticks: 8,
         hold_timeout_ticks: 20,
         chatter_limit: 2,
+        on_min_ticks: 0,
+        on_max_ticks: 4,
+        on_nominal_ticks: 0,
+        on_poll_ns: 1_000_000,
     }
 }
 

@@ -233,7 +233,9 @@ impl Corner {
     }
 }
 
-/// Minimum and maximum hold over all corners, and the corners that give them.
+/// Minimum and maximum hold over all corners, and the corners that give
+/// them; and the turn-on latency (press to output active) at the nominal
+/// point and its extremes over the same corners.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Window {
@@ -249,6 +251,12 @@ pub struct Window {
     pub max_corner: Corner,
     /// Number of corners evaluated.
     pub corners: u32,
+    /// Turn-on latency at nominal values.
+    pub on_nominal: Span,
+    /// Shortest turn-on latency over the corners.
+    pub on_min: Span,
+    /// Longest turn-on latency over the corners.
+    pub on_max: Span,
 }
 
 /// A corner the model could not evaluate, and why.
@@ -432,26 +440,31 @@ impl Spread {
     pub fn window(&self, nominal: &Stage) -> Result<Window, CornerFailure> {
         let active = self.active();
         let fail = |corner, error| CornerFailure { corner, error };
-        let nominal_hold = Model::new(nominal).and_then(|m| m.evaluate()).map_err(|e| fail(Corner::default(), e))?.hold;
+        let at_nominal = Model::new(nominal).and_then(|m| m.evaluate()).map_err(|e| fail(Corner::default(), e))?;
         let mut w = Window {
-            nominal: nominal_hold,
-            min: nominal_hold,
+            nominal: at_nominal.hold,
+            min: at_nominal.hold,
             min_corner: Corner::default(),
-            max: nominal_hold,
+            max: at_nominal.hold,
             max_corner: Corner::default(),
             corners: 0,
+            on_nominal: at_nominal.on_latency,
+            on_min: at_nominal.on_latency,
+            on_max: at_nominal.on_latency,
         };
         // Enumerate the subsets of `active` (Gosper-free: walk high = (high − active) & active).
         let mut high: u16 = 0;
         loop {
             let corner = Corner { high, active };
-            let hold = self
+            let e = self
                 .at_corner(nominal, corner)
                 .and_then(|s| Model::new(&s))
                 .and_then(|m| m.evaluate())
-                .map_err(|e| fail(corner, e))?
-                .hold;
+                .map_err(|e| fail(corner, e))?;
+            let hold = e.hold;
             w.corners += 1;
+            w.on_min = w.on_min.min(e.on_latency);
+            w.on_max = w.on_max.max(e.on_latency);
             if hold < w.min {
                 w.min = hold;
                 w.min_corner = corner;

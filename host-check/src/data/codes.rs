@@ -6,7 +6,7 @@ use hold_firmware::drift::DriftState;
 use hold_firmware::{Hint, Verdict};
 
 /// Verdicts in code order (code = index).
-pub const VERDICTS: [Verdict; 7] = [
+pub const VERDICTS: [Verdict; 9] = [
     Verdict::WithinWindow,
     Verdict::Short,
     Verdict::Long,
@@ -14,10 +14,12 @@ pub const VERDICTS: [Verdict; 7] = [
     Verdict::StuckActive,
     Verdict::NotIdle,
     Verdict::Chatter,
+    Verdict::FastStart,
+    Verdict::SlowStart,
 ];
 
 /// Hints in code order (code = index).
-pub const HINTS: [Hint; 8] = [
+pub const HINTS: [Hint; 10] = [
     Hint::None,
     Hint::WrongPart,
     Hint::AgedOrWrongTolerance,
@@ -26,6 +28,8 @@ pub const HINTS: [Hint; 8] = [
     Hint::NoChargePath,
     Hint::OpenResistorOrShortedNode,
     Hint::NoisyOutput,
+    Hint::ChargePath,
+    Hint::DischargePath,
 ];
 
 /// Drift states in code order (code = index).
@@ -82,32 +86,13 @@ pub fn drift_of(code: i64) -> Option<DriftState> {
 /// The verdict of a name (`within-window`, `short` …).
 #[must_use]
 pub fn verdict_named(name: &[u8]) -> Option<Verdict> {
-    Some(match name {
-        b"within-window" => Verdict::WithinWindow,
-        b"short" => Verdict::Short,
-        b"long" => Verdict::Long,
-        b"no-response" => Verdict::NoResponse,
-        b"stuck-active" => Verdict::StuckActive,
-        b"not-idle" => Verdict::NotIdle,
-        b"chatter" => Verdict::Chatter,
-        _ => return None,
-    })
+    VERDICTS.iter().find(|v| v.name().as_bytes() == name).copied()
 }
 
 /// The hint of a name (`none`, `wrong-part` …).
 #[must_use]
 pub fn hint_named(name: &[u8]) -> Option<Hint> {
-    Some(match name {
-        b"none" => Hint::None,
-        b"wrong-part" => Hint::WrongPart,
-        b"aged-or-wrong-tolerance" => Hint::AgedOrWrongTolerance,
-        b"near-the-edge" => Hint::NearTheEdge,
-        b"open-capacitor" => Hint::OpenCapacitorOrDiode,
-        b"no-charge-path" => Hint::NoChargePath,
-        b"open-resistor-or-shorted-node" => Hint::OpenResistorOrShortedNode,
-        b"noisy-output" => Hint::NoisyOutput,
-        _ => return None,
-    })
+    HINTS.iter().find(|h| h.name().as_bytes() == name).copied()
 }
 
 /// The drift state of a name (`settling`, `steady`, `drifting`, `beyond-limit`).
@@ -158,7 +143,44 @@ mod tests {
             assert_eq!(drift_of(i64::from(drift_code(d))), Some(d));
             assert_eq!(drift_named(drift_name(d).as_bytes()), Some(d));
         }
-        assert_eq!(verdict_of(7), None);
+        assert_eq!(verdict_of(9), None);
         assert_eq!(verdict_of(-1), None);
+    }
+
+    /// Codes never change meaning: stores and logs written by every earlier
+    /// release read the same.
+    #[test]
+    fn codes_are_pinned() {
+        let verdicts: Vec<&str> = VERDICTS.iter().map(|v| v.name()).collect();
+        assert_eq!(
+            verdicts,
+            [
+                "within-window",
+                "short",
+                "long",
+                "no-response",
+                "stuck-active",
+                "not-idle",
+                "chatter",
+                "fast-start",
+                "slow-start"
+            ]
+        );
+        let hints: Vec<&str> = HINTS.iter().map(|h| h.name()).collect();
+        assert_eq!(
+            hints,
+            [
+                "none",
+                "wrong-part",
+                "aged-or-wrong-tolerance",
+                "near-the-edge",
+                "open-capacitor",
+                "no-charge-path",
+                "open-resistor-or-shorted-node",
+                "noisy-output",
+                "charge-path",
+                "discharge-path"
+            ]
+        );
     }
 }

@@ -291,10 +291,10 @@ pub fn parse_fields_cached<'a>(
             .filter(|&v| v >= -1_000_000)
             .ok_or_else(|| ("c_dev_ppm", format!("{} is not a whole number in range (accepted: {range})", text(b))))
     })?;
-    if hold_ticks.is_none() && matches!(verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) {
+    if hold_ticks.is_none() && verdict.needs_hold() {
         return Err((
             "hold_ticks",
-            format!("is empty but verdict is {} (accepted: a hold for within-window, short and long)", verdict.name()),
+            format!("is empty but verdict is {} (accepted: a hold for within-window, short, long, fast-start and slow-start)", verdict.name()),
         ));
     }
     Ok(Line {

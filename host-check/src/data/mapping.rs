@@ -269,9 +269,7 @@ impl Mapping {
                     bad("verdict", word, &format!("{}, or empty", words.join(", ")))
                 })?)
             };
-            if hold_ticks.is_none()
-                && judged.is_none_or(|v| matches!(v, Verdict::WithinWindow | Verdict::Short | Verdict::Long))
-            {
+            if hold_ticks.is_none() && judged.is_none_or(Verdict::needs_hold) {
                 return Err(bad("hold_ticks", "", "a hold for this verdict"));
             }
             let line = Line {

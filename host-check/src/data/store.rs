@@ -27,10 +27,10 @@ use sha2::{Digest as _, Sha256};
 use crate::data::codes;
 
 /// The schema version this build writes.
-pub const SCHEMA_VERSION: u32 = 2;
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// Migrations: entry `i` moves a database from version `i` to `i + 1`.
-const MIGRATIONS: [&str; 2] = [
+const MIGRATIONS: [&str; 3] = [
     // 0 → 1: the tables.
     "CREATE TABLE setup (
         id INTEGER PRIMARY KEY,
@@ -79,6 +79,10 @@ const MIGRATIONS: [&str; 2] = [
      CREATE TABLE drift (code INTEGER PRIMARY KEY, name TEXT NOT NULL);",
     // 1 → 2: date-range queries without a full scan.
     "CREATE INDEX measurement_time ON measurement (measured_ms);",
+    // 2 → 3: the turn-on latency verdicts and the hints that tell the charge
+    // and discharge paths from the capacitor (codes are only ever appended).
+    "INSERT OR IGNORE INTO verdict VALUES (7, 'fast-start'), (8, 'slow-start');
+     INSERT OR IGNORE INTO hint VALUES (8, 'charge-path'), (9, 'discharge-path');",
 ];
 
 /// One source of records in the store: a stream `listen` read or a log
@@ -784,6 +788,10 @@ mod tests {
                 Connection::open(&path).map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
             let mut s = Store { conn, path: path.clone() };
             assert_eq!(s.migrate_to(1)?, 1);
+            // The first release knew seven verdicts and eight hints.
+            s.conn
+                .execute_batch("DELETE FROM verdict WHERE code >= 7; DELETE FROM hint WHERE code >= 8;")
+                .map_err(|e| s.err(e))?;
             let src = s.begin_stream("old", 0)?;
             let mut b = s.batch()?;
             let st = b.station("s")?;
@@ -791,8 +799,17 @@ mod tests {
             b.commit(src, 0, 0)?;
         }
         let s = Store::open(&path)?;
-        assert_eq!(s.schema_version()?, 2);
+        assert_eq!(s.schema_version()?, SCHEMA_VERSION);
         assert_eq!(s.count()?, 1);
+        // Every code has its name again, in code order.
+        for (table, names) in [
+            ("verdict", codes::VERDICTS.iter().map(|v| v.name()).collect::<Vec<_>>()),
+            ("hint", codes::HINTS.iter().map(|h| h.name()).collect()),
+        ] {
+            let mut q = s.conn.prepare(&format!("SELECT name FROM {table} ORDER BY code")).map_err(|e| s.err(e))?;
+            let got: Vec<String> = q.query_map([], |r| r.get(0)).and_then(Iterator::collect).map_err(|e| s.err(e))?;
+            assert_eq!(got, names, "{table}");
+        }
         let idx: i64 = s
             .conn
             .query_row("SELECT count(*) FROM sqlite_master WHERE name = 'measurement_time'", [], |r| r.get(0))

@@ -45,7 +45,8 @@ pub fn settings(sf: &StageFile, purpose: Purpose, clock_hz: u32, guard_ppm: u32,
 }
 
 /// The poll period a tester uses when none is given: 1/1000 of the nominal
-/// hold, within 1 µs … 1 s, in ns.
+/// hold, within 1 µs … 1 s, in ns. (While it waits for the output to turn
+/// on, the engine polls faster: `hold_firmware::on_poll_ns`.)
 ///
 /// # Errors
 /// The stage file's error when the nominal stage cannot be evaluated.
@@ -78,12 +79,16 @@ pub fn render(setup: &Setup, purpose: Purpose, emit: Emit, name: &str) -> String
             };
             row(&mut o, "pass from", c.hold_min_ticks);
             row(&mut o, "pass to", c.hold_max_ticks);
+            row(&mut o, "turn-on from", c.on_min_ticks);
+            row(&mut o, "turn-on to", c.on_max_ticks);
+            row(&mut o, "turn-on (nominal)", c.on_nominal_ticks);
             row(&mut o, "press", c.press_ticks);
             row(&mut o, "turn-on timeout", c.on_timeout_ticks);
             row(&mut o, "hold timeout", c.hold_timeout_ticks);
             row(&mut o, "idle check", c.settle_ticks);
             row(&mut o, "glitch filter", c.glitch_ticks);
             let _ = writeln!(o, "  {:<22} {:>14} ns", "poll every", c.poll_ns);
+            let _ = writeln!(o, "  {:<22} {:>14} ns", "until turn-on every", c.on_poll_ns);
             let _ = writeln!(o, "  {:<22} {:>14} level changes", "chatter above", c.chatter_limit);
             let _ = writeln!(
                 o,
@@ -99,7 +104,7 @@ pub fn render(setup: &Setup, purpose: Purpose, emit: Emit, name: &str) -> String
              pub const HOLD_WINDOW: hold_firmware::Config = hold_firmware::Config {{\n    \
              clock_hz: {},\n    settle_ticks: {},\n    press_ticks: {},\n    glitch_ticks: {},\n    poll_ns: {},\n    \
              on_timeout_ticks: {},\n    hold_min_ticks: {},\n    hold_max_ticks: {},\n    hold_timeout_ticks: {},\n    \
-             chatter_limit: {},\n}};\n\n\
+             chatter_limit: {},\n    on_min_ticks: {},\n    on_max_ticks: {},\n    on_nominal_ticks: {},\n    on_poll_ns: {},\n}};\n\n\
              /// The same timings and the stage prepared for the hot path, as the settings blob:\n\
              /// `hold_firmware::Setup::from_blob(&HOLD_SETUP)` (CRC-checked, versioned).\n\
              pub const HOLD_SETUP: [u8; hold_firmware::BLOB_LEN] = [{}];\n",
@@ -115,6 +120,10 @@ pub fn render(setup: &Setup, purpose: Purpose, emit: Emit, name: &str) -> String
             c.hold_max_ticks,
             c.hold_timeout_ticks,
             c.chatter_limit,
+            c.on_min_ticks,
+            c.on_max_ticks,
+            c.on_nominal_ticks,
+            c.on_poll_ns,
             setup.to_blob().iter().map(|b| format!("{b:#04x}")).collect::<Vec<_>>().join(", ")
         ),
         Emit::Json | Emit::Bin => {
@@ -132,8 +141,14 @@ pub fn render(setup: &Setup, purpose: Purpose, emit: Emit, name: &str) -> String
                 "hold_max_ticks": c.hold_max_ticks,
                 "hold_timeout_ticks": c.hold_timeout_ticks,
                 "chatter_limit": c.chatter_limit,
+                "on_min_ticks": c.on_min_ticks,
+                "on_max_ticks": c.on_max_ticks,
+                "on_nominal_ticks": c.on_nominal_ticks,
+                "on_poll_ns": c.on_poll_ns,
                 "hold_min_s": secs(c.hold_min_ticks),
                 "hold_max_s": secs(c.hold_max_ticks),
+                "on_min_s": secs(c.on_min_ticks),
+                "on_max_s": secs(c.on_max_ticks),
                 "prepared_stage": {
                     "hold_at_reference_ticks": hold_ref,
                     "reference_mdeg_c": stage.ref_mdeg_c(),
@@ -161,6 +176,30 @@ mod tests {
         assert!(wide.hold_min_ticks < tight.hold_min_ticks && wide.hold_max_ticks > tight.hold_max_ticks);
         assert!(render(&settings(&sf, Purpose::Fixture, 1_000_000, 20_000, poll)?, Purpose::Fixture, Emit::Text, "t")
             .contains("pass from"));
+        // The turn-on latency window holds the nominal latency and widens too.
+        assert!(tight.on_min_ticks <= tight.on_nominal_ticks && tight.on_nominal_ticks <= tight.on_max_ticks);
+        assert!(wide.on_min_ticks <= tight.on_min_ticks && wide.on_max_ticks > tight.on_max_ticks);
+        Ok(())
+    }
+
+    /// The Rust constant `window --emit rust` writes names every field of
+    /// `Config` (a missing one would not compile in the user's firmware).
+    #[test]
+    fn the_rust_constant_names_every_field() -> Result<(), Error> {
+        let sf = crate::testing::example();
+        let setup = settings(&sf, Purpose::Fixture, 1_000_000, 20_000, default_poll_ns(&sf)?)?;
+        let text = render(&setup, Purpose::Fixture, Emit::Rust, "t");
+        let c = setup.config;
+        for (field, v) in [
+            ("hold_min_ticks", c.hold_min_ticks),
+            ("on_min_ticks", c.on_min_ticks),
+            ("on_max_ticks", c.on_max_ticks),
+            ("on_nominal_ticks", c.on_nominal_ticks),
+            ("on_poll_ns", u64::from(c.on_poll_ns)),
+            ("chatter_limit", u64::from(c.chatter_limit)),
+        ] {
+            assert!(text.contains(&format!("    {field}: {v},\n")), "{field} missing:\n{text}");
+        }
         Ok(())
     }
 }

@@ -52,72 +52,101 @@ pub struct RecheckWindow {
     /// The stored window is not the stage file's (set by hand, as on field
     /// units that accept any hold): verdicts are judged against the stored one.
     pub custom: bool,
+    /// Shortest corner turn-on latency, s (reference).
+    pub on_min_s: f64,
+    /// Longest corner turn-on latency, s (reference).
+    pub on_max_s: f64,
+    /// Passing turn-on latencies from, ticks (reference, widened).
+    pub on_min_ticks: u64,
+    /// Passing turn-on latencies to, ticks.
+    pub on_max_ticks: u64,
 }
 
 struct Checker {
     window: RecheckWindow,
     stage: StageF,
     clock_hz: f64,
+    /// Turn-on latency of the nominal stage, s.
+    on_nominal_s: f64,
+    /// The shortest nominal latency, ticks, that tells parts apart (ten polls and a tick).
+    resolution_ticks: u64,
 }
 
-/// The shortest and longest hold over every corner of `spread`, by the
-/// `f64` reference, s.
-fn corner_holds(sf: &StageFile, spread: &rc_model::window::Spread) -> Result<(f64, f64), String> {
+/// The shortest and longest hold and turn-on latency over every corner of
+/// `spread`, by the `f64` reference, s.
+#[derive(Debug, Clone, Copy)]
+struct CornerTimes {
+    hold: (f64, f64),
+    on: (f64, f64),
+}
+
+fn corner_times(sf: &StageFile, spread: &rc_model::window::Spread) -> Result<CornerTimes, String> {
     let active = spread.active();
-    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    let mut t = CornerTimes { hold: (f64::INFINITY, f64::NEG_INFINITY), on: (f64::INFINITY, f64::NEG_INFINITY) };
     let mut high: u16 = 0;
     loop {
         let s = spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
-        let h = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?.hold;
-        lo = lo.min(h);
-        hi = hi.max(h);
+        let e = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?;
+        t.hold = (t.hold.0.min(e.hold), t.hold.1.max(e.hold));
+        t.on = (t.on.0.min(e.on_latency), t.on.1.max(e.on_latency));
         if high == active {
             break;
         }
         high = high.wrapping_sub(active) & active;
     }
-    Ok((lo, hi))
+    Ok(t)
 }
 
 impl Checker {
-    /// Builds the `f64` window of a setup: the same corners (the spread's
+    /// Builds the `f64` windows of a setup: the same corners (the spread's
     /// parameter extremes), each evaluated by the reference; widened by the
     /// guard, one poll and one tick on each side as `Config::from_window` does.
     fn new(setup: &Setup) -> Result<Checker, String> {
         let sf = stagefile::parse(Path::new(&setup.name), &setup.stage_toml).map_err(|e| e.to_string())?;
         let clock = f64::from(setup.clock_hz);
         let poll = hold_firmware::poll_ticks(setup.poll_ns, setup.clock_hz);
+        let ticks = |s: f64| (s * clock).round() as u64;
         // The stored window is the fixture's or the field's: recompute both, keep the one it is.
         let mut best = None;
         for purpose in [Purpose::Fixture, Purpose::Field] {
-            let (lo, hi) = corner_holds(&sf, &sf.spread_for(purpose))?;
-            let (min_t, max_t) = ((lo * clock).round() as u64, (hi * clock).round() as u64);
-            let (ref_min, ref_max) = hold_firmware::widen(min_t, max_t, setup.guard_ppm, poll);
+            let t = corner_times(&sf, &sf.spread_for(purpose))?;
+            let (ref_min, ref_max) = hold_firmware::widen(ticks(t.hold.0), ticks(t.hold.1), setup.guard_ppm, poll);
             // Rounding may move an edge by a tick; more than that is another window.
             let matches = ref_min.abs_diff(setup.hold_min_ticks) <= 2 && ref_max.abs_diff(setup.hold_max_ticks) <= 2;
             if matches || best.is_none() {
-                best = Some((purpose, lo, hi, ref_min, ref_max, !matches));
+                best = Some((purpose, t, ref_min, ref_max, !matches));
             }
             if matches {
                 break;
             }
         }
-        let Some((purpose, lo, hi, ref_min, ref_max, custom)) = best else {
+        let Some((purpose, t, ref_min, ref_max, custom)) = best else {
             return Err("no window".into());
         };
+        let nominal = reference::evaluate(&StageF::from(&sf.stage)).map_err(|e| format!("{e:?}"))?;
+        // Until turn-on the firmware polls finer; its latency window is widened by that poll.
+        let on_poll_ns = hold_firmware::on_poll_ns((nominal.on_latency * 1e9) as u64, setup.poll_ns, setup.clock_hz);
+        let on_poll = hold_firmware::poll_ticks(on_poll_ns, setup.clock_hz);
+        let (on_min, on_max) = hold_firmware::widen(ticks(t.on.0), ticks(t.on.1), setup.guard_ppm, on_poll);
         Ok(Checker {
             window: RecheckWindow {
                 setup: setup.name.clone(),
                 purpose,
-                min_s: lo,
-                max_s: hi,
+                min_s: t.hold.0,
+                max_s: t.hold.1,
                 hold_min_ticks: ref_min,
                 hold_max_ticks: ref_max,
                 stored_ticks: (setup.hold_min_ticks, setup.hold_max_ticks),
                 custom,
+                on_min_s: t.on.0,
+                on_max_s: t.on.1,
+                on_min_ticks: on_min,
+                on_max_ticks: on_max,
             },
             stage: StageF::from(&sf.stage),
             clock_hz: clock,
+            on_nominal_s: nominal.on_latency,
+            resolution_ticks: (on_poll + 1) * 10,
         })
     }
 
@@ -128,21 +157,35 @@ impl Checker {
         Some((c / self.stage.c - 1.0) * 1e6)
     }
 
-    /// The verdict and hint the reference gives a hold, for the verdicts a
-    /// hold alone decides (within window, short, long).
-    fn judge(&self, hold_ticks: u64) -> (Verdict, Hint) {
+    /// A latency over the nominal one, ppm, when the nominal latency is at
+    /// least ten polls (and a tick) long — the firmware's rule
+    /// (`Config::on_ratio_ppm`).
+    fn on_ratio_ppm(&self, on_ticks: u64) -> Option<u64> {
+        let nominal = self.on_nominal_s * self.clock_hz;
+        (nominal.round() as u64 >= self.resolution_ticks && nominal > 0.0)
+            .then(|| (on_ticks as f64 / nominal * 1e6).round() as u64)
+    }
+
+    /// The verdict and hint the reference gives a hold and a turn-on
+    /// latency (`None`: not judged), for the verdicts the windows decide.
+    /// A custom (hand-set) window judges no latency.
+    fn judge(&self, on_ticks: Option<u64>, hold_ticks: u64) -> (Verdict, Hint) {
         let w = &self.window;
         let (min, max) = if w.custom { w.stored_ticks } else { (w.hold_min_ticks, w.hold_max_ticks) };
-        let v = Verdict::of_hold(hold_ticks, min, max);
+        let on = if w.custom { None } else { on_ticks };
+        let v = Verdict::of_times(on, hold_ticks, w.on_min_ticks, w.on_max_ticks, min, max);
         if v.passes() {
             return (v, Hint::None);
         }
-        if hold_ticks.saturating_mul(20) < min {
+        let start_failed = matches!(v, Verdict::FastStart | Verdict::SlowStart);
+        if !start_failed && hold_ticks.saturating_mul(20) < min {
             return (v, Hint::OpenCapacitorOrDiode);
         }
-        let hint = match reference::inverse_c(&self.stage, hold_ticks as f64 / self.clock_hz) {
-            Ok(c) => Hint::from_deviation_ppm(((c / self.stage.c - 1.0) * 1e6).round() as i64),
-            Err(_) => Hint::WrongPart,
+        let ratio = on.and_then(|t| self.on_ratio_ppm(t));
+        let hint = match self.implied_c_ppm(hold_ticks) {
+            Some(dev) => Hint::from_times(dev.round() as i64, ratio, start_failed),
+            None if start_failed => Hint::ChargePath,
+            None => Hint::WrongPart,
         };
         (v, hint)
     }
@@ -186,10 +229,12 @@ impl HoldJudge {
             return Err("hold_ticks is empty: there is no hold to judge".into());
         };
         if line.verdict_empty {
-            r.verdict = Verdict::of_hold(hold, self.window.0, self.window.1);
+            let w = &self.checker.window;
+            let on = if w.custom { None } else { r.on_ticks };
+            r.verdict = Verdict::of_times(on, hold, w.on_min_ticks, w.on_max_ticks, self.window.0, self.window.1);
         }
         if line.hint_empty {
-            r.hint = if r.verdict.passes() { Hint::None } else { self.checker.judge(hold).1 };
+            r.hint = if r.verdict.passes() { Hint::None } else { self.checker.judge(r.on_ticks, hold).1 };
         }
         line.verdict_empty = false;
         line.hint_empty = false;
@@ -217,7 +262,7 @@ pub struct Group {
     /// Measurements.
     pub total: u64,
     /// Count per verdict, in the order of [`codes::VERDICTS`].
-    pub verdicts: [u64; 7],
+    pub verdicts: [u64; codes::VERDICTS.len()],
     /// Hold, s, of the boards without a gross fault (verdict within window,
     /// short or long, hint not wrong part or open capacitor).
     pub hold_s: Moments,
@@ -251,7 +296,7 @@ impl Group {
         Group {
             name: name.to_owned(),
             total: 0,
-            verdicts: [0; 7],
+            verdicts: [0; codes::VERDICTS.len()],
             hold_s: Moments::default(),
             gross: 0,
             window_s: None,
@@ -301,7 +346,7 @@ impl Group {
             *c += 1;
         }
         let Some(hold) = r.hold_ticks else { return };
-        if !matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long) {
+        if !r.verdict.needs_hold() {
             return;
         }
         if gross {
@@ -410,6 +455,8 @@ pub struct Disagreement {
     pub seq: u32,
     /// Hold, ticks.
     pub hold_ticks: u64,
+    /// Turn-on latency, ticks, when measured.
+    pub on_ticks: Option<u64>,
     /// Firmware verdict and hint.
     pub firmware: (&'static str, &'static str),
     /// Reference verdict and hint.
@@ -612,9 +659,9 @@ impl Tally {
         // The re-check's own judgement, where there is a stage: its hint decides what is a
         // gross fault; a reject that carries no C deviation gets the one it implies.
         let checker = setup_id.and_then(|id| self.checkers.get(&id));
-        let decided = matches!(r.verdict, Verdict::WithinWindow | Verdict::Short | Verdict::Long);
+        let decided = r.verdict.needs_hold();
         let judged = match (checker, r.hold_ticks) {
-            (Some(c), Some(h)) if decided => Some(c.judge(h)),
+            (Some(c), Some(h)) if decided => Some(c.judge(r.on_ticks, h)),
             _ => None,
         };
         let hint = judged.map_or(r.hint, |(_, h)| h);
@@ -709,6 +756,7 @@ impl Tally {
                             unit: r.unit_id,
                             seq: r.seq,
                             hold_ticks: h,
+                            on_ticks: r.on_ticks,
                             firmware: (r.verdict.name(), r.hint.name()),
                             reference: (v.name(), hint.name()),
                             hint_only: verdict_agrees,
@@ -1018,11 +1066,13 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             for w in &rc.windows {
                 let _ = writeln!(
                     o,
-                    "    {}: reference {} window {} … {} ticks, firmware window {} … {} ticks{}",
+                    "    {}: reference {} window {} … {} ticks (turn-on {} … {} ticks), firmware window {} … {} ticks{}",
                     w.setup,
                     w.purpose.name(),
                     w.hold_min_ticks,
                     w.hold_max_ticks,
+                    w.on_min_ticks,
+                    w.on_max_ticks,
                     w.stored_ticks.0,
                     w.stored_ticks.1,
                     if w.custom { " (set by hand: verdicts judged against it)" } else { "" }
@@ -1041,11 +1091,12 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             for d in rc.disagreements.iter().take(max_rows) {
                 let _ = writeln!(
                     o,
-                    "    {} unit {} seq {} hold {} ticks: firmware {}/{}, reference {}/{}{}",
+                    "    {} unit {} seq {} hold {} ticks{}: firmware {}/{}, reference {}/{}{}",
                     d.station,
                     d.unit,
                     d.seq,
                     d.hold_ticks,
+                    d.on_ticks.map_or_else(String::new, |t| format!(", turn-on {t}")),
                     d.firmware.0,
                     d.firmware.1,
                     d.reference.0,

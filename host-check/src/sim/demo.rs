@@ -28,7 +28,7 @@ use hold_firmware::{Config, Measurement, Tester};
 use rand::{Rng, SeedableRng};
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rayon::prelude::*;
-use rc_model::{Model, Prepared, Span, Stage};
+use rc_model::{Prepared, Span, Stage};
 
 use crate::data::collect::{self, Ingested, Labels, TimeRule};
 use crate::data::store::{Filter, Setup, Store};
@@ -226,8 +226,7 @@ fn framed(records: &[Record], rng: &mut Xoshiro256PlusPlus, every: u64, noise: u
 
 fn fixture_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Record>, Setup), Error> {
     let sf = stage_file("lumen-keypad.toml", BOARD_TOML)?;
-    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(sim)?;
-    let poll_ns = (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32;
+    let poll_ns = crate::design::window::default_poll_ns(&sf)?;
     let (setup, config, model) = setup_of(&sf, Purpose::Fixture, "lumen-keypad.toml", BOARD_TOML, poll_ns)?;
     let plan = fault_plan();
     // About one board in 80 has a fault, spread through the run.
@@ -283,13 +282,14 @@ fn unit_profile(seed: u64, unit: u32) -> (f64, f64) {
 
 fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>, Setup), Error> {
     let sf = stage_file("kestrel-meter.toml", METER_TOML)?;
-    let nominal = Model::new(&sf.stage).and_then(|m| m.evaluate()).map_err(sim)?;
-    let poll_ns = (nominal.hold.ns() / 1000).clamp(1_000, 1_000_000_000) as u32;
+    let poll_ns = crate::design::window::default_poll_ns(&sf)?;
     let (mut setup, mut config, model) = setup_of(&sf, Purpose::Field, "kestrel-meter.toml", METER_TOML, poll_ns)?;
     // A field unit tracks drift, not a production window: it accepts any
     // hold up to its timeout and reports the deviation; its setup says so.
     config.hold_min_ticks = 0;
     config.hold_max_ticks = config.hold_timeout_ticks.saturating_sub(1);
+    config.on_min_ticks = 0;
+    config.on_max_ticks = config.on_timeout_ticks;
     setup.hold_min_ticks = config.hold_min_ticks;
     setup.hold_max_ticks = config.hold_max_ticks;
     let (tlo, thi) = sf.spread.temp_mdeg_c.unwrap_or(rc_model::limits::TEMP_MDEG_C);

@@ -26,8 +26,8 @@ const START: &[u8] = b"2027-01-04T06:00:00Z";
 
 /// Writes `records` measurements from `stations` stations to `out`: holds
 /// around the example's nominal with σ 4 %, one board in 100 grossly off,
-/// each judged against the example's window at 1 MHz with the hint the
-/// firmware would give (the hold is proportional to C).
+/// each judged against the example's windows at 1 MHz with the hint the
+/// firmware would give (hold and turn-on latency are proportional to C).
 ///
 /// # Errors
 /// [`Error::Io`] when `out` cannot be written.
@@ -51,18 +51,27 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
             let z = box_muller(rng.random_range(f64::EPSILON..1.0), rng.random_range(0.0..1.0));
             (nominal_ticks.round() * (1.0 + 0.04 * z)) as u64
         };
-        let verdict = Verdict::of_hold(hold, config.hold_min_ticks, config.hold_max_ticks);
+        // The turn-on latency scales with C as the hold does.
+        let on = (config.on_nominal_ticks as f64 * hold as f64 / nominal_ticks).round() as u64;
+        let c = &config;
+        let verdict =
+            Verdict::of_times(Some(on), hold, c.on_min_ticks, c.on_max_ticks, c.hold_min_ticks, c.hold_max_ticks);
         let dev_ppm = ((hold as f64 / nominal_ticks - 1.0) * 1e6).round() as i64;
+        let start_failed = matches!(verdict, Verdict::FastStart | Verdict::SlowStart);
         let r = Record {
             seq: 0,
             unit_id: (i & 0xFFFF_FFFF) as u32,
             press_ticks: 100_000,
-            on_ticks: Some(54),
+            on_ticks: Some(on),
             hold_ticks: Some(hold),
             clock_hz: CLOCK_HZ,
             temp_mdeg_c: Some(23_000 + rng.random_range(-2_000..2_000)),
             verdict,
-            hint: if verdict.passes() { Hint::None } else { Hint::from_deviation_ppm(dev_ppm) },
+            hint: if verdict.passes() {
+                Hint::None
+            } else {
+                Hint::from_times(dev_ppm, config.on_ratio_ppm(on), start_failed)
+            },
             drift: DriftState::Settling,
             c_deviation_ppm: (!verdict.passes())
                 .then(|| dev_ppm.clamp(i64::from(i32::MIN), i64::from(i32::MAX)) as i32),
@@ -85,8 +94,9 @@ mod tests {
         let file = std::fs::File::open(&path).map_err(|e| Error::io(&path, e))?;
         let n = log::read(&path, file, |_, l: &log::Line<'_>| {
             let hold = l.record.hold_ticks.unwrap_or(0);
+            let on = l.record.on_ticks.unwrap_or(0);
             let passes = l.record.verdict.passes();
-            if passes != (506_000..1_254_000).contains(&hold) {
+            if passes != ((506_000..1_254_000).contains(&hold) && (30..100).contains(&on)) {
                 return Err(format!("hold {hold} judged {:?}", l.record.verdict));
             }
             Ok(())

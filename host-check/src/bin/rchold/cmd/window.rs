@@ -22,7 +22,7 @@ pub struct Args {
     /// Extra margin on each side of the window ("2%").
     #[arg(long, default_value = "2%")]
     guard: String,
-    /// Time between two reads of the output ("100us"); default: 1/1000 of the shortest hold.
+    /// Time between two reads of the output ("100us"); default: 1/1000 of the nominal hold (until the output turns on, the engine polls at 1/50 of the nominal turn-on latency).
     #[arg(long)]
     poll: Option<String>,
     /// What to write: text, rust (a const), json, or bin (the blob the firmware loads; needs --out).
