@@ -6,7 +6,9 @@
 
 pub mod agree;
 pub mod compare;
+pub mod coverage;
 pub mod curve;
+pub mod diagnose;
 pub mod eval;
 pub mod pick;
 pub mod press;

@@ -9,8 +9,51 @@ use rc_model::{Model, Prepared};
 use serde_json::json;
 
 use crate::fmt::si;
+use crate::reference::{self, StageF};
 use crate::stage::file::{Purpose, StageFile};
 use crate::Error;
+use rc_model::window::Corner;
+
+/// The shortest and longest hold and turn-on latency over every corner of
+/// `spread`, by the `f64` reference, s.
+/// (The independent check of the fixed-point window; the re-check, the
+/// diagnosis and the fault coverage judge by it.)
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CornerTimes {
+    /// Shortest and longest hold, s.
+    pub hold: (f64, f64),
+    /// Shortest and longest turn-on latency, s.
+    pub on: (f64, f64),
+}
+
+/// The [`CornerTimes`] of `spread` around the stage file's nominal stage.
+///
+/// # Errors
+/// A message naming the first corner the reference cannot evaluate.
+pub fn corner_times(sf: &StageFile, spread: &rc_model::window::Spread) -> Result<CornerTimes, String> {
+    corner_times_of(&sf.stage, spread)
+}
+
+/// The [`CornerTimes`] of `spread` around `stage`.
+///
+/// # Errors
+/// A message naming the first corner the reference cannot evaluate.
+pub fn corner_times_of(stage: &rc_model::Stage, spread: &rc_model::window::Spread) -> Result<CornerTimes, String> {
+    let active = spread.active();
+    let mut t = CornerTimes { hold: (f64::INFINITY, f64::NEG_INFINITY), on: (f64::INFINITY, f64::NEG_INFINITY) };
+    let mut high: u16 = 0;
+    loop {
+        let s = spread.at_corner(stage, Corner { high, active }).map_err(|e| e.to_string())?;
+        let e = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?;
+        t.hold = (t.hold.0.min(e.hold), t.hold.1.max(e.hold));
+        t.on = (t.on.0.min(e.on_latency), t.on.1.max(e.on_latency));
+        if high == active {
+            break;
+        }
+        high = high.wrapping_sub(active) & active;
+    }
+    Ok(t)
+}
 
 /// How to write the window.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

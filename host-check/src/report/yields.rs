@@ -15,7 +15,6 @@ use std::path::Path;
 
 use hold_firmware::record::Record;
 use hold_firmware::{Hint, Verdict};
-use rc_model::window::Corner;
 use serde::Serialize;
 
 use crate::data::codes::VERDICTS;
@@ -25,7 +24,7 @@ use crate::fmt::si;
 use crate::reference::{self, StageF};
 use crate::report::chart::{self, Histogram, Ink, Mark};
 use crate::report::stats::{self, Moments};
-use crate::stage::file::{self as stagefile, Purpose, StageFile};
+use crate::stage::file::{self as stagefile, Purpose};
 use crate::Error;
 
 /// Bins of the hold histogram.
@@ -72,31 +71,6 @@ struct Checker {
     resolution_ticks: u64,
 }
 
-/// The shortest and longest hold and turn-on latency over every corner of
-/// `spread`, by the `f64` reference, s.
-#[derive(Debug, Clone, Copy)]
-struct CornerTimes {
-    hold: (f64, f64),
-    on: (f64, f64),
-}
-
-fn corner_times(sf: &StageFile, spread: &rc_model::window::Spread) -> Result<CornerTimes, String> {
-    let active = spread.active();
-    let mut t = CornerTimes { hold: (f64::INFINITY, f64::NEG_INFINITY), on: (f64::INFINITY, f64::NEG_INFINITY) };
-    let mut high: u16 = 0;
-    loop {
-        let s = spread.at_corner(&sf.stage, Corner { high, active }).map_err(|e| e.to_string())?;
-        let e = reference::evaluate(&StageF::from(&s)).map_err(|e| format!("{e:?}"))?;
-        t.hold = (t.hold.0.min(e.hold), t.hold.1.max(e.hold));
-        t.on = (t.on.0.min(e.on_latency), t.on.1.max(e.on_latency));
-        if high == active {
-            break;
-        }
-        high = high.wrapping_sub(active) & active;
-    }
-    Ok(t)
-}
-
 impl Checker {
     /// Builds the `f64` windows of a setup: the same corners (the spread's
     /// parameter extremes), each evaluated by the reference; widened by the
@@ -109,7 +83,7 @@ impl Checker {
         // The stored window is the fixture's or the field's: recompute both, keep the one it is.
         let mut best = None;
         for purpose in [Purpose::Fixture, Purpose::Field] {
-            let t = corner_times(&sf, &sf.spread_for(purpose))?;
+            let t = crate::design::window::corner_times(&sf, &sf.spread_for(purpose))?;
             let (ref_min, ref_max) = hold_firmware::widen(ticks(t.hold.0), ticks(t.hold.1), setup.guard_ppm, poll);
             // Rounding may move an edge by a tick; more than that is another window.
             let matches = ref_min.abs_diff(setup.hold_min_ticks) <= 2 && ref_max.abs_diff(setup.hold_max_ticks) <= 2;

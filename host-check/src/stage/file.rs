@@ -491,6 +491,17 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
     })
 }
 
+/// A family's threshold bands as the spread's threshold corners: separate
+/// bands for a Schmitt input, one switching point's band for a plain one.
+#[must_use]
+pub fn threshold_spread(b: &rc_model::presets::InputBands) -> ThresholdSpread {
+    if b.schmitt {
+        ThresholdSpread::Schmitt { rise_uv: (b.rise.min_uv, b.rise.max_uv), fall_uv: (b.fall.min_uv, b.fall.max_uv) }
+    } else {
+        ThresholdSpread::Single { min_uv: b.rise.min_uv, max_uv: b.rise.max_uv }
+    }
+}
+
 /// The `[stage.diode]` table: a fixed drop, or a junction (Shockley).
 fn parse_diode(cx: &mut Ctx<'_>, diode: &Spanned<RawDiode>) -> Result<Diode, StageFileError> {
     let d = diode.get_ref();
@@ -557,15 +568,7 @@ fn parse_input(cx: &mut Ctx<'_>, inp: &RawInput, vdd: f64) -> Result<Input, Stag
             })?;
             cx.origins.entries.push((Quantity::Rise, cx.line_of(fam.span().start), "input.family".into()));
             cx.origins.entries.push((Quantity::Fall, cx.line_of(fam.span().start), "input.family".into()));
-            let spread = if b.schmitt {
-                ThresholdSpread::Schmitt {
-                    rise_uv: (b.rise.min_uv, b.rise.max_uv),
-                    fall_uv: (b.fall.min_uv, b.fall.max_uv),
-                }
-            } else {
-                ThresholdSpread::Single { min_uv: b.rise.min_uv, max_uv: b.rise.max_uv }
-            };
-            (Some(p), b.rise.typ_uv, b.fall.typ_uv, b.schmitt, Some(spread))
+            (Some(p), b.rise.typ_uv, b.fall.typ_uv, b.schmitt, Some(threshold_spread(&b)))
         }
         (None, Some(r), f) => {
             cx.note(Quantity::Rise, r, "input.rise");

@@ -9,8 +9,10 @@ use clap::Subcommand;
 mod aging;
 mod agree;
 mod compare;
+mod coverage;
 mod curve;
 mod demo;
+mod diagnose;
 mod eval;
 mod ingest;
 mod listen;
@@ -40,6 +42,10 @@ pub enum Command {
     TimerVsRc(timer_vs_rc::Args),
     /// Two stage files side by side: timing, window, warnings and what drives the spread.
     Compare(compare::Args),
+    /// Which single part (R, C, charge path, diode, supply, threshold) explains a board's hold and turn-on.
+    Diagnose(diagnose::Args),
+    /// Which assembly faults (wrong values, opens, shorts, wrong diode or logic family) the fixture windows catch.
+    Coverage(coverage::Args),
     /// Plot the node voltage through press and release, with thresholds and the extreme corners (SVG).
     Curve(curve::Args),
     /// How the hold spreads over the tolerances: worst case, root-sum-square and Monte Carlo.
@@ -73,6 +79,8 @@ pub fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::Press(a) => press::run(a),
         Command::TimerVsRc(a) => timer_vs_rc::run(a),
         Command::Compare(a) => compare::run(a),
+        Command::Diagnose(a) => diagnose::run(a),
+        Command::Coverage(a) => coverage::run(a),
         Command::Curve(a) => curve::run(a),
         Command::Spread(a) => spread::run(a),
         Command::Agree(a) => agree::run(a),
