@@ -219,6 +219,18 @@ impl core::fmt::Display for BlobError {
 
 impl core::error::Error for BlobError {}
 
+/// Which of a stage file's windows a setup carries.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum WindowKind {
+    /// Not said (a window set by hand).
+    Unstated,
+    /// The fixture's: new parts at the fixture's temperature.
+    Fixture,
+    /// The field's: the product's environment and the aging horizon.
+    Field,
+}
+
 /// Everything a tester loads at start-up: the engine's timings and the
 /// prepared stage it judges holds with (so a field unit needs no solver).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -228,11 +240,14 @@ pub struct Setup {
     pub config: Config,
     /// The stage, prepared for the same clock.
     pub stage: Prepared,
+    /// Which window the timings judge by.
+    pub window: WindowKind,
 }
 
 impl Setup {
     /// The settings as a blob to store in flash or send to a fixture:
-    /// "RCHW", version 2, three reserved bytes; the [`Config`] fields
+    /// "RCHW", version 3, the window kind (0 unstated, 1 fixture, 2 field),
+    /// two reserved bytes; the [`Config`] fields
     /// little-endian in declaration order (clock u32, settle u64, press u64,
     /// glitch u64, poll u32, turn-on timeout u64, hold min u64, hold max u64,
     /// hold timeout u64, chatter limit u16) and two reserved bytes, then
@@ -251,7 +266,12 @@ impl Setup {
             at += bytes.len();
         };
         put(&BLOB_MAGIC);
-        put(&[BLOB_VERSION, 0, 0, 0]);
+        let kind = match self.window {
+            WindowKind::Unstated => 0,
+            WindowKind::Fixture => 1,
+            WindowKind::Field => 2,
+        };
+        put(&[BLOB_VERSION, kind, 0, 0]);
         put(&c.clock_hz.to_le_bytes());
         put(&c.settle_ticks.to_le_bytes());
         put(&c.press_ticks.to_le_bytes());
@@ -326,6 +346,12 @@ impl Setup {
             on_poll_ns: u32_(take(4)?)?,
         };
         let stage = Prepared::from_bytes(take(PREPARED_LEN)?).map_err(|_| BlobError::Invalid)?;
+        let window = match blob.get(5) {
+            Some(0) => WindowKind::Unstated,
+            Some(1) => WindowKind::Fixture,
+            Some(2) => WindowKind::Field,
+            _ => return Err(BlobError::Invalid),
+        };
         if rc_model::check_clock(c.clock_hz).is_err()
             || c.hold_min_ticks > c.hold_max_ticks
             || c.hold_max_ticks > c.hold_timeout_ticks
@@ -338,7 +364,7 @@ impl Setup {
         {
             return Err(BlobError::Invalid);
         }
-        Ok(Setup { config: c, stage })
+        Ok(Setup { config: c, stage, window })
     }
 }
 
@@ -386,6 +412,7 @@ mod tests {
                 on_poll_ns: 10_000,
             },
             stage: stage(),
+            window: WindowKind::Field,
         }
     }
 

@@ -17,7 +17,7 @@ mod verdict;
 
 #[cfg(feature = "async")]
 pub use asynch::AsyncTester;
-pub use config::{on_poll_ns, poll_ticks, widen, BlobError, Config, Setup, BLOB_LEN};
+pub use config::{on_poll_ns, poll_ticks, widen, BlobError, Config, Setup, WindowKind, BLOB_LEN};
 pub use engine::{Comparison, Error, Measurement, Retrigger, Step, Tester};
 pub use time::{Stopwatch, TickSource};
 pub use timer::SoftHold;

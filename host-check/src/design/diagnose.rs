@@ -417,8 +417,8 @@ pub fn diagnose(sf: &StageFile, hold_s: f64, on_s: Option<f64>, resolution_s: f6
 
 impl Suspect {
     /// "C reads 4.69 µF (nominal 10.00 µF, −53.1 %); nearest E6 value 4.70 µF:
-    /// a 4.70 µF fitted for 10.00 µF?" — the question only where the nearest
-    /// preferred value is not the nominal and lies within 5 % of the reading.
+    /// a 4.70 µF fitted for 10.00 µF?" — the question only where the
+    /// reading is nearer another value of the series than the nominal.
     #[must_use]
     pub fn sentence(&self) -> String {
         let mut s = format!(
@@ -430,8 +430,8 @@ impl Suspect {
         );
         if let Some(p) = &self.nearest {
             s.push_str(&format!("; nearest {} value {}", p.series, si(p.value, self.unit)));
-            let off_nominal = (p.value / self.nominal - 1.0).abs() > 1e-6;
-            if off_nominal && (p.value / self.value - 1.0).abs() < 0.05 {
+            // The reading is nearer another value of the series than the nominal one.
+            if (p.value / self.nominal - 1.0).abs() > 1e-6 {
                 s.push_str(&format!(": a {} fitted for {}?", si(p.value, self.unit), si(self.nominal, self.unit)));
             }
         }

@@ -84,7 +84,11 @@ pub fn settings(sf: &StageFile, purpose: Purpose, clock_hz: u32, guard_ppm: u32,
         .map_err(|e| Error::Input(format!("{}: {e}", sf.path.display())))?;
     let stage = Prepared::prepare(&sf.stage, &sf.spread_for(purpose), clock_hz)
         .map_err(|e| Error::Input(format!("{}: preparing the stage for the firmware: {e}", sf.path.display())))?;
-    Ok(Setup { config, stage })
+    let window = match purpose {
+        Purpose::Fixture => hold_firmware::WindowKind::Fixture,
+        Purpose::Field => hold_firmware::WindowKind::Field,
+    };
+    Ok(Setup { config, stage, window })
 }
 
 /// The poll period a tester uses when none is given: 1/1000 of the nominal

@@ -186,6 +186,7 @@ fn fault_plan() -> Vec<(Fault, &'static str)> {
         (Fault::CapacitorTimes(0.6), "capacitor 40 % low"),
         (Fault::LeakyCapacitor(4.7e5), "capacitor leaking (470 kΩ)"),
         (Fault::NoisyOutput(1.2), "noisy output line (±1.2 V)"),
+        (Fault::ChargeResistance(2_200.0), "2.2 kΩ fitted in the charge path"),
     ]
 }
 

@@ -51,6 +51,9 @@ pub enum Fault {
     NoisyOutput(f64),
     /// The driver's supply sags to `fraction` of nominal while pressed.
     SupplyDroop(f64),
+    /// A resistor of `ohms` in the charge path (a wrong part where a 0 Ω link
+    /// or a small resistor belongs).
+    ChargeResistance(f64),
 }
 
 /// The plant state shared by the pin handles.
@@ -81,6 +84,7 @@ impl Plant {
                 Fault::ShortedCapacitor => p.r_leak = 1.0,
                 Fault::LeakyCapacitor(ohms) => p.r_leak = 1.0 / (1.0 / p.r_leak + 1.0 / ohms),
                 Fault::OpenResistor => p.r = 1e12,
+                Fault::ChargeResistance(ohms) => p.rch = ohms,
                 Fault::OpenDiode => {}
                 Fault::NoisyOutput(v) => noise = v,
                 Fault::BouncingTrigger { .. } | Fault::SupplyDroop(_) => {}

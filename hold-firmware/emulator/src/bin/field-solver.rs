@@ -8,7 +8,7 @@
 
 use cortex_m_rt::entry;
 use hold_emulator::{exit, paint_stack, print, run_field};
-use hold_firmware::{Config, Setup};
+use hold_firmware::{Config, Setup, WindowKind};
 use rc_model::window::{Spread, Tempco, Tolerance};
 use rc_model::{Diode, Model, Prepared, Stage};
 
@@ -55,7 +55,7 @@ fn main() -> ! {
         let model = Model::new(&stage).ok()?;
         let window = spread.window(&stage).ok()?;
         let config = Config::from_model(&model, &window, clock_hz, 20_000, 100_000).ok()?;
-        Some(Setup { config, stage: Prepared::prepare(&stage, &spread, clock_hz).ok()? })
+        Some(Setup { config, stage: Prepared::prepare(&stage, &spread, clock_hz).ok()?, window: WindowKind::Field })
     })();
     match setup {
         Some(setup) => run_field(&setup),
