@@ -166,7 +166,8 @@ impl Config {
         if self.on_nominal_ticks == 0 || self.on_nominal_ticks < resolution {
             return None;
         }
-        u64::try_from(u128::from(on_ticks) * 1_000_000 / u128::from(self.on_nominal_ticks)).ok()
+        // u64, saturating: a u128 division would link several KB on a Cortex-M0.
+        Some(on_ticks.saturating_mul(1_000_000) / self.on_nominal_ticks)
     }
 
     /// Ticks as a model span.

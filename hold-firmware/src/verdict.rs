@@ -200,10 +200,13 @@ impl Hint {
     }
 }
 
-/// The larger of two positive ratios over the smaller, ppm (≥ 1 000 000).
+/// The larger of two positive ratios over the smaller, ppm (≥ 1 000 000;
+/// saturating above 1.8e13, far beyond any two readings that differ). In
+/// `u64`: a `u128` division would link a routine of several KB on a
+/// Cortex-M0.
 const fn spread_ppm(a: u64, b: u64) -> u64 {
     let (hi, lo) = if a > b { (a, b) } else { (b, a) };
-    (hi as u128 * 1_000_000 / lo as u128) as u64
+    hi.saturating_mul(1_000_000) / if lo == 0 { 1 } else { lo }
 }
 
 #[cfg(test)]
