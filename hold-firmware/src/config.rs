@@ -157,17 +157,17 @@ impl Config {
 }
 
 impl Config {
-    /// A measured turn-on latency over the nominal one, ppm of 1; `None`
-    /// when the nominal latency is unknown or under ten turn-on polls (plus
-    /// a tick) long, too coarse to tell parts apart.
+    /// A measured turn-on latency with the nominal one, ticks, for the
+    /// diagnosis (`Hint::from_times`); `None` when the nominal latency is
+    /// unknown or under ten turn-on polls (plus a tick) long, too coarse to
+    /// tell parts apart. Compared by multiplication: `nominal · 10⁹ ≥
+    /// 10 · (on_poll_ns · clock_hz + 10⁹)`, no division on the chip.
     #[must_use]
-    pub fn on_ratio_ppm(&self, on_ticks: u64) -> Option<u64> {
-        let resolution = poll_ticks(self.on_poll_ns, self.clock_hz).saturating_add(1).saturating_mul(10);
-        if self.on_nominal_ticks == 0 || self.on_nominal_ticks < resolution {
-            return None;
-        }
-        // u64, saturating: a u128 division would link several KB on a Cortex-M0.
-        Some(on_ticks.saturating_mul(1_000_000) / self.on_nominal_ticks)
+    pub fn on_reading(&self, on_ticks: u64) -> Option<(u64, u64)> {
+        let nominal = self.on_nominal_ticks;
+        let needed =
+            (u64::from(self.on_poll_ns) * u64::from(self.clock_hz)).saturating_add(1_000_000_000).saturating_mul(10);
+        (nominal > 0 && nominal.saturating_mul(1_000_000_000) >= needed).then_some((on_ticks, nominal))
     }
 
     /// Ticks as a model span.

@@ -128,15 +128,15 @@ pub(crate) fn outcome(
             if !start_failed && hold.saturating_mul(20) < config.hold_min_ticks {
                 Hint::OpenCapacitorOrDiode
             } else {
-                let on_ratio = match on {
-                    Some(on) => config.on_ratio_ppm(on),
+                let on_reading = match on {
+                    Some(on) => config.on_reading(on),
                     None => None,
                 };
                 match stage.deviation_ppm_at(hold, temp_mdeg_c) {
                     Ok(dev) => {
                         let dev = i64::from(dev);
                         m.c_deviation_ppm = Some(dev);
-                        Hint::from_times(dev, on_ratio, start_failed)
+                        Hint::from_times(dev, on_reading, start_failed)
                     }
                     // Outside the prepared range (a temperature the stage was not prepared for).
                     Err(_) if start_failed => Hint::ChargePath,

@@ -143,70 +143,101 @@ impl Hint {
         }
     }
 
-    /// The cause suggested by a hold *and* a turn-on latency. Both scale with
-    /// C, so a wrong capacitor moves them together; a wrong discharge
-    /// resistor moves only the hold, a wrong charge path only the latency.
-    /// `hold_dev_ppm` is the capacitance the hold implies (deviation from
-    /// nominal, ppm) and `on_ratio_ppm` the measured over the nominal
-    /// latency (ppm of 1, `None` when the latency is too coarse to tell).
-    /// For a failing hold (`start_failed` false) the capacitor competes with
-    /// the discharge path; for a failing latency with the charge path; the
-    /// explanation needing the smaller ratio of predicted to measured wins,
-    /// and a capacitor gets [`Hint::from_deviation_ppm`] of the failing
-    /// measurement.
-    #[must_use]
-    pub const fn from_times(hold_dev_ppm: i64, on_ratio_ppm: Option<u64>, start_failed: bool) -> Hint {
-        let hold_ppm = 1_000_000 + hold_dev_ppm;
-        let Some(on_ppm) = on_ratio_ppm else {
-            return Hint::from_deviation_ppm(hold_dev_ppm);
-        };
-        if hold_ppm <= 0 || on_ppm == 0 {
-            return Hint::from_deviation_ppm(hold_dev_ppm);
-        }
-        let hold_ppm = hold_ppm as u64;
-        // A capacitor predicts equal ratios; the other path predicts 1 for
-        // the measurement that passed.
-        let by_capacitor = spread_ppm(hold_ppm, on_ppm);
-        if start_failed {
-            if spread_ppm(hold_ppm, 1_000_000) < by_capacitor {
-                return Hint::ChargePath;
-            }
-            Hint::from_deviation_ppm(on_ppm as i64 - 1_000_000)
-        } else {
-            if spread_ppm(on_ppm, 1_000_000) < by_capacitor {
-                return Hint::DischargePath;
-            }
-            Hint::from_deviation_ppm(hold_dev_ppm)
-        }
-    }
-
     /// The cause suggested by the capacitance a hold implies, as a deviation
     /// from nominal in ppm (−1e6 … ): about a decade off → wrong part (×0.2 or
     /// less, ×5 or more); 20 – 60 % off → aged or wrong tolerance; closer →
     /// near the edge of the window.
     #[must_use]
     pub const fn from_deviation_ppm(dev_ppm: i64) -> Hint {
-        // ratio·1e6 = 1e6 + dev
         let r = 1_000_000 + dev_ppm;
-        if r <= 200_000 || r >= 5_000_000 {
+        if r <= 0 {
+            return Hint::WrongPart;
+        }
+        Hint::from_ratio(r as u64, 1_000_000)
+    }
+
+    /// [`Hint::from_deviation_ppm`] for the capacitance ratio `num / den`,
+    /// compared in tenths by multiplication in `u64` (no division: a
+    /// Cortex-M0 has none, and the library routine costs a kilobyte of
+    /// flash; `u128` products are long inline sequences there).
+    #[must_use]
+    pub const fn from_ratio(num: u64, den: u64) -> Hint {
+        let (n, d) = narrow(num, den, 31);
+        let n = n * 10;
+        if n <= 2 * d || n >= 50 * d {
             Hint::WrongPart
-        } else if (r >= 400_000 && r <= 800_000) || (r >= 1_200_000 && r <= 1_600_000) {
+        } else if (n >= 4 * d && n <= 8 * d) || (n >= 12 * d && n <= 16 * d) {
             Hint::AgedOrWrongTolerance
-        } else if r < 400_000 || r > 1_600_000 {
+        } else if n < 4 * d || n > 16 * d {
             Hint::WrongPart
         } else {
             Hint::NearTheEdge
         }
     }
+
+    /// The cause suggested by a hold *and* a turn-on latency. Both scale with
+    /// C, so a wrong capacitor moves them together; a wrong discharge
+    /// resistor moves only the hold, a wrong charge path only the latency.
+    /// `hold_dev_ppm` is the capacitance the hold implies (deviation from
+    /// nominal, ppm) and `on` the measured and the nominal latency, ticks
+    /// (`None` when the latency is too coarse to tell). For a failing hold
+    /// (`start_failed` false) the capacitor competes with the discharge
+    /// path; for a failing latency with the charge path; the explanation
+    /// needing the smaller ratio of predicted to measured wins, and a
+    /// capacitor gets [`Hint::from_ratio`] of the failing measurement. All
+    /// in integer multiplications.
+    #[must_use]
+    pub const fn from_times(hold_dev_ppm: i64, on: Option<(u64, u64)>, start_failed: bool) -> Hint {
+        let hold_num = 1_000_000 + hold_dev_ppm;
+        let Some((on_ticks, on_nominal)) = on else {
+            return Hint::from_deviation_ppm(hold_dev_ppm);
+        };
+        if hold_num <= 0 || on_ticks == 0 || on_nominal == 0 {
+            return Hint::from_deviation_ppm(hold_dev_ppm);
+        }
+        let hold = narrow(hold_num as u64, 1_000_000, 16);
+        let on = narrow(on_ticks, on_nominal, 16);
+        // A capacitor predicts equal ratios; the other path predicts 1 for
+        // the measurement that passed.
+        let by_capacitor = spread(hold, on);
+        if start_failed {
+            if less(spread(hold, (1, 1)), by_capacitor) {
+                return Hint::ChargePath;
+            }
+            Hint::from_ratio(on_ticks, on_nominal)
+        } else {
+            if less(spread(on, (1, 1)), by_capacitor) {
+                return Hint::DischargePath;
+            }
+            Hint::from_deviation_ppm(hold_dev_ppm)
+        }
+    }
 }
 
-/// The larger of two positive ratios over the smaller, ppm (≥ 1 000 000;
-/// saturating above 1.8e13, far beyond any two readings that differ). In
-/// `u64`: a `u128` division would link a routine of several KB on a
-/// Cortex-M0.
-const fn spread_ppm(a: u64, b: u64) -> u64 {
-    let (hi, lo) = if a > b { (a, b) } else { (b, a) };
-    hi.saturating_mul(1_000_000) / if lo == 0 { 1 } else { lo }
+/// A ratio `num / den` with both shifted right alike until they fit `bits`
+/// bits (the ratio kept to 1 part in 2^(bits − 1) unless one is tiny), neither 0.
+const fn narrow(mut num: u64, mut den: u64, bits: u32) -> (u64, u64) {
+    while num >= 1 << bits || den >= 1 << bits {
+        num >>= 1;
+        den >>= 1;
+    }
+    (if num == 0 { 1 } else { num }, if den == 0 { 1 } else { den })
+}
+
+/// The larger of two ratios (each of two 16-bit numbers) over the smaller,
+/// as a fraction `p / q ≥ 1` (each below 2^32).
+const fn spread(x: (u64, u64), y: (u64, u64)) -> (u64, u64) {
+    let (p, q) = (x.0 * y.1, y.0 * x.1);
+    if p >= q {
+        (p, q)
+    } else {
+        (q, p)
+    }
+}
+
+/// `a < b` for fractions of numbers below 2^32 (products below 2^64).
+const fn less(a: (u64, u64), b: (u64, u64)) -> bool {
+    a.0 * b.1 < b.0 * a.1
 }
 
 #[cfg(test)]
@@ -226,13 +257,15 @@ mod tests {
     #[test]
     fn hold_and_latency_tell_the_parts_apart() {
         // C ×0.47: both drop together.
-        assert_eq!(Hint::from_times(-530_000, Some(470_000), true), Hint::AgedOrWrongTolerance);
+        assert_eq!(Hint::from_times(-530_000, Some((47, 100)), true), Hint::AgedOrWrongTolerance);
         // C ×0.1 read through a short hold.
-        assert_eq!(Hint::from_times(-900_000, Some(100_000), false), Hint::WrongPart);
+        assert_eq!(Hint::from_times(-900_000, Some((10, 100)), false), Hint::WrongPart);
         // R ×0.1: the hold drops, the latency does not.
-        assert_eq!(Hint::from_times(-900_000, Some(1_010_000), false), Hint::DischargePath);
+        assert_eq!(Hint::from_times(-900_000, Some((101, 100)), false), Hint::DischargePath);
         // A slow driver: the latency doubles, the hold does not move.
-        assert_eq!(Hint::from_times(20_000, Some(2_000_000), true), Hint::ChargePath);
+        assert_eq!(Hint::from_times(20_000, Some((200, 100)), true), Hint::ChargePath);
+        // Readings far beyond 31 bits keep their ratio.
+        assert_eq!(Hint::from_times(-530_000, Some((47 << 40, 100 << 40)), true), Hint::AgedOrWrongTolerance);
         // No usable latency: the capacitance alone.
         assert_eq!(Hint::from_times(-900_000, None, false), Hint::WrongPart);
     }

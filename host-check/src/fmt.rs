@@ -37,9 +37,10 @@ pub fn si(v: f64, unit: &str) -> String {
     let a = v.abs();
     let (scale, prefix) = P.iter().copied().find(|(s, _)| a >= *s * 0.999_95).unwrap_or((1e-15, "f"));
     let x = v / scale;
-    let digits = if x.abs() >= 100.0 {
+    // Digits by the value as it will be rounded (99.9999 prints as 100.0, not 100.00).
+    let digits = if x.abs() >= 99.995 {
         1
-    } else if x.abs() >= 10.0 {
+    } else if x.abs() >= 9.9995 {
         2
     } else {
         3
@@ -82,6 +83,9 @@ mod tests {
         assert_eq!(si(739.617e-3, "s"), "739.6 ms");
         assert_eq!(si(4.7e6, "Ω"), "4.700 MΩ");
         assert_eq!(si(0.0, "V"), "0 V");
+        // Four significant digits after rounding, not five.
+        assert_eq!(si(1.0 / 1e7 - 1e-22, "F"), "100.0 nF");
+        assert_eq!(si(9.99999, "V"), "10.00 V");
     }
 
     #[test]

@@ -93,6 +93,10 @@ pub struct Suspect {
     pub misfit: f64,
     /// For R and C: the nearest value of the part's series.
     pub nearest: Option<Preferred>,
+    /// The best value lies at an end of the part's range (a thousandth or a
+    /// thousand times nominal for R and C): the part is open or shorted
+    /// rather than of another value.
+    pub at_range_end: bool,
 }
 
 /// What the measurements point at.
@@ -318,6 +322,7 @@ fn fit(knob: &Knob, nominal: &StageF, target: &Target) -> Option<Suspect> {
         }
     }
     let x = (lo + hi) / 2.0;
+    let at_range_end = (x - a).abs() < step || (b - x).abs() < step;
     let (x, (misfit, hold_s, on_s)) = match (cost(x), cost(x0)) {
         (Some(c), Some(c0)) if c.0 <= c0.0 => (x, c),
         (_, Some(c0)) => (x0, c0),
@@ -333,6 +338,7 @@ fn fit(knob: &Knob, nominal: &StageF, target: &Target) -> Option<Suspect> {
         on_s,
         misfit,
         nearest: None,
+        at_range_end,
     })
 }
 
@@ -436,6 +442,30 @@ impl Suspect {
             }
         }
         s
+    }
+}
+
+impl Diagnosis {
+    /// The finding in a few words, for a table: "C 432.5 nF (E12 470.0 nF?)",
+    /// "R or falling threshold", "healthy", "no single part".
+    #[must_use]
+    pub fn short(&self) -> String {
+        match (&self.finding, self.suspects.first()) {
+            (Finding::Healthy, _) => "healthy".into(),
+            (Finding::Named(_), Some(s)) if s.at_range_end => {
+                let way = if s.value < s.nominal { "below" } else { "above" };
+                format!("{} {way} {}: open or shorted?", s.part.name(), si(s.value, s.unit))
+            }
+            (Finding::Named(_), Some(s)) => {
+                let mut t = format!("{} {}", s.part.name(), si(s.value, s.unit));
+                if let Some(p) = s.nearest.as_ref().filter(|p| (p.value / s.nominal - 1.0).abs() > 1e-6) {
+                    t.push_str(&format!(" ({} {}?)", p.series, si(p.value, s.unit)));
+                }
+                t
+            }
+            (Finding::Ambiguous(parts), _) => parts.iter().map(|p| p.name()).collect::<Vec<_>>().join(" or "),
+            _ => "no single part".into(),
+        }
     }
 }
 

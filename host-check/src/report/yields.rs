@@ -24,7 +24,7 @@ use crate::fmt::si;
 use crate::reference::{self, StageF};
 use crate::report::chart::{self, Histogram, Ink, Mark};
 use crate::report::stats::{self, Moments};
-use crate::stage::file::{self as stagefile, Purpose};
+use crate::stage::file::{self as stagefile, Purpose, StageFile};
 use crate::Error;
 
 /// Bins of the hold histogram.
@@ -63,6 +63,8 @@ pub struct RecheckWindow {
 
 struct Checker {
     window: RecheckWindow,
+    /// The stage file, for the diagnosis of rejects.
+    file: StageFile,
     stage: StageF,
     clock_hz: f64,
     /// Turn-on latency of the nominal stage, s.
@@ -118,6 +120,7 @@ impl Checker {
                 on_max_ticks: on_max,
             },
             stage: StageF::from(&sf.stage),
+            file: sf,
             clock_hz: clock,
             on_nominal_s: nominal.on_latency,
             resolution_ticks: (on_poll + 1) * 10,
@@ -131,13 +134,27 @@ impl Checker {
         Some((c / self.stage.c - 1.0) * 1e6)
     }
 
-    /// A latency over the nominal one, ppm, when the nominal latency is at
-    /// least ten polls (and a tick) long — the firmware's rule
-    /// (`Config::on_ratio_ppm`).
-    fn on_ratio_ppm(&self, on_ticks: u64) -> Option<u64> {
-        let nominal = self.on_nominal_s * self.clock_hz;
-        (nominal.round() as u64 >= self.resolution_ticks && nominal > 0.0)
-            .then(|| (on_ticks as f64 / nominal * 1e6).round() as u64)
+    /// Which part the reference blames for a reject's hold and turn-on
+    /// (`design::diagnose`), in a few words: "C 432.5 nF (E12 470.0 nF?)",
+    /// "R or falling threshold", "no single part". None without a hold.
+    fn reads(&self, r: &Record) -> Option<String> {
+        let secs = |t: u64| t as f64 / self.clock_hz;
+        // Only where the windows decided: chatter or a timeout says nothing about a part's value.
+        if !r.verdict.needs_hold() {
+            return None;
+        }
+        let hold = secs(r.hold_ticks.filter(|&h| h > 0)?);
+        let resolution = secs(self.resolution_ticks / 10);
+        let d = crate::design::diagnose::diagnose(&self.file, hold, r.on_ticks.map(secs), resolution).ok()?;
+        Some(d.short())
+    }
+
+    /// A latency with the nominal one, ticks, when the nominal latency is
+    /// at least ten turn-on polls (and a tick) long — the firmware's rule
+    /// (`Config::on_reading`).
+    fn on_reading(&self, on_ticks: u64) -> Option<(u64, u64)> {
+        let nominal = (self.on_nominal_s * self.clock_hz).round() as u64;
+        (nominal > 0 && nominal >= self.resolution_ticks).then_some((on_ticks, nominal))
     }
 
     /// The verdict and hint the reference gives a hold and a turn-on
@@ -155,7 +172,7 @@ impl Checker {
         if !start_failed && hold_ticks.saturating_mul(20) < min {
             return (v, Hint::OpenCapacitorOrDiode);
         }
-        let ratio = on.and_then(|t| self.on_ratio_ppm(t));
+        let ratio = on.and_then(|t| self.on_reading(t));
         let hint = match self.implied_c_ppm(hold_ticks) {
             Some(dev) => Hint::from_times(dev.round() as i64, ratio, start_failed),
             None if start_failed => Hint::ChargePath,
@@ -416,6 +433,8 @@ pub struct Reject {
     pub hold_s: Option<f64>,
     /// Implied capacitance deviation, %.
     pub c_dev_pct: Option<f64>,
+    /// Which part the `f64` diagnosis blames, in a few words (with a stored stage).
+    pub reads: Option<String>,
 }
 
 /// A verdict the reference does not confirm.
@@ -701,6 +720,8 @@ impl Tally {
                         .or_else(|| {
                             checker.zip(r.hold_ticks).and_then(|(c, h)| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4)
                         }),
+                    // Computed for the kept rejects only: a diagnosis is a few thousand evaluations.
+                    reads: checker.and_then(|c| c.reads(r)),
                 });
             }
             if self.reject_error.is_none() {
@@ -1011,9 +1032,8 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
     }
     let _ = writeln!(o, "\n  rejects: {}", r.rejects_total);
     for x in r.rejects.iter().take(max_rows) {
-        let _ = writeln!(
-            o,
-            "    {:<12} {:<10} unit {:>8}  {:<13} {:<30} hold {:>10}  C {}",
+        let line = format!(
+            "    {:<12} {:<10} unit {:>8}  {:<13} {:<30} hold {:>10}  C {:>8}  {}",
             x.station,
             x.batch,
             x.unit,
@@ -1021,7 +1041,9 @@ pub fn render_text(r: &YieldReport, max_rows: usize) -> String {
             x.hint,
             x.hold_s.map_or_else(|| "–".into(), |h| si(h, "s")),
             x.c_dev_pct.map_or_else(|| "–".into(), |d| format!("{d:+.1} %")),
+            x.reads.as_deref().unwrap_or(""),
         );
+        let _ = writeln!(o, "{}", line.trim_end());
     }
     if r.rejects_total as usize > r.rejects.len().min(max_rows) {
         let _ = writeln!(o, "    … {} more", r.rejects_total as usize - r.rejects.len().min(max_rows));

@@ -70,7 +70,7 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
             hint: if verdict.passes() {
                 Hint::None
             } else {
-                Hint::from_times(dev_ppm, config.on_ratio_ppm(on), start_failed)
+                Hint::from_times(dev_ppm, config.on_reading(on), start_failed)
             },
             drift: DriftState::Settling,
             c_deviation_ppm: (!verdict.passes())
