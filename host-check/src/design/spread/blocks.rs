@@ -181,7 +181,11 @@ impl Columns {
                 self.fall_uv.fill(f64x4::splat(f64::from(nominal.fall_uv)));
             }
             Some(ThresholdSpread::Single { min_uv, max_uv }) => {
-                band(&mut lanes, (min_uv, max_uv), &mut self.rise_uv);
+                // The population around the typical point, as board::draw_factors draws it.
+                let (typ, reach) = super::board::plain_point(nominal.rise_uv, (min_uv, max_uv));
+                fill(&mut lanes, Dist::Normal { k_sigma: super::board::PLAIN_SIGMAS }, -1.0, 1.0, &mut self.rise_uv);
+                let (typ, reach) = (f64x4::splat(typ), f64x4::splat(reach));
+                self.rise_uv.iter_mut().for_each(|x| *x = typ + *x * reach);
                 self.fall_uv.copy_from_slice(&self.rise_uv);
             }
             Some(ThresholdSpread::Schmitt { rise_uv, fall_uv }) => {

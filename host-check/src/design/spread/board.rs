@@ -50,6 +50,26 @@ pub(super) struct Factors {
     pub(super) temp_mdeg_c: Option<i32>,
 }
 
+/// How many σ of a plain input's switching-point population fit between
+/// its typical point and the nearer end of its band. A plain CMOS input
+/// switches near its typical point (half the supply for the presets); the
+/// family's VIL/VIH band is a guarantee over process, supply and
+/// temperature, not the spread of parts (from memory: switching points
+/// cluster within about a tenth of the supply of half of it). So the Monte
+/// Carlo draws a normal around the typical point with σ a quarter of that
+/// distance, cut at the band, and the nominal is the population's centre;
+/// the band's ends stay in the worst case.
+pub const PLAIN_SIGMAS: f64 = 4.0;
+
+/// A plain input's switching point for one board, µV: the typical point
+/// `typ_uv` plus a normal draw of σ = (distance to the nearer band end) /
+/// [`PLAIN_SIGMAS`], cut there.
+pub(super) fn plain_point(typ_uv: u32, band: (u32, u32)) -> (f64, f64) {
+    let (lo, hi) = (f64::from(band.0), f64::from(band.1));
+    let typ = f64::from(typ_uv).clamp(lo, hi);
+    (typ, (typ - lo).min(hi - typ))
+}
+
 fn draw_band<R: Rng>(rng: &mut R, band: (u32, u32), dist: Dist) -> f64 {
     let (lo, hi) = (f64::from(band.0), f64::from(band.1));
     let mid = 0.5 * (lo + hi);
@@ -59,9 +79,10 @@ fn draw_band<R: Rng>(rng: &mut R, band: (u32, u32), dist: Dist) -> f64 {
 }
 
 /// Draws one board, always in the same order: R, C, Vdd, driver, diode,
-/// thresholds (rising, then falling), temperature. A parameter that does
-/// not move takes no draw.
-pub(super) fn draw_factors<R: Rng>(rng: &mut R, spread: &Spread, dist: Dist) -> Factors {
+/// thresholds (rising, then falling; a plain input's one point around its
+/// typical `plain_typ_uv`, see [`PLAIN_SIGMAS`]), temperature. A parameter
+/// that does not move takes no draw.
+pub(super) fn draw_factors<R: Rng>(rng: &mut R, spread: &Spread, dist: Dist, plain_typ_uv: u32) -> Factors {
     let r = draw_factor(rng, spread.r, dist);
     let c = draw_factor(rng, spread.c, dist);
     let vdd = draw_factor(rng, spread.vdd, dist);
@@ -70,7 +91,9 @@ pub(super) fn draw_factors<R: Rng>(rng: &mut R, spread: &Spread, dist: Dist) -> 
     let (rise_uv, fall_uv) = match spread.thresholds {
         None => (None, None),
         Some(ThresholdSpread::Single { min_uv, max_uv }) => {
-            let v = draw_band(rng, (min_uv, max_uv), dist);
+            let (typ, reach) = plain_point(plain_typ_uv, (min_uv, max_uv));
+            let f = draw_factor(rng, Tolerance::symmetric(1_000_000), Dist::Normal { k_sigma: PLAIN_SIGMAS }) - 1.0;
+            let v = typ + f * reach;
             (Some(v), Some(v))
         }
         Some(ThresholdSpread::Schmitt { rise_uv, fall_uv }) => {

@@ -29,7 +29,7 @@ pub mod sensitivity;
 use rand::SeedableRng;
 use rand_xoshiro::Xoshiro256PlusPlus;
 use rayon::prelude::*;
-use rc_model::window::{Aging, Spread, Window};
+use rc_model::window::{Aging, Spread, ThresholdSpread, Window};
 use rc_model::{Model, Stage};
 use serde::Serialize;
 
@@ -79,7 +79,7 @@ pub struct Monte {
 #[must_use]
 pub fn draw(nominal: &Stage, spread: &Spread, dist: Dist, seed: u64, index: u64) -> Stage {
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(seed ^ index.wrapping_mul(0x9E37_79B9_7F4A_7C15));
-    stage_from(nominal, spread, &draw_factors(&mut rng, spread, dist))
+    stage_from(nominal, spread, &draw_factors(&mut rng, spread, dist, nominal.rise_uv))
 }
 
 /// Hold of one board by the fixed-point model, s (`None` where it refuses).
@@ -324,6 +324,43 @@ pub struct Report<'a> {
     pub cap: Option<&'a Capability>,
     /// Each parameter's part in the spread, largest first.
     pub shares: &'a [sensitivity::Share],
+    /// How the input's thresholds are drawn (from [`threshold_model`]).
+    pub thresholds: Option<&'static str>,
+    /// How the tolerances are drawn.
+    pub dist: Dist,
+}
+
+/// How a distribution draws a tolerance, in words.
+#[must_use]
+pub fn dist_text(dist: Dist) -> String {
+    match dist {
+        Dist::Uniform => "each tolerance drawn uniformly between its ends".into(),
+        Dist::Normal { k_sigma } => {
+            // Two-sided normal tail beyond ±kσ.
+            let beyond = statrs::function::erf::erfc(k_sigma / std::f64::consts::SQRT_2) * 100.0;
+            format!(
+                "each tolerance drawn normal with its ends at ±{k_sigma}σ and cut there: the {beyond:.2} % of draws beyond \
+                 an end are set to that end (no board has a part outside its tolerance)"
+            )
+        }
+    }
+}
+
+/// What the Monte Carlo assumes about the input's thresholds, in words, or
+/// none when they do not move.
+#[must_use]
+pub fn threshold_model(spread: &Spread) -> Option<&'static str> {
+    match spread.thresholds {
+        Some(ThresholdSpread::Single { .. }) => Some(
+            "plain input: each board's switching point drawn around the typical point, σ a quarter of the way to the \
+             nearer end of the family's band and cut there (from memory: parts cluster near the typical point; the band \
+             is a guarantee); the band's ends stay in the worst case",
+        ),
+        Some(ThresholdSpread::Schmitt { .. }) => {
+            Some("Schmitt input: each threshold drawn across its band as the tolerances are (bands from memory)")
+        }
+        None => None,
+    }
 }
 
 /// The report, as text or JSON.
@@ -331,7 +368,7 @@ pub struct Report<'a> {
 pub fn render(r: &Report<'_>, json: bool) -> String {
     use crate::fmt::{corner_text, si};
     use std::fmt::Write as _;
-    let Report { name, m, parts, nominal_s, rss_sd_s, window, spec, cap, shares } = *r;
+    let Report { name, m, parts, nominal_s, rss_sd_s, window, spec, cap, shares, thresholds, dist } = *r;
     if json {
         let v = serde_json::json!({
             "stage": name,
@@ -345,6 +382,8 @@ pub fn render(r: &Report<'_>, json: bool) -> String {
             "monte_carlo": m,
             "monte_carlo_age_years": match parts { Parts::Aged { years } => years, _ => 0.0 },
             "parts": parts.text().unwrap_or_else(|| "new parts".to_owned()),
+            "thresholds": thresholds,
+            "draws": dist_text(dist),
             "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
             "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
         });
@@ -401,6 +440,10 @@ pub fn render(r: &Report<'_>, json: bool) -> String {
     if let Some(t) = parts.text() {
         let _ = writeln!(o, "    {t}");
     }
+    let _ = writeln!(o, "    {}", dist_text(dist));
+    if let Some(t) = thresholds {
+        let _ = writeln!(o, "    {t}");
+    }
     for (p, v) in &m.percentiles {
         let _ = writeln!(o, "    {:>7} % of boards hold less than {}", format!("{p}"), si(*v, "s"));
     }
@@ -432,5 +475,23 @@ mod tests {
         assert_eq!(m.mean_s.to_bits(), again.mean_s.to_bits());
         let (rss_mean, rss_sd) = rss(&sf.stage, &sf.spread, Dist::Uniform).unwrap_or((0.0, 0.0));
         assert!((rss_mean - m.mean_s).abs() < 3.0 * rss_sd);
+    }
+
+    /// A plain (non-Schmitt) input: the Monte Carlo is a population of boards
+    /// around the nominal, not a uniform draw over the family's whole band
+    /// (which put the mean 36 % above nominal for this stage), and the
+    /// root-sum-square σ describes the same population.
+    #[test]
+    fn a_plain_input_population_is_centred_on_the_nominal() {
+        let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../examples/tidewatch-powerhold.toml");
+        let sf = crate::stage::file::load(&path).unwrap_or_else(|e| panic!("{e}"));
+        assert!(threshold_model(&sf.spread).is_some_and(|t| t.starts_with("plain input")));
+        let nominal = secs(sf.nominal().unwrap_or_else(|e| panic!("{e}")).hold);
+        for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+            let m = monte_carlo_with(&sf.stage, &sf.spread, dist, 20_000, 11, Eval::Fast, &|_, _| {});
+            assert!((m.mean_s / nominal - 1.0).abs() < 0.01, "{dist:?}: mean {} against nominal {nominal}", m.mean_s);
+            let (_, rss_sd) = rss(&sf.stage, &sf.spread, dist).unwrap_or((0.0, 0.0));
+            assert!((rss_sd / m.sd_s - 1.0).abs() < 0.1, "{dist:?}: RSS σ {rss_sd}, Monte Carlo σ {}", m.sd_s);
+        }
     }
 }

@@ -71,10 +71,24 @@ pub fn first_order(nominal: &Stage, spread: &Spread, dist: Dist) -> Result<Vec<S
         if active & mask == 0 {
             continue;
         }
-        let low_s = hold_at(nominal, spread, Corner { high: 0, active: mask })?;
-        let high_s = hold_at(nominal, spread, Corner { high: mask, active: mask })?;
+        // A plain input's switching point is a population around its typical
+        // point (σ a quarter of the way to the nearer band end), whatever `dist`.
+        let (sp, plain) = match spread.thresholds {
+            Some(ThresholdSpread::Single { min_uv, max_uv }) if p == Param::Rise => {
+                let (typ, reach) = super::board::plain_point(nominal.rise_uv, (min_uv, max_uv));
+                let band = ((typ - reach).round() as u32, (typ + reach).round() as u32);
+                (
+                    Spread { thresholds: Some(ThresholdSpread::Single { min_uv: band.0, max_uv: band.1 }), ..*spread },
+                    true,
+                )
+            }
+            _ => (*spread, false),
+        };
+        let low_s = hold_at(nominal, &sp, Corner { high: 0, active: mask })?;
+        let high_s = hold_at(nominal, &sp, Corner { high: mask, active: mask })?;
         let half = 0.5 * (high_s - low_s).abs();
         let sigma_s = match dist {
+            _ if plain => half / super::board::PLAIN_SIGMAS,
             Dist::Uniform => half / 3f64.sqrt(),
             Dist::Normal { k_sigma } => half / k_sigma,
         };

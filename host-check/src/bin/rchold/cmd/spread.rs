@@ -126,6 +126,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         spec,
         cap: cap.as_ref(),
         shares: &shares,
+        thresholds: spread::threshold_model(&sf.spread),
+        dist,
     };
     emit(&spread::render(&report, a.json))?;
     Ok(ExitCode::SUCCESS)
