@@ -66,12 +66,43 @@ fn nearest_value_rule() {
 /// LSL 8, mean 16, s 2 → Cp 1.00, Cpu 0.6667, Cpl 1.3333, Cpk 0.6667, k 0.3333.
 #[test]
 fn nist_6_1_6_capability() {
-    let c = stats::capability(8.0, 20.0, 16.0, 2.0);
+    assert_nist_6_1_6(&stats::capability(8.0, 20.0, 16.0, 2.0));
+}
+
+/// The published figures of the §6.1.6 example.
+fn assert_nist_6_1_6(c: &stats::Capability) {
     assert_abs_diff_eq!(c.cp, 1.0, epsilon = 1e-12);
     assert_abs_diff_eq!(c.cpu, 0.6667, epsilon = 1e-4);
     assert_abs_diff_eq!(c.cpl, 1.3333, epsilon = 1e-4);
     assert_abs_diff_eq!(c.cpk, 0.6667, epsilon = 1e-4);
     assert_abs_diff_eq!(c.k, 0.3333, epsilon = 1e-4);
+}
+
+/// The percentile method for non-normal data reproduces the same NIST/SEMATECH
+/// §6.1.6 worked example when its percentiles are those of the normal
+/// distribution it describes (X0.135 = 16 − 3·2, X50 = 16, X99.865 = 16 + 3·2).
+#[test]
+fn percentile_capability_reproduces_nist_6_1_6() {
+    assert_nist_6_1_6(&stats::percentile_capability(8.0, 20.0, 10.0, 16.0, 22.0));
+}
+
+/// Anderson–Darling against two general-purpose reference libraries from PyPI:
+/// A² as `scipy.stats.anderson(x, dist="norm").statistic` (SciPy 1.17.1) and
+/// `statsmodels.stats.diagnostic.normal_ad(x)` (statsmodels 0.15.0) print it, and
+/// the p-value as `normal_ad` prints it (the same D'Agostino–Stephens formula).
+/// Data: the NIST/SEMATECH §6.3.2.4 EWMA example (20 values, near normal), and
+/// (i/10)² for i = 0 … 99 (skewed).
+#[test]
+fn anderson_darling_matches_scipy_and_statsmodels() {
+    let a = stats::anderson_darling(&rchold_tests::nist::EWMA_DATA).unwrap_or_else(|| panic!("no result"));
+    assert_abs_diff_eq!(a.a2, 0.350_538_737_610_801_1, epsilon = 1e-9);
+    assert_abs_diff_eq!(a.p, 0.435_416_386_618_853_35, epsilon = 1e-9);
+    assert!(a.normal);
+    let skewed: Vec<f64> = (0..100).map(|i| (f64::from(i) / 10.0).powi(2)).collect();
+    let b = stats::anderson_darling(&skewed).unwrap_or_else(|| panic!("no result"));
+    assert_abs_diff_eq!(b.a2, 3.385_176_676_319_318_3, epsilon = 1e-9);
+    assert!((b.p / 1.577_064_170_850_325_4e-8 - 1.0).abs() < 1e-6, "p {}", b.p);
+    assert!(!b.normal);
 }
 
 /// NIST/SEMATECH e-Handbook §6.3.2.4 EWMA example: λ = 0.3, EWMA0 = 50,

@@ -225,6 +225,44 @@ pub fn capability(m: &Monte, lsl_s: f64, usl_s: f64) -> Capability {
     stats::capability(lsl_s, usl_s, m.mean_s, m.sd_s)
 }
 
+/// The capability of the simulated holds against a specification, both
+/// ways, and which applies: Cp/Cpk from mean and σ (NIST/SEMATECH
+/// e-Handbook §6.1.6) for normal holds, the percentile method
+/// ([`stats::percentile_capability`]) otherwise, decided by an
+/// Anderson–Darling test at the 5 % level. Holds are bounded and skewed by
+/// the logarithm in the hold, so they are often not normal.
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct SpecFit {
+    /// Cp, Cpk … from mean and σ.
+    pub moments: Capability,
+    /// Cp, Cpk … from the 0.135 %, 50 % and 99.865 % points.
+    pub percentile: Option<Capability>,
+    /// The normality test on the simulated holds.
+    pub normality: Option<stats::Normality>,
+}
+
+impl SpecFit {
+    /// Of the Monte Carlo `m` against `lsl_s … usl_s`.
+    #[must_use]
+    pub fn of(m: &Monte, lsl_s: f64, usl_s: f64) -> SpecFit {
+        let at = |p: f64| m.percentiles.iter().find(|(q, _)| (q - p).abs() < 1e-9).map(|&(_, v)| v);
+        let percentile = match (at(0.135), at(50.0), at(99.865)) {
+            (Some(a), Some(b), Some(c)) if a < b && b < c => Some(stats::percentile_capability(lsl_s, usl_s, a, b, c)),
+            _ => None,
+        };
+        SpecFit { moments: capability(m, lsl_s, usl_s), percentile, normality: stats::anderson_darling(&m.holds) }
+    }
+
+    /// The one that applies: the moments' for normal holds, else the percentiles'.
+    #[must_use]
+    pub fn applies(&self) -> (&'static str, Capability) {
+        match (self.normality, self.percentile) {
+            (Some(n), Some(p)) if !n.normal => ("percentile", p),
+            _ => ("moments", self.moments),
+        }
+    }
+}
+
 /// A histogram of the holds as a self-contained SVG, with the worst-case
 /// window (dashed) and the spec limits (solid) marked.
 #[must_use]
@@ -320,8 +358,8 @@ pub struct Report<'a> {
     pub window: Option<&'a Window>,
     /// The specification window, s.
     pub spec: Option<(f64, f64)>,
-    /// Cp/Cpk against the specification.
-    pub cap: Option<&'a Capability>,
+    /// Cp/Cpk against the specification, both ways.
+    pub cap: Option<&'a SpecFit>,
     /// Each parameter's part in the spread, largest first.
     pub shares: &'a [sensitivity::Share],
     /// How the input's thresholds are drawn (from [`threshold_model`]).
@@ -385,7 +423,13 @@ pub fn render(r: &Report<'_>, json: bool) -> String {
             "thresholds": thresholds,
             "draws": dist_text(dist),
             "spec": spec.map(|(a, b)| serde_json::json!({"low_s": a, "high_s": b})),
-            "capability": cap.map(|c| serde_json::json!({"cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k})),
+            "capability": cap.map(|f| {
+                let c = f.moments;
+                serde_json::json!({
+                    "cp": c.cp, "cpk": c.cpk, "cpu": c.cpu, "cpl": c.cpl, "k": c.k,
+                    "percentile": f.percentile, "normality": f.normality, "applies": f.applies().0,
+                })
+            }),
         });
         return format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default());
     }
@@ -451,8 +495,25 @@ pub fn render(r: &Report<'_>, json: bool) -> String {
         line(
             &mut o,
             &format!("against {} to {}", si(a, "s"), si(b, "s")),
-            format!("Cp {:.3} \u{b7} Cpk {:.3} (NIST/SEMATECH e-Handbook §6.1.6)", c.cp, c.cpk),
+            format!("Cp {:.3} \u{b7} Cpk {:.3} (NIST/SEMATECH e-Handbook §6.1.6)", c.moments.cp, c.moments.cpk),
         );
+        if let Some(p) = c.percentile {
+            let _ = writeln!(
+                o,
+                "    percentile method (0.135 / 50 / 99.865 % points, ISO 22514-2): Cp {:.3} \u{b7} Cpk {:.3}",
+                p.cp, p.cpk
+            );
+        }
+        if let Some(n) = c.normality {
+            let _ = writeln!(
+                o,
+                "    Anderson–Darling A*² {:.3}, p {:.4}: the holds are {}; the {} figures apply",
+                n.a2_star,
+                n.p,
+                if n.normal { "normal at the 5 % level" } else { "not normal" },
+                if c.applies().0 == "percentile" { "percentile method's" } else { "mean-and-σ" }
+            );
+        }
         let outside = m.holds.iter().filter(|&&v| v < a || v > b).count();
         let _ = writeln!(o, "    {outside} of {} simulated boards fall outside", m.holds.len());
     }
@@ -475,6 +536,20 @@ mod tests {
         assert_eq!(m.mean_s.to_bits(), again.mean_s.to_bits());
         let (rss_mean, rss_sd) = rss(&sf.stage, &sf.spread, Dist::Uniform).unwrap_or((0.0, 0.0));
         assert!((rss_mean - m.mean_s).abs() < 3.0 * rss_sd);
+    }
+
+    /// Holds spread over uniform tolerances are bounded, not normal: the
+    /// normality test says so and the percentile method's figures apply; for
+    /// the nearly normal ones of normal parts the moments' may.
+    #[test]
+    fn bounded_holds_get_the_percentile_capability() {
+        let sf = crate::testing::example();
+        let m = monte_carlo_with(&sf.stage, &sf.spread, Dist::Uniform, 20_000, 5, Eval::Fast, &|_, _| {});
+        let f = SpecFit::of(&m, 0.5, 1.1);
+        assert!(f.normality.is_some_and(|n| !n.normal && n.p < 0.05), "{:?}", f.normality);
+        assert_eq!(f.applies().0, "percentile");
+        let p = f.percentile.unwrap_or(f.moments);
+        assert!((p.cp - f.moments.cp).abs() > 0.01, "percentile {p:?}, moments {:?}", f.moments);
     }
 
     /// A plain (non-Schmitt) input: the Monte Carlo is a population of boards

@@ -105,7 +105,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if a.check_shares {
         sensitivity::check_by_freezing(&sf.stage, &sf.spread, dist, samples, a.seed, &mut shares);
     }
-    let cap = spec.map(|(lo, hi)| spread::capability(&mc, lo, hi));
+    let cap = spec.map(|(lo, hi)| spread::SpecFit::of(&mc, lo, hi));
     let name = stage_name(&sf, &a.stage);
     if let Some(path) = &a.plot {
         let title = format!("hold of {name}, {samples} boards");
