@@ -246,10 +246,11 @@ fn spread_reports_worst_case_rss_monte_carlo_and_capability() {
 #[test]
 fn pick_lists_parts_or_says_none_fit() {
     let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
-    let out = run(dir.path(), &["pick", "--hold", "2m", "--within", "45%", "--vdd", "5", "--top", "3"]);
+    let out = run(dir.path(), &["pick", "--hold", "2m", "--within=-40%..+80%", "--vdd", "5", "--top", "3"]);
     let stdout = text(&out.stdout);
     assert_eq!(out.status.code(), Some(0), "{stdout}{}", text(&out.stderr));
-    assert!(stdout.contains("parts for a 2.000 ms hold within ±45.0 %"), "{stdout}");
+    assert!(stdout.contains("parts for a 2.000 ms hold within −40.0 % … +80.0 %"), "{stdout}");
+    assert!(stdout.contains("margin: the share of the allowed"), "{stdout}");
     assert_eq!(
         stdout.lines().filter(|l| l.contains("C0G") || l.contains("X7R") || l.contains("electrolytic")).count(),
         3,
@@ -260,13 +261,31 @@ fn pick_lists_parts_or_says_none_fit() {
     assert!(text(&none.stdout).contains("no pair of preferred values"));
     // The input is already a Schmitt input (the default): it is not suggested again.
     assert!(!text(&none.stdout).contains("or a Schmitt input"), "{}", text(&none.stdout));
-    // --write gives a stage file that eval reads, with the first candidate's parts.
-    let w = run(dir.path(), &["pick", "--hold", "2s", "--within", "60%", "--vdd", "5", "--write", "p.toml", "--json"]);
-    let v: serde_json::Value = serde_json::from_slice(&w.stdout).unwrap_or_default();
-    let first = v["candidates"][0]["hold_s"].as_f64().or_else(|| v[0]["hold_s"].as_f64());
-    let e = run(dir.path(), &["eval", "p.toml", "--json"]);
-    let hold = serde_json::from_slice::<serde_json::Value>(&e.stdout).unwrap_or_default()["hold_s"].as_f64();
-    assert!(hold.zip(first).is_some_and(|(h, f)| (h / f - 1.0).abs() < 1e-6), "{hold:?} vs {first:?}: {v}");
+    // --write gives a stage file that eval reads, with the first candidate's parts:
+    // its nominal within half an E24 step of the target (10^(1/48) − 1 = 4.9 %), and
+    // its worst case, recomputed by eval from the file (the same tolerances, supply,
+    // diode, temperature range, tempcos and aging), inside the asked spread.
+    for pair in [false, true] {
+        let mut args = vec!["pick", "--hold", "2s", "--within=-40%..+80%", "--vdd", "5", "--write", "p.toml", "--json"];
+        if pair {
+            args.push("--pair");
+        }
+        let w = run(dir.path(), &args);
+        let v: serde_json::Value = serde_json::from_slice(&w.stdout).unwrap_or_default();
+        let first = &v["candidates"][0];
+        let nominal = first["hold_s"].as_f64().unwrap_or(f64::NAN);
+        let step = if pair { 0.005 } else { 10f64.powf(1.0 / 48.0) - 1.0 };
+        assert!((nominal / 2.0 - 1.0).abs() <= step, "pair {pair}: nominal {nominal}: {v}");
+        let e = run(dir.path(), &["eval", "p.toml", "--json"]);
+        let ev = serde_json::from_slice::<serde_json::Value>(&e.stdout).unwrap_or_default();
+        let hold = ev["hold_s"].as_f64().unwrap_or(f64::NAN);
+        assert!((hold / nominal - 1.0).abs() < 1e-6, "{hold} vs {nominal}: {v}");
+        let (lo, hi) =
+            (ev["window"]["min_s"].as_f64().unwrap_or(0.0), ev["window"]["max_s"].as_f64().unwrap_or(f64::MAX));
+        assert!((lo / first["min_s"].as_f64().unwrap_or(0.0) - 1.0).abs() < 1e-9, "eval {lo}, pick {}", first["min_s"]);
+        assert!((hi / first["max_s"].as_f64().unwrap_or(0.0) - 1.0).abs() < 1e-9, "eval {hi}, pick {}", first["max_s"]);
+        assert!(lo >= 2.0 * 0.6 && hi <= 2.0 * 1.8, "worst case {lo} … {hi} outside −40 % … +80 % of 2 s");
+    }
     let plain = run(dir.path(), &["pick", "--hold", "30s", "--within", "5%", "--input", "hc"]);
     assert!(text(&plain.stdout).contains("or a Schmitt input"), "{}", text(&plain.stdout));
     let bad = run(dir.path(), &["pick", "--hold", "30 years"]);

@@ -128,10 +128,10 @@ fn picked_parts_meet_the_target_by_the_reference() {
     use host_check::reference::{evaluate, StageF};
     use host_check::stage::eseries::Series;
     let targets = [
-        (2e-3, 0.45, 5.0, "hc-schmitt"),
-        (30.0, 0.5, 3.3, "hc-schmitt"),
-        (0.1, 0.5, 12.0, "4000b-schmitt"),
-        (5.0, 0.6, 5.0, "hc-schmitt"),
+        (2e-3, (0.4, 0.8), 5.0, "hc-schmitt"),
+        (30.0, (0.4, 0.8), 3.3, "hc-schmitt"),
+        (0.1, (0.5, 0.9), 12.0, "4000b-schmitt"),
+        (5.0, (0.4, 0.8), 5.0, "hc-schmitt"),
     ];
     let mut checked = 0;
     for (hold, within, vdd, input) in targets {
@@ -145,10 +145,16 @@ fn picked_parts_meet_the_target_by_the_reference() {
             template: tpl,
             vdd_tol_ppm: 50_000,
             thresholds,
+            diode_tol_ppm: 100_000,
+            temp_mdeg_c: Some((0, 70_000)),
+            r_tempco_ppm_per_c: 100,
+            pair: false,
+            allow_high_r: false,
+            output_limit_ma: 25,
         };
-        let found = pick(&t);
-        assert!(!found.is_empty(), "no parts for {hold} s ±{within}");
-        let (lo, hi) = (hold * (1.0 - within), hold * (1.0 + within));
+        let (found, _) = pick(&t);
+        assert!(!found.is_empty(), "no parts for {hold} s within {within:?}");
+        let (lo, hi) = (hold * (1.0 - within.0), hold * (1.0 + within.1));
         for c in found.iter().take(20) {
             let mut s = tpl;
             s.r_mohm = (c.r_ohm * 1e3).round() as u64;

@@ -1,14 +1,22 @@
 //! `rchold pick`: choose R and C from IEC 60063 series for a target hold.
 //!
 //! For every capacitor value of the C series (100 pF … 10 mF) and every
-//! dielectric class that offers it, the model gives the ideal R; the two
-//! nearest values of the R series are tried. A candidate is kept when its
-//! worst-case window — over R and C tolerance, supply, diode, the input's
-//! threshold band and, where the class has one, end-of-life capacitance loss
-//! — lies inside the target ± the allowed spread. Candidates are ranked by how
-//! much of the allowed spread is left, then by capacitor size.
+//! dielectric class that offers it, the model gives the ideal R; the
+//! nearest value of the R series is taken (or, with `pair`, the largest
+//! value below it plus the value nearest the rest, two resistors in
+//! series), so the nominal lies within half a series step of the target. A
+//! candidate is kept when its worst-case window — over R and C tolerance,
+//! supply, diode, the input's threshold band, the temperature range with
+//! R's and the dielectric's temperature coefficients and, where the class
+//! has one, end-of-life capacitance loss — lies inside the target ± the
+//! allowed spread, and when it keeps two hard limits: R at most 10 MΩ
+//! (board and input leakage; unless allowed) and the driver not sourcing
+//! more than its family's rated current for longer than 1 ms while it
+//! charges C. Candidates are ranked by margin, then by capacitor size; the
+//! margin is the share of the allowed spread the worst case leaves on its
+//! tighter side.
 
-use rc_model::window::{Aging, Spread, ThresholdSpread, Tolerance};
+use rc_model::window::{Aging, Spread, Tempco, ThresholdSpread, Tolerance};
 use rc_model::{Diode, Model, Stage};
 use serde::Serialize;
 
@@ -54,6 +62,17 @@ impl Dielectric {
         }
     }
 
+    /// Temperature coefficient, ppm/°C (common practice, no source: C0G
+    /// 0 ± 30; X7R's ±15 % over −55 … 125 °C taken as −800 linear; an
+    /// aluminium electrolytic about +1000, losing capacitance in the cold).
+    const fn tempco_ppm_per_c(self) -> i32 {
+        match self {
+            Dielectric::C0g => 0,
+            Dielectric::X7r => -800,
+            Dielectric::Electrolytic => 1_000,
+        }
+    }
+
     fn aging(self) -> Option<Aging> {
         match self {
             Dielectric::C0g => None,
@@ -68,8 +87,9 @@ impl Dielectric {
 pub struct Target {
     /// Wanted hold, s.
     pub hold_s: f64,
-    /// Allowed relative spread each way (0.15 for ±15 %).
-    pub within: f64,
+    /// Allowed relative spread below and above the target (0.15, 0.15 for
+    /// ±15 %; a stage's worst case is lopsided, longer holds further off).
+    pub within: (f64, f64),
     /// Series for R.
     pub r_series: Series,
     /// R tolerance, ppm.
@@ -82,13 +102,36 @@ pub struct Target {
     pub vdd_tol_ppm: u32,
     /// Threshold band of the input, if known.
     pub thresholds: Option<ThresholdSpread>,
+    /// Diode drop tolerance, ppm.
+    pub diode_tol_ppm: u32,
+    /// Operating temperature range, m°C (none: 25 °C only).
+    pub temp_mdeg_c: Option<(i32, i32)>,
+    /// The resistor's temperature coefficient, ppm/°C.
+    pub r_tempco_ppm_per_c: i32,
+    /// R as two series values in series, to hit the target closely.
+    pub pair: bool,
+    /// Allow R above 10 MΩ (otherwise a hard limit: leakage).
+    pub allow_high_r: bool,
+    /// The input family's rated output current, mA (the driver's limit).
+    pub output_limit_ma: u32,
+}
+
+/// Candidates left out by a hard limit, by limit.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize)]
+pub struct LeftOut {
+    /// R above 10 MΩ.
+    pub leakage: u32,
+    /// The driver above its rated current for longer than 1 ms.
+    pub charge_current: u32,
 }
 
 /// One candidate.
 #[derive(Debug, Clone, Serialize)]
 pub struct Candidate {
-    /// R, Ω.
+    /// R, Ω (both resistors when `r2_ohm` is given).
     pub r_ohm: f64,
+    /// The larger resistor of a pair, Ω, and the one added in series.
+    pub r_pair: Option<(f64, f64)>,
     /// C, F.
     pub c_f: f64,
     /// Dielectric family.
@@ -99,10 +142,14 @@ pub struct Candidate {
     pub min_s: f64,
     /// Worst-case longest hold, s.
     pub max_s: f64,
-    /// Share of the allowed spread left on the tighter side (0 … 1).
+    /// Share of the allowed spread left on the tighter side (0 … 1): the
+    /// smaller of (shortest − low limit) / (target − low limit) and
+    /// (high limit − longest) / (high limit − target).
     pub margin: f64,
-    /// R above 10 MΩ: board and input leakage start to matter.
-    pub leakage_risk: bool,
+    /// Nominal over target, minus one.
+    pub nominal_error: f64,
+    /// Peak current the driver sources into the empty capacitor, mA.
+    pub charge_peak_ma: f64,
 }
 
 fn series_values(s: Series, lo: f64, hi: f64) -> Vec<f64> {
@@ -119,13 +166,61 @@ fn series_values(s: Series, lo: f64, hi: f64) -> Vec<f64> {
     v
 }
 
-/// Searches the series; returns the candidates that meet the target, best first.
+/// The spread a candidate is judged with: the target's tolerances,
+/// temperature range and coefficients, the dielectric's own.
 #[must_use]
-pub fn pick(t: &Target) -> Vec<Candidate> {
-    let lo_t = t.hold_s * (1.0 - t.within);
-    let hi_t = t.hold_s * (1.0 + t.within);
+pub fn spread_of(t: &Target, d: Dielectric) -> Spread {
+    Spread {
+        r: Tolerance::symmetric(t.r_tol_ppm),
+        c: d.tolerance(),
+        vdd: Tolerance::symmetric(t.vdd_tol_ppm),
+        diode: Tolerance::symmetric(t.diode_tol_ppm),
+        thresholds: t.thresholds,
+        temp_mdeg_c: t.temp_mdeg_c,
+        tempco: Tempco { r_ppm_per_c: t.r_tempco_ppm_per_c, c_ppm_per_c: d.tempco_ppm_per_c(), ..Tempco::default() },
+        aging: d.aging(),
+        ..Spread::default()
+    }
+}
+
+/// R from the series for an ideal value: the nearest one (log scale), or
+/// with `pair` the largest one below plus the one nearest the rest.
+fn choose_r(values: &[f64], ideal: f64, pair: bool, series: Series) -> Option<(f64, Option<(f64, f64)>)> {
+    let idx = values.partition_point(|&r| r <= ideal);
+    let below = idx.checked_sub(1).and_then(|i| values.get(i)).copied();
+    let above = values.get(idx).copied();
+    if pair {
+        let r1 = below?;
+        let rest = ideal - r1;
+        if rest < 1.0 {
+            return Some((r1, None));
+        }
+        let r2 = series.nearest(rest);
+        return Some((r1 + r2, Some((r1, r2))));
+    }
+    match (below, above) {
+        (Some(b), Some(a)) => Some((if (ideal / b).ln() <= (a / ideal).ln() { b } else { a }, None)),
+        (Some(b), None) => Some((b, None)),
+        (None, Some(a)) => Some((a, None)),
+        (None, None) => None,
+    }
+}
+
+/// Searches the series; returns the candidates that meet the target, best
+/// first, and how many the hard limits left out.
+#[must_use]
+pub fn pick(t: &Target) -> (Vec<Candidate>, LeftOut) {
+    let lo_t = t.hold_s * (1.0 - t.within.0);
+    let hi_t = t.hold_s * (1.0 + t.within.1);
     let r_values = series_values(t.r_series, 1e3, 1e8);
     let mut out = Vec::new();
+    let mut left = LeftOut::default();
+    let vdd = f64::from(t.template.vdd_uv) * 1e-6;
+    let drop = match t.template.diode {
+        Diode::Drop { drop_uv } => f64::from(drop_uv) * 1e-6,
+        Diode::Junction { .. } => 0.6,
+    };
+    let driver = t.template.driver_mohm as f64 * 1e-3;
     for c in series_values(t.c_series, 100e-12, 10e-3) {
         let mut s = t.template;
         s.c_ff = (c * 1e15).round() as u64;
@@ -134,50 +229,52 @@ pub fn pick(t: &Target) -> Vec<Candidate> {
             if c < cl * (1.0 - 1e-9) || c > ch * (1.0 + 1e-9) {
                 continue;
             }
-            let sp = Spread {
-                r: Tolerance::symmetric(t.r_tol_ppm),
-                c: d.tolerance(),
-                vdd: Tolerance::symmetric(t.vdd_tol_ppm),
-                thresholds: t.thresholds,
-                aging: d.aging(),
-                ..Spread::default()
-            };
-            // The window scales with R (to the driver's 1e-4 share): centre it
-            // geometrically on the target from its position at 1 MΩ.
+            let sp = spread_of(t, d);
+            // The hold scales with R (to the driver's 1e-4 share): the ideal R
+            // puts the nominal on the target, from the nominal at 1 MΩ.
             s.r_mohm = 1_000_000_000;
-            let Ok(w_ref) = sp.window(&s) else { continue };
-            let centre_ref = (secs(w_ref.min) * secs(w_ref.max)).sqrt();
-            let r_ideal = 1e6 * t.hold_s / centre_ref;
+            let Some(h_ref) = Model::new(&s).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold)) else { continue };
+            let r_ideal = 1e6 * t.hold_s / h_ref;
             if !(1e3..=1e8).contains(&r_ideal) {
                 continue;
             }
-            let idx = r_values.partition_point(|&r| r < r_ideal);
-            for r in [idx.checked_sub(1).and_then(|i| r_values.get(i)), r_values.get(idx)].into_iter().flatten() {
-                let mut st = s;
-                st.r_mohm = (r * 1e3).round() as u64;
-                let Ok(w) = sp.window(&st) else { continue };
-                let Some(h) = Model::new(&st).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold)) else { continue };
-                let (min_s, max_s) = (secs(w.min), secs(w.max));
-                if min_s < lo_t || max_s > hi_t {
-                    continue;
-                }
-                let allowed = t.hold_s * t.within;
-                let margin = ((min_s - lo_t).min(hi_t - max_s) / allowed).clamp(0.0, 1.0);
-                out.push(Candidate {
-                    r_ohm: *r,
-                    c_f: c,
-                    dielectric: d,
-                    hold_s: h,
-                    min_s,
-                    max_s,
-                    margin,
-                    leakage_risk: *r > 10e6,
-                });
+            let Some((r, r_pair)) = choose_r(&r_values, r_ideal, t.pair, t.r_series) else { continue };
+            let mut st = s;
+            st.r_mohm = (r * 1e3).round() as u64;
+            let Ok(w) = sp.window(&st) else { continue };
+            let Some(h) = Model::new(&st).and_then(|m| m.evaluate()).ok().map(|e| secs(e.hold)) else { continue };
+            let (min_s, max_s) = (secs(w.min), secs(w.max));
+            if min_s < lo_t || max_s > hi_t {
+                continue;
             }
+            // Hard limits: leakage through a very large R, and the driver sourcing
+            // more than its rating for longer than 1 ms while C charges.
+            if r > 10e6 && !t.allow_high_r {
+                left.leakage += 1;
+                continue;
+            }
+            let charge_peak_ma = if driver > 0.0 { (vdd - drop).max(0.0) / driver * 1e3 } else { f64::INFINITY };
+            if charge_peak_ma > f64::from(t.output_limit_ma) && driver * c > 1e-3 {
+                left.charge_current += 1;
+                continue;
+            }
+            let margin = ((min_s - lo_t) / (t.hold_s - lo_t)).min((hi_t - max_s) / (hi_t - t.hold_s)).clamp(0.0, 1.0);
+            out.push(Candidate {
+                r_ohm: r,
+                r_pair,
+                c_f: c,
+                dielectric: d,
+                hold_s: h,
+                min_s,
+                max_s,
+                margin,
+                nominal_error: h / t.hold_s - 1.0,
+                charge_peak_ma,
+            });
         }
     }
     out.sort_by(|a, b| b.margin.total_cmp(&a.margin).then(a.c_f.total_cmp(&b.c_f)));
-    out
+    (out, left)
 }
 
 /// A template stage: supply, fixed diode drop, driver resistance, and the
@@ -250,17 +347,31 @@ pub fn stage_toml(t: &Target, c: &Candidate, input: &str, name: &str) -> String 
         }
         None => String::new(),
     };
+    let environment = t.temp_mdeg_c.map_or_else(String::new, |(lo, hi)| {
+        format!(
+            "\n[environment]\ntemp_min = \"{}\"\ntemp_max = \"{}\"\nr_tempco = \"{}\"\nc_tempco = \"{}\"\n",
+            f64::from(lo) / 1e3,
+            f64::from(hi) / 1e3,
+            t.r_tempco_ppm_per_c,
+            c.dielectric.tempco_ppm_per_c()
+        )
+    });
+    let pair = c.r_pair.map_or_else(String::new, |(a, b)| {
+        format!("# R is two resistors in series: {} + {}.\n", crate::fmt::si(a, "Ω"), crate::fmt::si(b, "Ω"))
+    });
     format!(
-        "# Written by `rchold pick`: R and C for a {hold} hold within ±{within} ({dielectric} capacitor).\n\
+        "# Written by `rchold pick`: R and C for a {hold} hold within {within} ({dielectric} capacitor).\n{pair}\
          name = {name:?}\n\n[stage]\nr = \"{r}\"\nc = \"{c_f}\"\nvdd = \"{vdd}\"\ndriver_ohms = \"{driver_ohm}\"\n\
          charge_ohms = \"0\"\nseries_ohms = \"0\"\nleak_ohms = \"inf\"\ndiode = {{ drop = \"{drop_v}\" }}\n\n\
          [input]\nfamily = {input:?}\n\n[press]\nduration = \"{press_s}\"\n\n\
-         [tolerance]\nr = \"{r_tol}\"\nc = \"{c_tol}\"\nvdd = \"{vdd_tol}\"\n{aging}",
+         [tolerance]\nr = \"{r_tol}\"\nc = \"{c_tol}\"\nvdd = \"{vdd_tol}\"\ndiode = \"{diode_tol}\"\n{environment}{aging}",
         hold = crate::fmt::si(t.hold_s, "s"),
-        within = pct((t.within * 1e6).round() as u32),
+        within = within_text(t.within),
         dielectric = c.dielectric.name(),
-        r = crate::fmt::si(c.r_ohm, "Ω"),
+        // Whole ohms and the series' own value, exactly: a rounded display value would move the nominal.
+        r = (c.r_ohm * 1e3).round() / 1e3,
         c_f = crate::fmt::si(c.c_f, "F"),
+        diode_tol = pct(t.diode_tol_ppm),
         vdd = f64::from(s.vdd_uv) * 1e-6,
         r_tol = pct(t.r_tol_ppm),
         c_tol = pct(c.dielectric.tolerance().plus_ppm),
@@ -269,65 +380,101 @@ pub fn stage_toml(t: &Target, c: &Candidate, input: &str, name: &str) -> String 
 }
 
 /// The report, as text or JSON.
+/// "±45.0 %", or "−30.0 % … +70.0 %" for a lopsided spread.
+fn within_text((below, above): (f64, f64)) -> String {
+    if (below - above).abs() < 1e-12 {
+        format!("±{:.1} %", below * 100.0)
+    } else {
+        format!("−{:.1} % … +{:.1} %", below * 100.0, above * 100.0)
+    }
+}
+
+/// The candidates as text or JSON: the first `top`, the margin's
+/// definition, what the hard limits left out.
 #[must_use]
-pub fn render(t: &Target, found: &[Candidate], top: usize, input: &str, json: bool) -> String {
+pub fn render(t: &Target, found: &[Candidate], left: LeftOut, top: usize, input: &str, json: bool) -> String {
     use crate::fmt::si;
     use std::fmt::Write as _;
     let shown: Vec<&Candidate> = found.iter().take(top).collect();
     if json {
         let v = serde_json::json!({
             "hold_s": t.hold_s,
-            "within": t.within,
+            "within_below": t.within.0,
+            "within_above": t.within.1,
             "found": found.len(),
+            "left_out": left,
             "candidates": shown,
         });
         return format!("{}\n", serde_json::to_string_pretty(&v).unwrap_or_default());
     }
     let mut o = String::new();
+    let temp = t
+        .temp_mdeg_c
+        .map_or_else(|| "25 °C".to_owned(), |(lo, hi)| format!("{} … {} °C", f64::from(lo) / 1e3, f64::from(hi) / 1e3));
     let _ = writeln!(
         o,
-        "parts for a {} hold within ±{:.1} % \u{b7} {} supply \u{b7} input {input} \u{b7} R from E{} at ±{:.1} % \u{b7} C from E{}",
+        "parts for a {} hold within {} \u{b7} {} ±{:.1} % supply \u{b7} input {input} \u{b7} diode ±{:.1} % \u{b7} {temp}, R {} ppm/°C \u{b7} R from E{} at ±{:.1} %{} \u{b7} C from E{}",
         si(t.hold_s, "s"),
-        t.within * 100.0,
+        within_text(t.within),
         si(f64::from(t.template.vdd_uv) * 1e-6, "V"),
+        f64::from(t.vdd_tol_ppm) / 1e4,
+        f64::from(t.diode_tol_ppm) / 1e4,
+        t.r_tempco_ppm_per_c,
         t.r_series.per_decade(),
         f64::from(t.r_tol_ppm) / 1e4,
+        if t.pair { " (two in series)" } else { "" },
         t.c_series.per_decade()
     );
+    let left_text = |o: &mut String| {
+        if left.leakage + left.charge_current > 0 {
+            let _ = writeln!(
+                o,
+                "  left out by hard limits: {} with R above 10 MΩ (leakage; --allow-high-r keeps them), {} whose driver would source more than the family's {} mA for over 1 ms (add a charge resistor)",
+                left.leakage, left.charge_current, t.output_limit_ma
+            );
+        }
+    };
     if found.is_empty() {
-        // Suggest a Schmitt input only where the input is not one already.
         let schmitt = matches!(t.thresholds, Some(ThresholdSpread::Schmitt { .. }));
         let _ = writeln!(
             o,
             "  no pair of preferred values keeps the worst case inside the target; widen --within, use tighter parts{}",
             if schmitt { ", or a part with a narrower threshold band" } else { ", or a Schmitt input" }
         );
+        left_text(&mut o);
         return o;
     }
     let _ = writeln!(
         o,
-        "  {:>10} {:>10} {:<13} {:>11} {:>11} {:>11} {:>8}",
-        "R", "C", "dielectric", "nominal", "shortest", "longest", "margin"
+        "  {:>22} {:>10} {:<13} {:>11} {:>8} {:>11} {:>11} {:>8}",
+        "R", "C", "dielectric", "nominal", "off by", "shortest", "longest", "margin"
     );
     for c in shown {
+        let r = c.r_pair.map_or_else(|| si(c.r_ohm, "Ω"), |(a, b)| format!("{} + {}", si(a, "Ω"), si(b, "Ω")));
         let _ = writeln!(
             o,
-            "  {:>10} {:>10} {:<13} {:>11} {:>11} {:>11} {:>7.0}%{}",
-            si(c.r_ohm, "Ω"),
+            "  {:>22} {:>10} {:<13} {:>11} {:>7.2}% {:>11} {:>11} {:>7.0}%",
+            r,
             si(c.c_f, "F"),
             c.dielectric.name(),
             si(c.hold_s, "s"),
+            c.nominal_error * 100.0,
             si(c.min_s, "s"),
             si(c.max_s, "s"),
             c.margin * 100.0,
-            if c.leakage_risk { "  (R above 10 MΩ: mind leakage)" } else { "" }
         );
     }
     let _ = writeln!(
         o,
-        "  {} candidates in all; dielectric tolerances and aging are common practice, check the part's data",
+        "  {} candidates in all; worst case over every corner of the tolerances, the threshold band, {temp} and the dielectric's aging",
         found.len()
     );
+    let _ = writeln!(
+        o,
+        "  margin: the share of the allowed {} the worst case leaves on its tighter side; dielectric tolerances, tempcos and aging are common practice, check the part's data",
+        within_text(t.within)
+    );
+    left_text(&mut o);
     if found.iter().take(top).any(|c| c.c_f >= 1e-3) {
         let _ = writeln!(o, "  caution: {}", crate::fmt::STORED_ENERGY);
     }
@@ -343,20 +490,26 @@ mod tests {
         let (template, thresholds) = template(5.0, 0.6, 50.0, "hc-schmitt")?;
         Ok(Target {
             hold_s: 5.0,
-            within: 0.6,
+            within: (0.6, 0.6),
             r_series: Series::E24,
             r_tol_ppm: 10_000,
             c_series: Series::E12,
             template,
             vdd_tol_ppm: 50_000,
             thresholds,
+            diode_tol_ppm: 100_000,
+            temp_mdeg_c: Some((0, 70_000)),
+            r_tempco_ppm_per_c: 100,
+            pair: false,
+            allow_high_r: false,
+            output_limit_ma: 25,
         })
     }
 
     #[test]
     fn the_written_stage_file_reads_back_with_the_candidates_hold() -> Result<(), Error> {
         let t = five_seconds()?;
-        let found = pick(&t);
+        let (found, _) = pick(&t);
         let first = found.first().ok_or_else(|| Error::Input("no candidate".into()))?;
         let text = stage_toml(&t, first, "hc-schmitt", "picked");
         let sf = crate::stage::file::parse(std::path::Path::new("picked.toml"), &text)?;
@@ -368,7 +521,7 @@ mod tests {
     #[test]
     fn candidates_lie_within_the_asked_spread() -> Result<(), Error> {
         let t = five_seconds()?;
-        let found = pick(&t);
+        let (found, _) = pick(&t);
         assert!(!found.is_empty());
         for c in &found {
             assert!(c.min_s >= 2.0 - 1e-9 && c.max_s <= 8.0 + 1e-9 && c.min_s <= c.hold_s, "{c:?}");
