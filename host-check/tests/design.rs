@@ -70,7 +70,7 @@ fn bad_input_gets_one_line_naming_file_line_key_and_range() {
         ),
         (
             GOOD.replace("vdd = \"5\"", "vdd = \"24\""),
-            "bad.toml:5: stage.vdd: 24 is outside the accepted range (1.6 V to 18 V)",
+            "bad.toml:5: stage.vdd: 24 is outside the accepted range (0.8 V to 18 V)",
         ),
         (GOOD.replace("family = \"hc-schmitt\"", "family = \"hc\"\nrise = 0.5"), "bad.toml: input: give either family"),
         (GOOD.replace("family = \"hc-schmitt\"", "family = \"ttl\""), "bad.toml:13: input.family: unknown family"),

@@ -57,7 +57,7 @@ impl Quantity {
     #[must_use]
     pub const fn range(self) -> &'static str {
         match self {
-            Quantity::Vdd => "1.6 V to 18 V",
+            Quantity::Vdd => "0.8 V to 18 V",
             Quantity::R => "1 kΩ to 100 MΩ",
             Quantity::C => "100 pF to 10 mF",
             Quantity::SeriesR | Quantity::ChargeR | Quantity::DriverR => "0 Ω to 1 MΩ",

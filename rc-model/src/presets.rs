@@ -116,6 +116,22 @@ pub const PRESETS: &[InputPreset] = &[
         levels: Levels::Table(&[(1_650, 578, 1_073), (1_950, 683, 1_268)]),
     },
     InputPreset {
+        name: "lvcmos15",
+        standard: "JEDEC JESD8-11 LVCMOS 1.5 V (0.35/0.65 of the supply; the 1.4 – 1.6 V range from memory)",
+        provenance: Provenance::Published,
+        vdd_mv: (1_400, 1_600),
+        output_limit_ma: 6,
+        levels: Levels::Table(&[(1_400, 490, 910), (1_600, 560, 1_040)]),
+    },
+    InputPreset {
+        name: "lvcmos12",
+        standard: "JEDEC JESD8-12 LVCMOS 1.2 V (0.35/0.65 of the supply; the 1.1 – 1.3 V range from memory)",
+        provenance: Provenance::Published,
+        vdd_mv: (1_100, 1_300),
+        output_limit_ma: 4,
+        levels: Levels::Table(&[(1_100, 385, 715), (1_300, 455, 845)]),
+    },
+    InputPreset {
         name: "hc-schmitt",
         standard: "Schmitt input of the high-speed CMOS family (inside JESD7A limits)",
         provenance: Provenance::FromMemory,

@@ -31,7 +31,7 @@ pub enum Diode {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Stage {
-    /// Supply voltage in µV (1.6 V – 18 V).
+    /// Supply voltage in µV (0.8 V – 18 V).
     pub vdd_uv: u32,
     /// Discharge resistor in mΩ (1 kΩ – 100 MΩ).
     pub r_mohm: u64,
@@ -62,8 +62,8 @@ pub struct Stage {
 
 /// Domain limits, in the unit of the corresponding field.
 pub mod limits {
-    /// Supply: 1.6 V – 18 V, in µV.
-    pub const VDD_UV: (u32, u32) = (1_600_000, 18_000_000);
+    /// Supply: 0.8 V – 18 V, in µV (low-voltage logic works from 0.8 V).
+    pub const VDD_UV: (u32, u32) = (800_000, 18_000_000);
     /// R: 1 kΩ – 100 MΩ, in mΩ.
     pub const R_MOHM: (u64, u64) = (1_000_000, 100_000_000_000);
     /// C: 100 pF – 10 mF, in fF.

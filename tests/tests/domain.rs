@@ -90,7 +90,7 @@ fn inputs_outside_the_domain_are_refused_by_name() {
     let base = rchold_tests::ideal_stage(500_000);
     type Case = (fn(&mut Stage), rc_model::Quantity);
     let cases: [Case; 8] = [
-        (|s| s.vdd_uv = 1_599_999, rc_model::Quantity::Vdd),
+        (|s| s.vdd_uv = 799_999, rc_model::Quantity::Vdd),
         (|s| s.r_mohm = 999_999, rc_model::Quantity::R),
         (|s| s.c_ff = 10_000_000_000_001, rc_model::Quantity::C),
         (|s| s.driver_mohm = 1_000_000_001, rc_model::Quantity::DriverR),

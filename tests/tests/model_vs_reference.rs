@@ -7,7 +7,7 @@ use rc_model::{Diode, Model, Span, Stage};
 
 fn stage_strategy() -> impl Strategy<Value = Stage> {
     (
-        1_600_000u32..=18_000_000,
+        800_000u32..=18_000_000,
         6.0f64..11.0, // log10 R in mΩ
         5.0f64..13.0, // log10 C in fF
         50_000u32..=950_000,

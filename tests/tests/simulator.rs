@@ -97,6 +97,24 @@ fn cases() -> Vec<Case> {
             stage: st(1.8, 1e6, 100e-9, Diode::Drop { drop_uv: 300_000 }, 0.65, 0.35, 0.01, 40.0),
             kind: Kind::Full,
         },
+        // Low-voltage logic: a junction diode at low forward current, where its
+        // drop is a large share of the supply (JESD8-12 1.2 V and JESD8-11 1.5 V
+        // thresholds at 0.35/0.65 of the supply; 0.8 V, the bottom of the domain).
+        Case {
+            name: "0.8 V, junction at low current",
+            stage: st(0.8, 1e6, 1e-6, J_SMALL, 0.4, 0.25, 0.05, 60.0),
+            kind: Kind::Full,
+        },
+        Case {
+            name: "1.2 V LVCMOS (JESD8-12), junction",
+            stage: st(1.2, 470e3, 2.2e-6, J_SMALL, 0.65, 0.35, 0.05, 50.0),
+            kind: Kind::Full,
+        },
+        Case {
+            name: "1.5 V LVCMOS (JESD8-11), junction",
+            stage: st(1.5, 1e6, 1e-6, J_LOW_LEAK, 0.65, 0.35, 0.05, 40.0),
+            kind: Kind::Full,
+        },
         Case { name: "12 V", stage: st(12.0, 220e3, 4.7e-6, J_SMALL, 0.6, 0.4, 0.05, 100.0), kind: Kind::Full },
         Case { name: "15 V junction", stage: st(15.0, 2.2e6, 1e-6, J_SMALL, 0.7, 0.3, 0.05, 300.0), kind: Kind::Full },
         Case {

@@ -392,7 +392,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         }
     })?;
     let st = &raw.stage;
-    let vdd = cx.si(&st.vdd, "stage.vdd", VOLT, 1.6, 18.0, Quantity::Vdd.range())?;
+    let vdd = cx.si(&st.vdd, "stage.vdd", VOLT, 0.8, 18.0, Quantity::Vdd.range())?;
     cx.note(Quantity::Vdd, &st.vdd, "stage.vdd");
     let r = cx.si(&st.r, "stage.r", OHM, 1e3, 1e8, Quantity::R.range())?;
     cx.note(Quantity::R, &st.r, "stage.r");

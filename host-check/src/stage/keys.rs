@@ -42,7 +42,11 @@ pub const KEYS: &[Key] = &[
     opt("stage.diode.n", "number", Quantity::DiodeN.range()),
     opt("stage.diode.rs", "Ω", Quantity::DiodeRs.range()),
     opt("stage.temperature", "°C", Quantity::Temperature.range()),
-    opt("input.family", "preset", "hc, 4000b, lvcmos33, lvcmos25, lvcmos18, hc-schmitt, 4000b-schmitt"),
+    opt(
+        "input.family",
+        "preset",
+        "hc, 4000b, lvcmos33, lvcmos25, lvcmos18, lvcmos15, lvcmos12, hc-schmitt, 4000b-schmitt",
+    ),
     opt("input.rise", "fraction of vdd", "0.05 to 0.95 (instead of family)"),
     opt("input.fall", "fraction of vdd", "0.05 up to input.rise"),
     req("press.duration", "s", Quantity::Press.range()),

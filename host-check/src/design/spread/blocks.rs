@@ -355,12 +355,12 @@ mod tests {
         let mut junction = stage();
         junction.diode = Diode::Junction { is_fa: 4_000_000, n_milli: 1_900, rs_mohm: 600_000 };
         assert!(matches!(plan(&junction, &wide_spread(), Eval::Fast), Plan::Float));
-        // 1.7 V −10 % reaches below the 1.6 V the model accepts.
+        // 0.85 V −10 % reaches below the 0.8 V the model accepts.
         let mut low = stage();
-        low.vdd_uv = 1_700_000;
-        low.diode = Diode::Drop { drop_uv: 200_000 };
-        low.rise_uv = 900_000;
-        low.fall_uv = 700_000;
+        low.vdd_uv = 850_000;
+        low.diode = Diode::Drop { drop_uv: 100_000 };
+        low.rise_uv = 450_000;
+        low.fall_uv = 350_000;
         let sp = Spread { vdd: Tolerance::symmetric(100_000), ..Spread::default() };
         assert!(!every_board_in_domain(&low, &sp));
         assert!(matches!(plan(&low, &sp, Eval::Fast), Plan::Float));

@@ -114,7 +114,7 @@ fn ppm(opt: &str, text: &str, hi: f64) -> Result<u32, Error> {
 /// Prints the candidates; exit code 1 when none fits.
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let hold_s = value("hold", &a.hold, &["s"], 1e-6, 86_400.0, "1 µs to 24 h")?;
-    let vdd_v = value("vdd", &a.vdd, &["V"], 1.6, 18.0, "1.6 V to 18 V")?;
+    let vdd_v = value("vdd", &a.vdd, &["V"], 0.8, 18.0, "0.8 V to 18 V")?;
     let drop_v = value("diode", &a.diode, &["V"], 0.0, 2.0, "0 V to 2 V")?;
     let driver_ohm = value("driver", &a.driver, &["Ω", "ohm"], 0.0, 1e6, "0 Ω to 1 MΩ")?;
     let (template, thresholds) = template(vdd_v, drop_v, driver_ohm, &a.input)?;
