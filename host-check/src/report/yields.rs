@@ -144,6 +144,7 @@ impl Checker {
             return None;
         }
         let hold = secs(r.hold_ticks.filter(|&h| h > 0)?);
+        // One turn-on poll and a tick: the resolution a latency was read with.
         let resolution = secs(self.resolution_ticks / 10);
         let d = crate::design::diagnose::diagnose(&self.file, hold, r.on_ticks.map(secs), resolution).ok()?;
         Some(d.short())
