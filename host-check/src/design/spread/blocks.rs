@@ -117,6 +117,16 @@ fn fill(lanes: &mut Lanes, dist: Dist, lo: f64, hi: f64, col: &mut [f64x4]) {
                 *x = lo4 + width * lanes.next_unit();
             }
         }
+        Dist::Truncated { k_sigma } => {
+            // The inverse CDF lane by lane (no vector erfc⁻¹), one uniform each.
+            for x in col {
+                let u = lanes.next_unit().to_array();
+                *x = f64x4::from(u.map(|u| {
+                    let z = super::truncated_normal(u, k_sigma);
+                    (z * if z < 0.0 { -lo } else { hi } / k_sigma).clamp(lo, hi)
+                }));
+            }
+        }
         Dist::Normal { k_sigma } => {
             let (below, above) = (f64x4::splat(-lo / k_sigma), f64x4::splat(hi / k_sigma));
             // Both normals of each Box–Muller pair: the cosine one, then the sine one.
@@ -406,7 +416,7 @@ mod tests {
         let (mut checked, mut refused) = (0, 0);
         for (i, (s, sp, within)) in cases.iter().enumerate() {
             let Plan::Plain(p) = plan(s, sp, Eval::Fast) else { panic!("case {i}: not the closed form") };
-            for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+            for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }, Dist::Truncated { k_sigma: 3.0 }] {
                 let mut cols = Columns::default();
                 let (mut fast, mut exact) = (vec![0.0; BLOCK - 3], vec![0.0; BLOCK - 3]);
                 run_block(s, sp, dist, 77, 5, &Plan::Plain(p), &mut cols, &mut fast);
@@ -447,7 +457,7 @@ mod tests {
     #[test]
     fn columns_stay_inside_the_tolerances() {
         let sp = wide_spread();
-        for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }] {
+        for dist in [Dist::Uniform, Dist::Normal { k_sigma: 3.0 }, Dist::Truncated { k_sigma: 3.0 }] {
             let mut cols = Columns::default();
             let mut r = Vec::new();
             for b in 0..20 {
@@ -470,6 +480,7 @@ mod tests {
             let want = match dist {
                 Dist::Uniform => 0.01 / 3f64.sqrt(),
                 Dist::Normal { .. } => 0.01 / 3.0,
+                Dist::Truncated { k_sigma } => 0.01 / k_sigma * super::super::truncated_sd(k_sigma),
             };
             assert!((mean - 1.0).abs() < 1e-4 && (sd - want).abs() < 0.03 * want, "{dist:?}: {mean} {sd}");
         }

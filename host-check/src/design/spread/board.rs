@@ -29,6 +29,11 @@ fn draw_factor<R: Rng>(rng: &mut R, t: Tolerance, dist: Dist) -> f64 {
             let half = if z < 0.0 { -lo } else { hi };
             (z * half / k_sigma).clamp(lo, hi)
         }
+        Dist::Truncated { k_sigma } => {
+            let z = super::truncated_normal(unit(rng), k_sigma);
+            let half = if z < 0.0 { -lo } else { hi };
+            (z * half / k_sigma).clamp(lo, hi)
+        }
     };
     1.0 + x
 }

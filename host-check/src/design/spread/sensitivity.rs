@@ -91,6 +91,7 @@ pub fn first_order(nominal: &Stage, spread: &Spread, dist: Dist) -> Result<Vec<S
             _ if plain => half / super::board::PLAIN_SIGMAS,
             Dist::Uniform => half / 3f64.sqrt(),
             Dist::Normal { k_sigma } => half / k_sigma,
+            Dist::Truncated { k_sigma } => half / k_sigma * super::truncated_sd(k_sigma),
         };
         let elasticity = tolerance(spread, p).and_then(|t| {
             let span = (f64::from(t.minus_ppm) + f64::from(t.plus_ppm)) * 1e-6;

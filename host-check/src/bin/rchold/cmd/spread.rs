@@ -22,10 +22,11 @@ pub struct Args {
     /// Seed of the draws (results do not depend on the thread count).
     #[arg(long, default_value_t = 1)]
     seed: u64,
-    /// How a tolerance is read: uniform, or normal with the tolerance at --k-sigma.
-    #[arg(long, default_value = "uniform", value_parser = ["uniform", "normal"])]
+    /// How a tolerance is read: uniform; normal with the tolerance at --k-sigma and draws
+    /// beyond it set to its ends; or truncated, normal redrawn inside the ends (no mass at them).
+    #[arg(long, default_value = "uniform", value_parser = ["uniform", "normal", "truncated"])]
     dist: String,
-    /// Standard deviations a tolerance spans when --dist normal.
+    /// Standard deviations a tolerance spans when --dist normal or truncated.
     #[arg(long, default_value_t = 3.0)]
     k_sigma: f64,
     /// Specification window for Cp/Cpk, as LOW..HIGH ("500m..1.2"); default: the stage file's [spec].
@@ -73,11 +74,11 @@ fn spec(text: &str) -> Result<(f64, f64), Error> {
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let mut sf = stage(&a.stage)?;
     let samples = within("samples", a.samples, 1..=100_000_000, "1 to 100000000")?;
-    let dist = if a.dist == "normal" {
-        let k_sigma = within("k-sigma", a.k_sigma, f64::MIN_POSITIVE..=10.0, "above 0 up to 10")?;
-        Dist::Normal { k_sigma }
-    } else {
-        Dist::Uniform
+    let k_sigma = || within("k-sigma", a.k_sigma, f64::MIN_POSITIVE..=10.0, "above 0 up to 10");
+    let dist = match a.dist.as_str() {
+        "normal" => Dist::Normal { k_sigma: k_sigma()? },
+        "truncated" => Dist::Truncated { k_sigma: k_sigma()? },
+        _ => Dist::Uniform,
     };
     // The stage file's [spec] unless --spec gives another.
     let spec = a.spec.as_deref().map(spec).transpose()?.or(sf.spec_s);
