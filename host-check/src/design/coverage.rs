@@ -310,10 +310,11 @@ fn faults(sf: &StageFile) -> (Vec<(String, Kind, Change)>, String, String) {
 fn gross(s: &StageF, change: Change, judge: &Judge) -> Option<Point> {
     let mut x = *s;
     let t = match change {
-        // No discharge path but the leakage: the hold ends at the timeout, or never.
+        // No discharge path but 1 TΩ of board leakage (as the twin has) and the
+        // stage's own leakage: the hold ends late, or never.
         Change::OpenR => {
             x.r = 1e12;
-            times(&x).map(|(h, l)| (h.max(judge.hold_timeout * 2.0), l))
+            times(&x)
         }
         // The node cannot rise: the output never turns on.
         Change::ShortR | Change::ShortC | Change::OpenDiode => None,
