@@ -248,7 +248,8 @@ pub fn pick(t: &Target) -> (Vec<Candidate>, LeftOut) {
                 continue;
             }
             // Hard limits: leakage through a very large R, and the driver sourcing
-            // more than its rating for longer than 1 ms while C charges.
+            // more than its rating for longer than 1 ms while C charges (the 10 MΩ and 1 ms
+            // bounds are common practice, no source; the family's rating is from memory).
             if r > 10e6 && !t.allow_high_r {
                 left.leakage += 1;
                 continue;
