@@ -70,10 +70,17 @@ fn a_killed_ingest_leaves_nothing_behind() {
         .stderr(Stdio::null())
         .spawn()
         .unwrap_or_else(|e| panic!("{e}"));
-    // Wait until the transaction is well under way (its pages spill into the WAL).
-    let wal = dir.path().join("rchold.db-wal");
+    // Wait until the transaction is well under way: the file was read once for its
+    // digest and half again for its records (the process's read count, Linux /proc).
+    let size = std::fs::metadata(dir.path().join("big.csv")).map_or(0, |m| m.len());
+    let io = format!("/proc/{}/io", child.id());
+    let read = || {
+        std::fs::read_to_string(&io)
+            .ok()
+            .and_then(|s| s.lines().find_map(|l| l.strip_prefix("rchar: ").and_then(|v| v.trim().parse::<u64>().ok())))
+    };
     let t = Instant::now();
-    while std::fs::metadata(&wal).map_or(0, |m| m.len()) < 4 << 20 {
+    while read().unwrap_or(0) < size + size / 2 {
         assert!(t.elapsed() < Duration::from_secs(120), "ingest never got going");
         if let Ok(Some(s)) = child.try_wait() {
             panic!("ingest finished before it could be killed ({s}); make the file bigger");
@@ -86,6 +93,9 @@ fn a_killed_ingest_leaves_nothing_behind() {
     assert_eq!(store.integrity().ok().as_deref(), Some("ok"));
     assert_eq!(store.count().ok(), Some(1_000));
     assert_eq!(store.sources().map(|s| s.len()).ok(), Some(1), "the killed file left a source row");
+    // The summaries kept at ingest are those of the rows that stayed.
+    let (kept, recount) = (store.summaries(), store.recount());
+    assert!(kept.is_ok() && kept.ok() == recount.ok(), "summaries differ from a recount after the kill");
     drop(store);
     // The file can be ingested afterwards, whole.
     let again = rchold(dir.path(), &["ingest", "big.csv"]);

@@ -8,4 +8,5 @@ pub mod frames;
 pub mod log;
 pub mod mapping;
 pub mod store;
+pub mod summary;
 pub mod time;

@@ -1,17 +1,29 @@
 //! The measurement store: one SQLite file (WAL mode), its schema versioned in
 //! `PRAGMA user_version` and migrated forward on open.
 //!
-//! Tables (schema 2):
+//! Tables (schema 4):
 //! - `setup` — what a station measured against: the stage file's text and the
 //!   firmware window in ticks (`hold_min_ticks`, `hold_max_ticks` at `clock_hz`).
 //! - `source` — one row per stream listened to or log file ingested, with its
 //!   counts (`records`, `duplicates`, `bad_frames`, `bytes`); a log file's
 //!   SHA-256 is unique, which makes re-ingesting it a no-op.
-//! - `station` — station names.
-//! - `measurement` — one row per record, keyed by (station, unit, seq);
-//!   times in ms since the epoch (UTC), temperatures in m°C, verdict, hint
-//!   and drift as the codes of [`crate::data::codes`] (also in tables `verdict`,
-//!   `hint`, `drift` for SQL users).
+//! - `station`, `batch` — names, referred to by id.
+//! - `reading` — one compact row per record, keyed by (station, unit, seq):
+//!   time in ms since the epoch (UTC), batch and setup as ids (setup 0: none),
+//!   `clock_hz` only where it is not the setup's (NULL otherwise), temperature
+//!   in m°C, and verdict, hint and drift packed as `codes` = verdict +
+//!   16·hint + 256·drift (the codes of [`crate::data::codes`], also in tables
+//!   `verdict`, `hint`, `drift`). A partial index holds the rejects only.
+//!   The view `measurement` shows the rows in the earlier, unpacked layout.
+//! - `yield_cell` — the yield summary ([`Cell`]) of each (station, batch, UTC
+//!   day, setup, clock), kept at ingest in the same transaction as the rows.
+//! - `unit_fit` — each field unit's least-squares sums ([`UnitSums`]) per
+//!   setup, for `aging` (kept for records of a field setup or of a station
+//!   whose units report drift; when a station begins to drift its sums are
+//!   counted from all its rows).
+//!
+//! The summaries always equal a recount of the rows ([`Store::recount`];
+//! property test `summaries_equal_a_recount`).
 //!
 //! Writers take the write lock up front (`BEGIN IMMEDIATE`) and wait up to
 //! `busy_timeout` for it, so two writers at once serialise instead of failing.
@@ -24,13 +36,21 @@ use hold_firmware::record::Record;
 use rusqlite::{params, Connection, OptionalExtension as _, TransactionBehavior};
 use sha2::{Digest as _, Sha256};
 
+use std::collections::BTreeMap;
+
+use hold_firmware::drift::DriftState;
+
 use crate::data::codes;
+use crate::data::summary::{self, Cell, UnitSums};
+use crate::report::aging;
+use crate::stage::file::StageFile;
 
 /// The schema version this build writes.
-pub const SCHEMA_VERSION: u32 = 3;
+pub const SCHEMA_VERSION: u32 = 4;
 
-/// Migrations: entry `i` moves a database from version `i` to `i + 1`.
-const MIGRATIONS: [&str; 3] = [
+/// Migrations: entry `i` moves a database from version `i` to `i + 1`
+/// (3 → 4 is followed by the summaries' recount, [`Store::migrate_to`]).
+const MIGRATIONS: [&str; 4] = [
     // 0 → 1: the tables.
     "CREATE TABLE setup (
         id INTEGER PRIMARY KEY,
@@ -83,6 +103,59 @@ const MIGRATIONS: [&str; 3] = [
     // and discharge paths from the capacitor (codes are only ever appended).
     "INSERT OR IGNORE INTO verdict VALUES (7, 'fast-start'), (8, 'slow-start');
      INSERT OR IGNORE INTO hint VALUES (8, 'charge-path'), (9, 'discharge-path');",
+    // 3 → 4: compact rows (batch and setup as keys, the clock only where it is
+    // not the setup's, the three codes in one integer, no foreign-key checks
+    // per row, no time index: reports by day read the summaries) and the
+    // summaries kept at ingest. `measurement` stays as a view for SQL users.
+    "CREATE TABLE batch (id INTEGER PRIMARY KEY, name TEXT NOT NULL UNIQUE);
+     CREATE TABLE reading (
+        station_id INTEGER NOT NULL,
+        unit_id INTEGER NOT NULL,
+        seq INTEGER NOT NULL,
+        measured_ms INTEGER NOT NULL,
+        batch_id INTEGER NOT NULL,
+        setup_id INTEGER NOT NULL,
+        source_id INTEGER NOT NULL,
+        clock_hz INTEGER,
+        press_ticks INTEGER NOT NULL,
+        on_ticks INTEGER,
+        hold_ticks INTEGER,
+        temp_mdeg_c INTEGER,
+        c_dev_ppm INTEGER,
+        codes INTEGER NOT NULL,
+        PRIMARY KEY (station_id, unit_id, seq)
+     ) WITHOUT ROWID;
+     CREATE INDEX reading_reject ON reading (station_id, unit_id, seq) WHERE codes % 16 != 0;
+     CREATE TABLE yield_cell (
+        station_id INTEGER NOT NULL,
+        batch_id INTEGER NOT NULL,
+        day INTEGER NOT NULL,
+        setup_id INTEGER NOT NULL,
+        clock_hz INTEGER NOT NULL,
+        cell BLOB NOT NULL,
+        PRIMARY KEY (station_id, batch_id, day, setup_id, clock_hz)
+     ) WITHOUT ROWID;
+     CREATE TABLE unit_fit (
+        station_id INTEGER NOT NULL,
+        unit_id INTEGER NOT NULL,
+        setup_id INTEGER NOT NULL,
+        sums BLOB NOT NULL,
+        PRIMARY KEY (station_id, unit_id, setup_id)
+     ) WITHOUT ROWID;
+     INSERT INTO batch (name) SELECT DISTINCT batch FROM measurement ORDER BY batch;
+     INSERT INTO reading
+        SELECT m.station_id, m.unit_id, m.seq, m.measured_ms, b.id, coalesce(m.setup_id, 0), m.source_id,
+               CASE WHEN m.clock_hz = s.clock_hz THEN NULL ELSE m.clock_hz END,
+               m.press_ticks, m.on_ticks, m.hold_ticks, m.temp_mdeg_c, m.c_dev_ppm,
+               m.verdict + 16 * m.hint + 256 * m.drift
+        FROM measurement m JOIN batch b ON b.name = m.batch LEFT JOIN setup s ON s.id = m.setup_id;
+     DROP TABLE measurement;
+     CREATE VIEW measurement AS
+        SELECT r.station_id, r.unit_id, r.seq, b.name AS batch, r.measured_ms,
+               coalesce(r.clock_hz, s.clock_hz) AS clock_hz, r.press_ticks, r.on_ticks, r.hold_ticks,
+               r.temp_mdeg_c, r.codes % 16 AS verdict, (r.codes / 16) % 16 AS hint, r.codes / 256 AS drift,
+               r.c_dev_ppm, nullif(r.setup_id, 0) AS setup_id, r.source_id
+        FROM reading r JOIN batch b ON b.id = r.batch_id LEFT JOIN setup s ON s.id = r.setup_id;",
 ];
 
 /// One source of records in the store: a stream `listen` read or a log
@@ -211,6 +284,18 @@ pub struct Filter {
     pub to_ms: Option<i64>,
     /// Only this unit.
     pub unit_id: Option<u32>,
+    /// Only rejects (verdict not `within-window`).
+    pub rejects_only: bool,
+}
+
+impl Filter {
+    /// Whether the store's summaries answer this filter: no unit, and any
+    /// time bounds on whole UTC days.
+    #[must_use]
+    pub fn by_days(&self) -> bool {
+        let whole = |t: Option<i64>| t.is_none_or(|t| t.rem_euclid(summary::DAY_MS) == 0);
+        self.unit_id.is_none() && !self.rejects_only && whole(self.from_ms) && whole(self.to_ms)
+    }
 }
 
 /// Counts of one source after writing.
@@ -231,9 +316,17 @@ pub struct Store {
     path: PathBuf,
 }
 
-const INSERT: &str = "INSERT OR IGNORE INTO measurement (station_id, unit_id, seq, batch, measured_ms, clock_hz, \
-     press_ticks, on_ticks, hold_ticks, temp_mdeg_c, verdict, hint, drift, c_dev_ppm, setup_id, source_id) \
-     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, ?16)";
+const INSERT: &str = "INSERT OR IGNORE INTO reading (station_id, unit_id, seq, measured_ms, batch_id, setup_id, \
+     source_id, clock_hz, press_ticks, on_ticks, hold_ticks, temp_mdeg_c, c_dev_ppm, codes) \
+     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)";
+
+/// The three codes of a record in one integer: verdict + 16·hint + 256·drift.
+#[must_use]
+pub fn pack_codes(r: &Record) -> i64 {
+    i64::from(codes::verdict_code(r.verdict))
+        + 16 * i64::from(codes::hint_code(r.hint))
+        + 256 * i64::from(codes::drift_code(r.drift))
+}
 
 /// How long a connection waits for another writer's lock before it gives up.
 const BUSY_WAIT: Duration = Duration::from_secs(60);
@@ -290,7 +383,10 @@ impl Store {
         let conn = Connection::open(path).map_err(|e| err(format!("cannot open: {e}")))?;
         conn.busy_timeout(BUSY_WAIT).map_err(|e| err(e.to_string()))?;
         into_wal(&conn).map_err(err)?;
-        conn.execute_batch("PRAGMA synchronous = NORMAL; PRAGMA foreign_keys = ON;").map_err(|e| err(e.to_string()))?;
+        // A 64 MiB page cache: an ingest of millions of rows stays in memory
+        // between the B-tree's pages (bounded, whatever the store's size).
+        conn.execute_batch("PRAGMA synchronous = NORMAL; PRAGMA foreign_keys = ON; PRAGMA cache_size = -65536;")
+            .map_err(|e| err(e.to_string()))?;
         let mut store = Store { conn, path: path.to_path_buf() };
         store.migrate()?;
         Ok(store)
@@ -347,6 +443,11 @@ impl Store {
         for v in on_disk..target.min(SCHEMA_VERSION) {
             let sql = MIGRATIONS.get(v as usize).ok_or_else(|| se(&path, "missing migration"))?;
             tx.execute_batch(sql).map_err(|e| se(&path, format!("migration {v} → {}: {e}", v + 1)))?;
+            if v == 3 {
+                // The summaries of the rows carried over.
+                let sums = recount(&tx, &path)?;
+                write_summaries(&tx, &path, &sums, true)?;
+            }
             if v == 0 {
                 for (i, n) in codes::VERDICTS.iter().map(|v| v.name()).enumerate() {
                     tx.execute("INSERT INTO verdict VALUES (?1, ?2)", params![i as i64, n])
@@ -473,7 +574,20 @@ impl Store {
             .conn
             .transaction_with_behavior(TransactionBehavior::Immediate)
             .map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
-        Ok(Batch { tx, path, stations: HashMap::new(), stored: 0, duplicates: 0 })
+        let setups = SetupInfo::load(&tx, &path)?;
+        let drifting = drifting_stations(&tx, &path)?;
+        Ok(Batch {
+            tx,
+            path,
+            stations: HashMap::new(),
+            batches: HashMap::new(),
+            setups,
+            drifting: drifting.into_iter().collect(),
+            newly_drifting: std::collections::BTreeSet::new(),
+            pending: Summaries::default(),
+            stored: 0,
+            duplicates: 0,
+        })
     }
 
     /// Reads measurements matching `filter` in (station, unit, seq) order,
@@ -482,18 +596,48 @@ impl Store {
     /// # Errors
     /// SQLite errors, or a stored code this build does not know.
     pub fn for_each(&self, filter: &Filter, mut each: impl FnMut(Stored)) -> Result<u64, StoreError> {
+        let batches = self.batches()?;
+        let mut n = 0;
+        Store::scan(&self.conn, &self.path, filter, None, |x| {
+            each(Stored {
+                station_id: x.station_id,
+                batch: batches.get(&x.batch_id).cloned().unwrap_or_default(),
+                measured_ms: x.measured_ms,
+                record: x.record,
+                setup_id: Some(x.setup).filter(|&id| id != 0),
+            });
+            n += 1;
+            true
+        })?;
+        Ok(n)
+    }
+
+    /// The rows matching `filter` (and `station`, by id), in (station, unit,
+    /// seq) order; `each` returns `false` to stop.
+    fn scan(
+        conn: &Connection,
+        path: &Path,
+        filter: &Filter,
+        station: Option<i64>,
+        mut each: impl FnMut(Row) -> bool,
+    ) -> Result<(), StoreError> {
+        let err = |e: rusqlite::Error| se(path, e);
         let mut sql = String::from(
-            "SELECT m.station_id, m.batch, m.measured_ms, m.unit_id, m.seq, m.clock_hz, m.press_ticks, m.on_ticks, \
-             m.hold_ticks, m.temp_mdeg_c, m.verdict, m.hint, m.drift, m.c_dev_ppm, m.setup_id \
-             FROM measurement m JOIN station s ON s.id = m.station_id WHERE 1",
+            "SELECT m.station_id, m.batch_id, m.measured_ms, m.unit_id, m.seq, coalesce(m.clock_hz, u.clock_hz), \
+             m.press_ticks, m.on_ticks, m.hold_ticks, m.temp_mdeg_c, m.codes, m.c_dev_ppm, m.setup_id \
+             FROM reading m LEFT JOIN setup u ON u.id = m.setup_id WHERE 1",
         );
         let mut args: Vec<rusqlite::types::Value> = Vec::new();
         if let Some(s) = &filter.station {
-            sql.push_str(" AND s.name = ?");
+            sql.push_str(" AND m.station_id = (SELECT id FROM station WHERE name = ?)");
             args.push(s.clone().into());
         }
+        if let Some(id) = station {
+            sql.push_str(" AND m.station_id = ?");
+            args.push(id.into());
+        }
         if let Some(b) = &filter.batch {
-            sql.push_str(" AND m.batch = ?");
+            sql.push_str(" AND m.batch_id = (SELECT id FROM batch WHERE name = ?)");
             args.push(b.clone().into());
         }
         if let Some(t) = filter.from_ms {
@@ -508,38 +652,38 @@ impl Store {
             sql.push_str(" AND m.unit_id = ?");
             args.push(i64::from(u).into());
         }
+        if filter.rejects_only {
+            // The partial index `reading_reject` holds exactly these rows.
+            sql.push_str(" AND m.codes % 16 != 0");
+        }
         sql.push_str(" ORDER BY m.station_id, m.unit_id, m.seq");
-        let mut st = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
-        let mut rows = st.query(rusqlite::params_from_iter(args)).map_err(|e| self.err(e))?;
-        let mut n = 0;
-        let bad = |what: &str, code: i64| format!("stored {what} code {code} is unknown to this rchold");
-        while let Some(r) = rows.next().map_err(|e| self.err(e))? {
-            let get = |i: usize| r.get::<_, i64>(i).map_err(|e| self.err(e));
-            let opt = |i: usize| r.get::<_, Option<i64>>(i).map_err(|e| self.err(e));
-            let (vc, hc, dc) = (get(10)?, get(11)?, get(12)?);
+        let mut st = conn.prepare(&sql).map_err(err)?;
+        let mut rows = st.query(rusqlite::params_from_iter(args)).map_err(err)?;
+        let bad = |what: &str, code: i64| se(path, format!("stored {what} code {code} is unknown to this rchold"));
+        while let Some(r) = rows.next().map_err(err)? {
+            let get = |i: usize| r.get::<_, i64>(i).map_err(err);
+            let opt = |i: usize| r.get::<_, Option<i64>>(i).map_err(err);
+            let packed = get(10)?;
+            let (vc, hc, dc) = (packed % 16, (packed / 16) % 16, packed / 256);
             let record = Record {
                 unit_id: u32::try_from(get(3)?).unwrap_or(u32::MAX),
                 seq: u32::try_from(get(4)?).unwrap_or(u32::MAX),
-                clock_hz: u32::try_from(get(5)?).unwrap_or(0),
+                clock_hz: u32::try_from(opt(5)?.unwrap_or(0)).unwrap_or(0),
                 press_ticks: get(6)?.max(0) as u64,
                 on_ticks: opt(7)?.map(|v| v.max(0) as u64),
                 hold_ticks: opt(8)?.map(|v| v.max(0) as u64),
                 temp_mdeg_c: opt(9)?.and_then(|v| i32::try_from(v).ok()),
-                verdict: codes::verdict_of(vc).ok_or_else(|| self.err(bad("verdict", vc)))?,
-                hint: codes::hint_of(hc).ok_or_else(|| self.err(bad("hint", hc)))?,
-                drift: codes::drift_of(dc).ok_or_else(|| self.err(bad("drift", dc)))?,
-                c_deviation_ppm: opt(13)?.and_then(|v| i32::try_from(v).ok()),
+                verdict: codes::verdict_of(vc).ok_or_else(|| bad("verdict", vc))?,
+                hint: codes::hint_of(hc).ok_or_else(|| bad("hint", hc))?,
+                drift: codes::drift_of(dc).ok_or_else(|| bad("drift", dc))?,
+                c_deviation_ppm: opt(11)?.and_then(|v| i32::try_from(v).ok()),
             };
-            each(Stored {
-                station_id: get(0)?,
-                batch: r.get(1).map_err(|e| self.err(e))?,
-                measured_ms: get(2)?,
-                record,
-                setup_id: opt(14)?,
-            });
-            n += 1;
+            let row = Row { station_id: get(0)?, batch_id: get(1)?, measured_ms: get(2)?, record, setup: get(12)? };
+            if !each(row) {
+                break;
+            }
         }
-        Ok(n)
+        Ok(())
     }
 
     /// Every source (stream or log) with its counts, in the order stored.
@@ -569,18 +713,13 @@ impl Store {
     }
 
     /// Stations with a record that reports a drift state past settling:
-    /// stations of field units (a fixture measures a board once).
+    /// stations of field units (a fixture measures a board once). Read from
+    /// the summaries.
     ///
     /// # Errors
     /// SQLite errors.
     pub fn drift_stations(&self) -> Result<std::collections::HashSet<i64>, StoreError> {
-        let settling = i64::from(codes::drift_code(hold_firmware::drift::DriftState::Settling));
-        let mut st = self
-            .conn
-            .prepare("SELECT DISTINCT station_id FROM measurement WHERE drift != ?1")
-            .map_err(|e| self.err(e))?;
-        let rows = st.query_map([settling], |r| r.get::<_, i64>(0)).map_err(|e| self.err(e))?;
-        rows.collect::<Result<_, _>>().map_err(|e| self.err(e))
+        drifting_stations(&self.conn, &self.path)
     }
 
     /// Measurements stored in all.
@@ -589,9 +728,73 @@ impl Store {
     /// SQLite errors.
     pub fn count(&self) -> Result<u64, StoreError> {
         self.conn
-            .query_row("SELECT count(*) FROM measurement", [], |r| r.get::<_, i64>(0))
+            .query_row("SELECT count(*) FROM reading", [], |r| r.get::<_, i64>(0))
             .map(|v| v.max(0) as u64)
             .map_err(|e| self.err(e))
+    }
+
+    /// Batch names by id.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn batches(&self) -> Result<HashMap<i64, String>, StoreError> {
+        let mut st = self.conn.prepare("SELECT id, name FROM batch").map_err(|e| self.err(e))?;
+        let rows = st.query_map([], |r| Ok((r.get(0)?, r.get(1)?))).map_err(|e| self.err(e))?;
+        rows.collect::<Result<_, _>>().map_err(|e| self.err(e))
+    }
+
+    /// The summaries as stored.
+    ///
+    /// # Errors
+    /// SQLite errors, or a summary this build cannot read.
+    pub fn summaries(&self) -> Result<Summaries, StoreError> {
+        read_summaries(&self.conn, &self.path)
+    }
+
+    /// The yield cells matching `filter` (station, batch, and `from_ms`/`to_ms`
+    /// as whole UTC days; see [`Filter::by_days`]).
+    ///
+    /// # Errors
+    /// SQLite errors, or a summary this build cannot read.
+    pub fn cells(&self, filter: &Filter) -> Result<Vec<(CellAt, Cell)>, StoreError> {
+        query_cells(&self.conn, &self.path, filter)
+    }
+
+    /// The aging fit sums per (station, unit, setup (0: none)) of `station`
+    /// and `unit` (all when `None`).
+    ///
+    /// # Errors
+    /// SQLite errors, or a summary this build cannot read.
+    pub fn unit_fits(&self, station: Option<&str>, unit: Option<u32>) -> Result<Vec<(UnitKey, UnitSums)>, StoreError> {
+        query_units(&self.conn, &self.path, station, unit)
+    }
+
+    /// The summaries recomputed from every row (what the stored ones must equal).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn recount(&self) -> Result<Summaries, StoreError> {
+        recount(&self.conn, &self.path)
+    }
+
+    /// The stored rejects (verdict not `within-window`) matching `filter`, in
+    /// (station, unit, seq) order, through the partial index that holds only
+    /// them; `each` returns `false` to stop.
+    ///
+    /// # Errors
+    /// SQLite errors, or a stored code this build does not know.
+    pub fn rejects(&self, filter: &Filter, mut each: impl FnMut(Stored) -> bool) -> Result<(), StoreError> {
+        let batches = self.batches()?;
+        let reject = Filter { rejects_only: true, ..filter.clone() };
+        Store::scan(&self.conn, &self.path, &reject, None, |x| {
+            each(Stored {
+                station_id: x.station_id,
+                batch: batches.get(&x.batch_id).cloned().unwrap_or_default(),
+                measured_ms: x.measured_ms,
+                record: x.record,
+                setup_id: Some(x.setup).filter(|&id| id != 0),
+            })
+        })
     }
 
     /// SQLite's own consistency check (`PRAGMA integrity_check`): `ok` or the problems.
@@ -603,14 +806,298 @@ impl Store {
     }
 }
 
-/// One write transaction. Dropped without [`Batch::commit`], it rolls back.
-#[derive(Debug)]
+/// A row as [`Store::scan`] reads it.
+struct Row {
+    station_id: i64,
+    batch_id: i64,
+    measured_ms: i64,
+    record: Record,
+    setup: i64,
+}
+
+/// Where a [`Cell`] of the store's summaries belongs: station, batch, UTC
+/// day (days since 1970-01-01), setup (0: none) and tick clock.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub struct CellAt {
+    /// Station id.
+    pub station_id: i64,
+    /// Batch id.
+    pub batch_id: i64,
+    /// UTC day, days since the epoch.
+    pub day: i64,
+    /// Setup id, 0 for none.
+    pub setup_id: i64,
+    /// Tick clock, Hz.
+    pub clock_hz: u32,
+}
+
+/// Where a unit's fit sums belong: (station id, unit id, setup id (0: none)).
+pub type UnitKey = (i64, u32, i64);
+
+/// The summaries kept beside the rows: yield cells and each field unit's
+/// fit sums (with its records that gave no aging point).
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct Summaries {
+    /// Yield cells.
+    pub cells: BTreeMap<CellAt, Cell>,
+    /// Fit sums per (station, unit, setup (0: none)).
+    pub units: BTreeMap<UnitKey, UnitSums>,
+}
+
+/// What the summaries need of a setup.
+struct SetupInfo {
+    window_s: (f64, f64),
+    clock_hz: u32,
+    field: bool,
+    stage: Option<StageFile>,
+}
+
+impl SetupInfo {
+    fn load(conn: &Connection, path: &Path) -> Result<HashMap<i64, SetupInfo>, StoreError> {
+        let mut st = conn
+            .prepare("SELECT id, name, stage_toml, clock_hz, hold_min_ticks, hold_max_ticks FROM setup")
+            .map_err(|e| se(path, e))?;
+        let rows = st
+            .query_map([], |r| {
+                let (name, toml): (String, String) = (r.get(1)?, r.get(2)?);
+                let clock: u32 = r.get(3)?;
+                let (lo, hi) = (r.get::<_, i64>(4)?, r.get::<_, i64>(5)?);
+                let c = f64::from(clock.max(1));
+                Ok((
+                    r.get::<_, i64>(0)?,
+                    SetupInfo {
+                        window_s: (lo as f64 / c, hi as f64 / c),
+                        clock_hz: clock,
+                        field: lo == 0,
+                        stage: crate::stage::file::parse(Path::new(&name), &toml).ok(),
+                    },
+                ))
+            })
+            .map_err(|e| se(path, e))?;
+        rows.collect::<Result<_, _>>().map_err(|e| se(path, e))
+    }
+}
+
+impl Summaries {
+    /// Adds a stored record: to its yield cell always; to its unit's fit (or
+    /// the skip counts) when it belongs in aging — a field setup, or a
+    /// station in `drifting`. The one rule for ingest, listen and recount.
+    #[allow(clippy::too_many_arguments)]
+    fn add(
+        &mut self,
+        station_id: i64,
+        batch_id: i64,
+        measured_ms: i64,
+        r: &Record,
+        setup_id: i64,
+        setups: &HashMap<i64, SetupInfo>,
+        drifting: &std::collections::BTreeSet<i64>,
+    ) {
+        let info = setups.get(&setup_id);
+        let at = CellAt { station_id, batch_id, day: summary::day_of(measured_ms), setup_id, clock_hz: r.clock_hz };
+        self.cells.entry(at).or_default().add(r, measured_ms, info.map(|i| i.window_s), summary::is_gross(r.hint));
+        if info.is_some_and(|i| i.field) || drifting.contains(&station_id) {
+            self.add_aging(station_id, measured_ms, r, setup_id, info.and_then(|i| i.stage.as_ref()));
+        }
+    }
+
+    fn add_aging(&mut self, station_id: i64, measured_ms: i64, r: &Record, setup_id: i64, stage: Option<&StageFile>) {
+        let u = self.units.entry((station_id, r.unit_id, setup_id)).or_default();
+        match aging::deviation_ppm(r, stage) {
+            Ok(d) => u.add(measured_ms, r.seq, d),
+            Err(why) => {
+                u.skipped += 1;
+                u.without_stage += u64::from(why == aging::NoPoint::WithoutStage);
+            }
+        }
+    }
+}
+
+fn drifting_stations(conn: &Connection, path: &Path) -> Result<std::collections::HashSet<i64>, StoreError> {
+    let mut st = conn.prepare("SELECT station_id, cell FROM yield_cell").map_err(|e| se(path, e))?;
+    let mut rows = st.query([]).map_err(|e| se(path, e))?;
+    let mut out = std::collections::HashSet::new();
+    while let Some(r) = rows.next().map_err(|e| se(path, e))? {
+        let id: i64 = r.get(0).map_err(|e| se(path, e))?;
+        let blob: Vec<u8> = r.get(1).map_err(|e| se(path, e))?;
+        let c = Cell::from_blob(&blob).ok_or_else(|| se(path, "a yield summary this rchold cannot read"))?;
+        if c.drifting > 0 {
+            out.insert(id);
+        }
+    }
+    Ok(out)
+}
+
+fn read_summaries(conn: &Connection, path: &Path) -> Result<Summaries, StoreError> {
+    Ok(Summaries {
+        cells: query_cells(conn, path, &Filter::default())?.into_iter().collect(),
+        units: query_units(conn, path, None, None)?.into_iter().collect(),
+    })
+}
+
+/// The yield cells matching `filter` (see [`Store::cells`]).
+fn query_cells(conn: &Connection, path: &Path, filter: &Filter) -> Result<Vec<(CellAt, Cell)>, StoreError> {
+    let e = |e: rusqlite::Error| se(path, e);
+    let mut sql = String::from("SELECT station_id, batch_id, day, setup_id, clock_hz, cell FROM yield_cell WHERE 1");
+    let mut args: Vec<rusqlite::types::Value> = Vec::new();
+    if let Some(s) = &filter.station {
+        sql.push_str(" AND station_id = (SELECT id FROM station WHERE name = ?)");
+        args.push(s.clone().into());
+    }
+    if let Some(b) = &filter.batch {
+        sql.push_str(" AND batch_id = (SELECT id FROM batch WHERE name = ?)");
+        args.push(b.clone().into());
+    }
+    if let Some(t) = filter.from_ms {
+        sql.push_str(" AND day >= ?");
+        args.push(summary::day_of(t).into());
+    }
+    if let Some(t) = filter.to_ms {
+        sql.push_str(" AND day < ?");
+        args.push(summary::day_of(t).into());
+    }
+    let mut st = conn.prepare(&sql).map_err(e)?;
+    let mut rows = st.query(rusqlite::params_from_iter(args)).map_err(e)?;
+    let mut out = Vec::new();
+    while let Some(r) = rows.next().map_err(e)? {
+        let at = CellAt {
+            station_id: r.get(0).map_err(e)?,
+            batch_id: r.get(1).map_err(e)?,
+            day: r.get(2).map_err(e)?,
+            setup_id: r.get(3).map_err(e)?,
+            clock_hz: r.get(4).map_err(e)?,
+        };
+        let blob: Vec<u8> = r.get(5).map_err(e)?;
+        out.push((at, Cell::from_blob(&blob).ok_or_else(|| se(path, "a yield summary this rchold cannot read"))?));
+    }
+    Ok(out)
+}
+
+/// The unit sums of `station` and `unit` (see [`Store::unit_fits`]).
+fn query_units(
+    conn: &Connection,
+    path: &Path,
+    station: Option<&str>,
+    unit: Option<u32>,
+) -> Result<Vec<(UnitKey, UnitSums)>, StoreError> {
+    let e = |e: rusqlite::Error| se(path, e);
+    let mut sql = String::from("SELECT station_id, unit_id, setup_id, sums FROM unit_fit WHERE 1");
+    let mut args: Vec<rusqlite::types::Value> = Vec::new();
+    if let Some(s) = station {
+        sql.push_str(" AND station_id = (SELECT id FROM station WHERE name = ?)");
+        args.push(s.to_owned().into());
+    }
+    if let Some(u) = unit {
+        sql.push_str(" AND unit_id = ?");
+        args.push(i64::from(u).into());
+    }
+    let mut st = conn.prepare(&sql).map_err(e)?;
+    let mut rows = st.query(rusqlite::params_from_iter(args)).map_err(e)?;
+    let mut units = Vec::new();
+    while let Some(r) = rows.next().map_err(e)? {
+        let key = (r.get(0).map_err(e)?, r.get(1).map_err(e)?, r.get(2).map_err(e)?);
+        let blob: Vec<u8> = r.get(3).map_err(e)?;
+        units
+            .push((key, UnitSums::from_blob(&blob).ok_or_else(|| se(path, "a unit summary this rchold cannot read"))?));
+    }
+    Ok(units)
+}
+
+/// Every row's summaries, from scratch (optionally of one station).
+fn recount_where(conn: &Connection, path: &Path, station: Option<i64>) -> Result<Summaries, StoreError> {
+    let setups = SetupInfo::load(conn, path)?;
+    // Which stations drift is known only after every row: two passes.
+    let mut cells_only = Summaries::default();
+    let none = std::collections::BTreeSet::new();
+    Store::scan(conn, path, &Filter::default(), station, |x| {
+        cells_only.add(x.station_id, x.batch_id, x.measured_ms, &x.record, x.setup, &setups, &none);
+        true
+    })?;
+    let drifting: std::collections::BTreeSet<i64> =
+        cells_only.cells.iter().filter(|(_, c)| c.drifting > 0).map(|(k, _)| k.station_id).collect();
+    let mut out = Summaries { cells: cells_only.cells, ..Summaries::default() };
+    Store::scan(conn, path, &Filter::default(), station, |x| {
+        let info = setups.get(&x.setup);
+        if info.is_some_and(|i| i.field) || drifting.contains(&x.station_id) {
+            out.add_aging(x.station_id, x.measured_ms, &x.record, x.setup, info.and_then(|i| i.stage.as_ref()));
+        }
+        true
+    })?;
+    Ok(out)
+}
+
+fn recount(conn: &Connection, path: &Path) -> Result<Summaries, StoreError> {
+    recount_where(conn, path, None)
+}
+
+/// Adds `sums` to the stored summaries (read, merge, write back), or with
+/// `replace` writes them over whatever is stored under the same keys.
+fn write_summaries(conn: &Connection, path: &Path, sums: &Summaries, replace: bool) -> Result<(), StoreError> {
+    let e = |e: rusqlite::Error| se(path, e);
+    let bad = |what: &str| se(path, format!("a {what} summary this rchold cannot read"));
+    {
+        let mut get = conn
+            .prepare_cached(
+                "SELECT cell FROM yield_cell WHERE station_id = ?1 AND batch_id = ?2 AND day = ?3 AND setup_id = ?4 \
+                 AND clock_hz = ?5",
+            )
+            .map_err(e)?;
+        let mut put =
+            conn.prepare_cached("INSERT OR REPLACE INTO yield_cell VALUES (?1, ?2, ?3, ?4, ?5, ?6)").map_err(e)?;
+        for (k, c) in &sums.cells {
+            let key = params![k.station_id, k.batch_id, k.day, k.setup_id, k.clock_hz];
+            let mut c = c.clone();
+            if !replace {
+                let old: Option<Vec<u8>> = get.query_row(key, |r| r.get(0)).optional().map_err(e)?;
+                if let Some(old) = old {
+                    let mut o = Cell::from_blob(&old).ok_or_else(|| bad("yield"))?;
+                    o.merge(&c);
+                    c = o;
+                }
+            }
+            put.execute(params![k.station_id, k.batch_id, k.day, k.setup_id, k.clock_hz, c.to_blob()]).map_err(e)?;
+        }
+    }
+    let mut get = conn
+        .prepare_cached("SELECT sums FROM unit_fit WHERE station_id = ?1 AND unit_id = ?2 AND setup_id = ?3")
+        .map_err(e)?;
+    let mut put = conn.prepare_cached("INSERT OR REPLACE INTO unit_fit VALUES (?1, ?2, ?3, ?4)").map_err(e)?;
+    for (&(station, unit, setup), u) in &sums.units {
+        let mut u = *u;
+        if !replace {
+            let old: Option<Vec<u8>> =
+                get.query_row(params![station, unit, setup], |r| r.get(0)).optional().map_err(e)?;
+            if let Some(old) = old {
+                let mut o = UnitSums::from_blob(&old).ok_or_else(|| bad("unit"))?;
+                o.merge(&u);
+                u = o;
+            }
+        }
+        put.execute(params![station, unit, setup, u.to_blob()]).map_err(e)?;
+    }
+    Ok(())
+}
+
+/// One write transaction. Dropped without [`Batch::commit`], it rolls back;
+/// the summaries of its records are kept in memory and written with it.
 pub struct Batch<'c> {
     tx: rusqlite::Transaction<'c>,
     path: PathBuf,
     stations: HashMap<String, i64>,
+    batches: HashMap<String, i64>,
+    setups: HashMap<i64, SetupInfo>,
+    drifting: std::collections::BTreeSet<i64>,
+    /// Stations that drift since this batch: their aging sums are recounted on commit.
+    newly_drifting: std::collections::BTreeSet<i64>,
+    pending: Summaries,
     stored: u64,
     duplicates: u64,
+}
+
+impl std::fmt::Debug for Batch<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Batch").field("path", &self.path).field("stored", &self.stored).finish_non_exhaustive()
+    }
 }
 
 impl Batch<'_> {
@@ -632,6 +1119,17 @@ impl Batch<'_> {
             .query_row("SELECT id FROM station WHERE name = ?1", [name], |r| r.get(0))
             .map_err(|e| self.err(e))?;
         self.stations.insert(name.to_owned(), id);
+        Ok(id)
+    }
+
+    fn batch_id(&mut self, name: &str) -> Result<i64, StoreError> {
+        if let Some(&id) = self.batches.get(name) {
+            return Ok(id);
+        }
+        self.tx.execute("INSERT OR IGNORE INTO batch (name) VALUES (?1)", [name]).map_err(|e| self.err(e))?;
+        let id =
+            self.tx.query_row("SELECT id FROM batch WHERE name = ?1", [name], |r| r.get(0)).map_err(|e| self.err(e))?;
+        self.batches.insert(name.to_owned(), id);
         Ok(id)
     }
 
@@ -679,6 +1177,13 @@ impl Batch<'_> {
         setup_id: Option<i64>,
         source_id: i64,
     ) -> Result<bool, StoreError> {
+        let batch_id = self.batch_id(batch)?;
+        let setup = setup_id.unwrap_or(0);
+        // The clock is stored only where it is not the setup's.
+        let clock = match self.setups.get(&setup) {
+            Some(i) if i.clock_hz == r.clock_hz => None,
+            _ => Some(r.clock_hz),
+        };
         let mut st = self
             .tx
             .prepare_cached(INSERT)
@@ -688,37 +1193,50 @@ impl Batch<'_> {
                 station_id,
                 r.unit_id,
                 r.seq,
-                batch,
                 measured_ms,
-                r.clock_hz,
+                batch_id,
+                setup,
+                source_id,
+                clock,
                 u64_sql(r.press_ticks),
                 r.on_ticks.map(u64_sql),
                 r.hold_ticks.map(u64_sql),
                 r.temp_mdeg_c,
-                codes::verdict_code(r.verdict),
-                codes::hint_code(r.hint),
-                codes::drift_code(r.drift),
                 r.c_deviation_ppm,
-                setup_id,
-                source_id
+                pack_codes(r),
             ])
             .map_err(|e| StoreError { path: self.path.clone(), message: e.to_string() })?;
         if n == 1 {
             self.stored += 1;
+            if r.drift != DriftState::Settling && !self.drifting.contains(&station_id) {
+                // From now on every record of the station belongs in aging.
+                self.drifting.insert(station_id);
+                self.newly_drifting.insert(station_id);
+            }
+            self.pending.add(station_id, batch_id, measured_ms, r, setup, &self.setups, &self.drifting);
         } else {
             self.duplicates += 1;
         }
         Ok(n == 1)
     }
 
-    /// Adds this batch's counts (and `bad_frames`, `bytes`) to the source
-    /// and commits.
+    /// Writes the summaries, adds this batch's counts (and `bad_frames`,
+    /// `bytes`) to the source and commits.
     ///
     /// # Errors
     /// SQLite errors.
-    pub fn commit(self, source_id: i64, bad_frames: u64, bytes: u64) -> Result<Written, StoreError> {
+    pub fn commit(mut self, source_id: i64, bad_frames: u64, bytes: u64) -> Result<Written, StoreError> {
         let path = self.path.clone();
         let e = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
+        // A station that began to drift in this batch: its aging sums from all its rows, afresh.
+        for &station in &self.newly_drifting {
+            self.pending.units.retain(|k, _| k.0 != station);
+            self.tx.execute("DELETE FROM unit_fit WHERE station_id = ?1", [station]).map_err(e)?;
+            let fresh = recount_where(&self.tx, &path, Some(station))?;
+            let aging_only = Summaries { cells: BTreeMap::new(), units: fresh.units };
+            write_summaries(&self.tx, &path, &aging_only, true)?;
+        }
+        write_summaries(&self.tx, &path, &self.pending, false)?;
         self.tx
             .execute(
                 "UPDATE source SET records = records + ?1, duplicates = duplicates + ?2, \
@@ -733,7 +1251,7 @@ impl Batch<'_> {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use hold_firmware::drift::DriftState;
     use hold_firmware::{Hint, Verdict};
@@ -782,26 +1300,124 @@ mod tests {
     fn an_old_database_is_migrated_and_keeps_its_rows() -> Result<(), StoreError> {
         let dir = tempfile::tempdir().map_err(|e| StoreError { path: PathBuf::new(), message: e.to_string() })?;
         let path = dir.path().join("old.db");
+        let fixture = crate::report::yields::tests::example_setup();
+        let field = Setup { name: "field".into(), hold_min_ticks: 0, ..fixture.clone() };
+        // Records as the earlier schemas stored them: two setups and none, two batches,
+        // a field unit that drifts, a reject, a record on another clock.
+        let mut written = Vec::new();
+        for i in 0..60u32 {
+            let mut r = record(i % 7, i);
+            r.hold_ticks = Some(60_000 + u64::from(i) * 400);
+            r.c_deviation_ppm = if i % 5 == 0 { None } else { Some(-(i as i32) * 100) };
+            if i % 11 == 0 {
+                r.verdict = hold_firmware::Verdict::Long;
+                r.hint = Hint::WrongPart;
+            }
+            if i % 13 == 0 {
+                r.clock_hz = 2_000_000;
+            }
+            let setup = match i % 3 {
+                0 => None,
+                1 => Some(1i64),
+                _ => Some(2),
+            };
+            if setup == Some(2) {
+                r.drift = if i > 30 { DriftState::Drifting } else { DriftState::Settling };
+            } else {
+                r.drift = DriftState::Settling;
+            }
+            written.push((
+                if setup == Some(2) { 2i64 } else { 1 },
+                format!("b{}", i % 2),
+                1_000 * i64::from(i),
+                r,
+                setup,
+            ));
+        }
         {
-            // A version-1 database, as the first release wrote it.
+            // A version-3 database (the first release wrote version 1; 2 and 3 only added an index and codes).
             let conn =
                 Connection::open(&path).map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
             let mut s = Store { conn, path: path.clone() };
-            assert_eq!(s.migrate_to(1)?, 1);
-            // The first release knew seven verdicts and eight hints.
+            assert_eq!(s.migrate_to(3)?, 3);
+            let e = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
+            for (i, su) in [&fixture, &field].into_iter().enumerate() {
+                s.conn
+                    .execute(
+                        "INSERT INTO setup (id, name, digest, stage_toml, clock_hz, guard_ppm, poll_ns, hold_min_ticks, \
+                         hold_max_ticks) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+                        params![
+                            i as i64 + 1,
+                            su.name,
+                            su.digest(),
+                            su.stage_toml,
+                            su.clock_hz,
+                            su.guard_ppm,
+                            su.poll_ns,
+                            u64_sql(su.hold_min_ticks),
+                            u64_sql(su.hold_max_ticks)
+                        ],
+                    )
+                    .map_err(e)?;
+            }
             s.conn
-                .execute_batch("DELETE FROM verdict WHERE code >= 7; DELETE FROM hint WHERE code >= 8;")
-                .map_err(|e| s.err(e))?;
-            let src = s.begin_stream("old", 0)?;
-            let mut b = s.batch()?;
-            let st = b.station("s")?;
-            b.insert(st, "b", 5, &record(1, 1), None, src)?;
-            b.commit(src, 0, 0)?;
+                .execute_batch(
+                    "INSERT INTO station VALUES (1, 'bench'), (2, 'fleet');
+                     INSERT INTO source (id, kind, name, started_ms) VALUES (1, 'stream', 'old', 0);",
+                )
+                .map_err(e)?;
+            for (st, b, ms, r, setup) in &written {
+                s.conn
+                    .execute(
+                        "INSERT INTO measurement (station_id, unit_id, seq, batch, measured_ms, clock_hz, press_ticks, \
+                         on_ticks, hold_ticks, temp_mdeg_c, verdict, hint, drift, c_dev_ppm, setup_id, source_id) \
+                         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15, 1)",
+                        params![
+                            st,
+                            r.unit_id,
+                            r.seq,
+                            b,
+                            ms,
+                            r.clock_hz,
+                            u64_sql(r.press_ticks),
+                            r.on_ticks.map(u64_sql),
+                            r.hold_ticks.map(u64_sql),
+                            r.temp_mdeg_c,
+                            codes::verdict_code(r.verdict),
+                            codes::hint_code(r.hint),
+                            codes::drift_code(r.drift),
+                            r.c_deviation_ppm,
+                            setup
+                        ],
+                    )
+                    .map_err(e)?;
+            }
         }
         let s = Store::open(&path)?;
         assert_eq!(s.schema_version()?, SCHEMA_VERSION);
-        assert_eq!(s.count()?, 1);
-        // Every code has its name again, in code order.
+        assert_eq!(s.count()?, written.len() as u64);
+        // Every record reads back as it was written.
+        let mut got = Vec::new();
+        s.for_each(&Filter::default(), |x| got.push((x.station_id, x.batch, x.measured_ms, x.record, x.setup_id)))?;
+        let mut want = written.clone();
+        want.sort_by_key(|w| (w.0, w.3.unit_id, w.3.seq));
+        assert_eq!(got, want);
+        // The view keeps the earlier layout for SQL users.
+        let view: i64 = s
+            .conn
+            .query_row(
+                "SELECT count(*) FROM measurement WHERE verdict = ?1 AND hint = ?2 AND clock_hz > 0 AND batch LIKE 'b%'",
+                params![codes::verdict_code(hold_firmware::Verdict::Long), codes::hint_code(Hint::WrongPart)],
+                |r| r.get(0),
+            )
+            .map_err(|e| s.err(e))?;
+        assert_eq!(view, written.iter().filter(|w| w.3.verdict == hold_firmware::Verdict::Long).count() as i64);
+        // The summaries were counted from the carried rows.
+        let sums = s.summaries()?;
+        assert_eq!(sums, s.recount()?);
+        assert_eq!(sums.cells.values().map(Cell::total).sum::<u64>(), written.len() as u64);
+        assert!(!sums.units.is_empty());
+        // Every code has its name, in code order.
         for (table, names) in [
             ("verdict", codes::VERDICTS.iter().map(|v| v.name()).collect::<Vec<_>>()),
             ("hint", codes::HINTS.iter().map(|h| h.name()).collect()),
@@ -810,11 +1426,6 @@ mod tests {
             let got: Vec<String> = q.query_map([], |r| r.get(0)).and_then(Iterator::collect).map_err(|e| s.err(e))?;
             assert_eq!(got, names, "{table}");
         }
-        let idx: i64 = s
-            .conn
-            .query_row("SELECT count(*) FROM sqlite_master WHERE name = 'measurement_time'", [], |r| r.get(0))
-            .map_err(|e| s.err(e))?;
-        assert_eq!(idx, 1);
         Ok(())
     }
 
@@ -865,5 +1476,146 @@ mod tests {
         let e = Store::open(&path).err().map(|e| e.to_string()).unwrap_or_default();
         assert!(e.contains("newer rchold") && e.contains("new.db"), "{e}");
         Ok(())
+    }
+
+    /// One step of a store's life in [`summaries_equal_a_recount`].
+    #[derive(Debug, Clone)]
+    enum Step {
+        /// A log ingested in one transaction.
+        Ingest(Vec<(u8, u8, Record, u8, i64)>),
+        /// A stream committed in several batches.
+        Listen(Vec<(u8, u8, Record, u8, i64)>),
+        /// An ingest killed before its commit (the transaction rolls back).
+        Killed(Vec<(u8, u8, Record, u8, i64)>),
+    }
+
+    fn any_record() -> impl Strategy<Value = (u8, u8, Record, u8, i64)> {
+        use hold_firmware::Verdict;
+        (
+            (0u8..3, 0u8..3, 0u32..12, 0u32..6, 0usize..codes::VERDICTS.len(), 0usize..codes::HINTS.len()),
+            (0usize..codes::DRIFTS.len(), prop::option::of(1u64..200_000), prop::option::of(-300_000i32..300_000)),
+            (0u8..3, 0i64..(40 * 86_400_000), prop::bool::ANY),
+        )
+            .prop_map(|((st, b, unit, seq, v, h), (d, hold, dev), (setup, ms, fast))| {
+                let mut r = record(unit, seq);
+                r.verdict = codes::VERDICTS.get(v).copied().unwrap_or(Verdict::WithinWindow);
+                r.hint = codes::HINTS.get(h).copied().unwrap_or(Hint::None);
+                r.drift = codes::DRIFTS.get(d).copied().unwrap_or(DriftState::Settling);
+                r.hold_ticks = hold;
+                r.c_deviation_ppm = dev;
+                if fast {
+                    r.clock_hz = 4_000_000;
+                }
+                (st, b, r, setup, 1_750_000_000_000 + ms)
+            })
+    }
+
+    fn any_step() -> impl Strategy<Value = Step> {
+        let recs = || prop::collection::vec(any_record(), 0..40);
+        prop_oneof![recs().prop_map(Step::Ingest), recs().prop_map(Step::Listen), recs().prop_map(Step::Killed)]
+    }
+
+    fn put(
+        b: &mut Batch<'_>,
+        recs: &[(u8, u8, Record, u8, i64)],
+        setups: &[Option<i64>; 3],
+        src: i64,
+    ) -> Result<(), StoreError> {
+        for (st, batch, r, setup, ms) in recs {
+            let station = b.station(&format!("st-{st}"))?;
+            let setup = setups.get(usize::from(*setup)).copied().flatten();
+            b.insert(station, &format!("b{batch}"), *ms, r, setup, src)?;
+        }
+        Ok(())
+    }
+
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig { cases: 48, ..ProptestConfig::default() })]
+        /// The summaries kept at ingest equal a full recount of the rows after
+        /// any mix of ingests, listens and killed ingests (duplicates, stations
+        /// that begin to drift, field and fixture setups, two clocks), and the
+        /// reports from the summaries equal the reports from the rows.
+        #[test]
+        fn summaries_equal_a_recount(steps in prop::collection::vec(any_step(), 1..8)) {
+            let dir = tempfile::tempdir().map_err(|e| TestCaseError::fail(e.to_string()))?;
+            let path = dir.path().join("p.db");
+            let run = || -> Result<(Summaries, Summaries, String, String, String, String), StoreError> {
+                let mut s = Store::open(&path)?;
+                let fixture = crate::report::yields::tests::example_setup();
+                let field = Setup { name: "field".into(), hold_min_ticks: 0, ..fixture.clone() };
+                let setups = [None, Some(s.setup_id(&fixture)?), Some(s.setup_id(&field)?)];
+                for (i, step) in steps.iter().enumerate() {
+                    match step {
+                        Step::Ingest(recs) => {
+                            let mut b = s.batch()?;
+                            let src = b.begin_log(&format!("log-{i}"), &format!("digest-{i}"), 0, 0)?.unwrap_or(0);
+                            put(&mut b, recs, &setups, src)?;
+                            b.commit(src, 0, 0)?;
+                        }
+                        Step::Listen(recs) => {
+                            let src = s.begin_stream("stream", 0)?;
+                            for part in recs.chunks(7) {
+                                let mut b = s.batch()?;
+                                put(&mut b, part, &setups, src)?;
+                                b.commit(src, 0, 0)?;
+                            }
+                        }
+                        Step::Killed(recs) => {
+                            let mut b = s.batch()?;
+                            put(&mut b, recs, &setups, 0)?;
+                            drop(b);
+                        }
+                    }
+                }
+                let (kept, recounted) = (s.summaries()?, s.recount()?);
+                let json = |v: &dyn erased::Json| v.json();
+                let from_rows = {
+                    let mut t = crate::report::yields::Tally::new(&s.setups()?, false, None);
+                    crate::report::files::each_record(&s, &Filter::default(), |st, x, role| {
+                        if role.yields {
+                            t.add(st, &x.batch, x.measured_ms, &x.record, x.setup_id);
+                        }
+                    })
+                    .map_err(|e| s.err(e))?;
+                    json(&t.finish().map_err(|e| s.err(e))?)
+                };
+                let from_sums = json(
+                    &crate::report::files::yield_from_summaries(&s, &Filter::default(), false, None).map_err(|e| s.err(e))?,
+                );
+                let aging_rows = {
+                    let mut t = crate::report::aging::FleetTally::new(&s.setups()?);
+                    crate::report::files::each_record(&s, &Filter::default(), |st, x, role| {
+                        if role.aging {
+                            t.add(st, x.measured_ms, &x.record, x.setup_id);
+                        }
+                    })
+                    .map_err(|e| s.err(e))?;
+                    json(&t.finish(0.8, 12))
+                };
+                let aging_sums = json(
+                    &crate::report::files::aging_from_summaries(&s, None, None, false, 0.8, 12).map_err(|e| s.err(e))?,
+                );
+                Ok((kept, recounted, from_rows, from_sums, aging_rows, aging_sums))
+            };
+            let (kept, recounted, from_rows, from_sums, aging_rows, aging_sums) =
+                run().map_err(|e| TestCaseError::fail(e.to_string()))?;
+            prop_assert_eq!(kept, recounted);
+            prop_assert_eq!(from_rows, from_sums);
+            prop_assert_eq!(aging_rows, aging_sums);
+        }
+    }
+
+    mod erased {
+        /// Serialises any report to JSON for comparing two of them.
+        pub trait Json {
+            fn json(&self) -> String;
+        }
+        impl<T: serde::Serialize> Json for T {
+            fn json(&self) -> String {
+                serde_json::to_string(self).unwrap_or_default()
+            }
+        }
     }
 }

@@ -26,6 +26,7 @@ use rc_model::Span;
 use serde::Serialize;
 
 use crate::data::store::Setup;
+use crate::data::summary::UnitSums;
 use crate::data::time;
 use crate::report::chart::{self, Band, Histogram, Ink, Mark, Series, Trend};
 use crate::report::stats;
@@ -122,9 +123,49 @@ pub struct FleetReport {
     pub rate_percentiles: Option<(f64, f64, f64)>,
 }
 
-/// One-pass collector of the fleet's series.
+/// Why a record gives no point of its unit's series.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum NoPoint {
+    /// No deviation of its own and no stage file stored for its setup to
+    /// compute one from (its hold is known).
+    WithoutStage,
+    /// No deviation and no hold, or one the stage cannot explain.
+    Other,
+}
+
+/// A record's capacitance deviation from nominal, ppm, at its temperature:
+/// its own (`c_deviation_ppm`), or computed from its hold, temperature and
+/// `stage` the way the unit computes it. The one rule for every path: the
+/// store's summaries at ingest, its recount, and reports over rows or logs.
+///
+/// # Errors
+/// [`NoPoint`] says why there is none.
+pub fn deviation_ppm(r: &Record, stage: Option<&StageFile>) -> Result<i32, NoPoint> {
+    if let Some(d) = r.c_deviation_ppm {
+        return Ok(d);
+    }
+    let Some(hold) = r.hold_ticks else { return Err(NoPoint::Other) };
+    let Some(sf) = stage else { return Err(NoPoint::WithoutStage) };
+    let span = Span::from_ticks(hold, r.clock_hz).map_err(|_| NoPoint::Other)?;
+    let temp = r.temp_mdeg_c.unwrap_or(sf.stage.temp_mdeg_c);
+    hold_firmware::drift::deviation_at(&sf.spread, &sf.stage, temp, span).map_err(|_| NoPoint::Other)
+}
+
+/// The stage file of a setup, parsed (`None` when it does not parse).
+#[must_use]
+pub fn setup_stage(s: &Setup) -> Option<StageFile> {
+    stagefile::parse(Path::new(&s.name), &s.stage_toml).ok()
+}
+
+/// A unit's fit sums and, for its chart, its points `(ms, C/C_nominal)`.
+type UnitSeries = (UnitSums, Vec<(i64, f64)>);
+
+/// One-pass collector of the fleet's series: per unit, the exact
+/// least-squares sums ([`UnitSums`], the same the store keeps at ingest)
+/// and — for the charts — the points themselves.
 pub struct FleetTally {
-    units: BTreeMap<(String, u32), Vec<(i64, f64)>>,
+    /// Per (station, unit): the fit sums and the points `(ms, C/C_nominal)`.
+    units: BTreeMap<(String, u32), UnitSeries>,
     stages: HashMap<i64, Option<StageFile>>,
     setups: HashMap<i64, Setup>,
     used: u64,
@@ -146,56 +187,66 @@ impl FleetTally {
         }
     }
 
-    fn ratio(&mut self, r: &Record, setup_id: Option<i64>) -> Option<f64> {
-        if let Some(d) = r.c_deviation_ppm {
-            return Some(1.0 + f64::from(d) * 1e-6);
-        }
-        let id = setup_id?;
-        let hold = r.hold_ticks?;
-        let setups = &self.setups;
-        let sf = self
-            .stages
-            .entry(id)
-            .or_insert_with(|| setups.get(&id).and_then(|s| stagefile::parse(Path::new(&s.name), &s.stage_toml).ok()))
-            .as_ref()?;
-        let span = Span::from_ticks(hold, r.clock_hz).ok()?;
-        let temp = r.temp_mdeg_c.unwrap_or(sf.stage.temp_mdeg_c);
-        let d = hold_firmware::drift::deviation_at(&sf.spread, &sf.stage, temp, span).ok()?;
-        Some(1.0 + f64::from(d) * 1e-6)
-    }
-
-    /// Adds one measurement (records without a hold are skipped).
+    /// Adds one measurement (records without a deviation or a way to compute one are counted as skipped).
     pub fn add(&mut self, station: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
-        match self.ratio(r, setup_id) {
-            Some(y) if y.is_finite() => {
+        let setups = &self.setups;
+        let stage = setup_id
+            .map(|id| self.stages.entry(id).or_insert_with(|| setups.get(&id).and_then(setup_stage)))
+            .and_then(|s| s.as_ref());
+        match deviation_ppm(r, stage) {
+            Ok(d) => {
                 self.used += 1;
                 let key = (station.to_owned(), r.unit_id);
-                match self.units.get_mut(&key) {
-                    Some(v) => v.push((measured_ms, y)),
-                    None => {
-                        self.units.insert(key, vec![(measured_ms, y)]);
-                    }
-                }
+                let e = match self.units.get_mut(&key) {
+                    Some(e) => e,
+                    None => self.units.entry(key).or_default(),
+                };
+                e.0.add(measured_ms, r.seq, d);
+                e.1.push((measured_ms, 1.0 + f64::from(d) * 1e-6));
             }
-            _ => {
+            Err(why) => {
                 self.skipped += 1;
-                let stage_known = setup_id.and_then(|id| self.stages.get(&id)).is_some_and(Option::is_some);
-                if r.c_deviation_ppm.is_none() && r.hold_ticks.is_some() && !stage_known {
+                if why == NoPoint::WithoutStage {
                     self.without_stage += 1;
                 }
             }
         }
     }
 
+    /// Adds a unit's sums the store kept, with its skipped records (no
+    /// points: its chart is drawn from points given with [`FleetTally::add_points`]).
+    pub fn add_unit(&mut self, station: &str, unit: u32, sums: &UnitSums) {
+        self.used += sums.n;
+        self.skipped += sums.skipped;
+        self.without_stage += sums.without_stage;
+        if sums.n > 0 {
+            self.units.entry((station.to_owned(), unit)).or_default().0.merge(sums);
+        }
+    }
+
+    /// Gives a unit added by [`FleetTally::add_unit`] its points, `(ms, C/C_nominal)`, for the chart.
+    pub fn add_points(&mut self, station: &str, unit: u32, pts: Vec<(i64, f64)>) {
+        if let Some(e) = self.units.get_mut(&(station.to_owned(), unit)) {
+            e.1 = pts;
+        }
+    }
+
     /// Fits every unit.
     #[must_use]
     pub fn finish(self, limit_ratio: f64, horizon_months: u32) -> FleetReport {
-        let now_ms = self.units.values().flat_map(|v| v.iter().map(|p| p.0)).max().unwrap_or(0);
+        let now_ms = self.units.values().filter(|u| u.0.n > 0).map(|u| u.0.last_ms).max().unwrap_or(0);
+        self.finish_at(limit_ratio, horizon_months, now_ms)
+    }
+
+    /// Fits every unit, with "now" (the horizon's start) given: the last
+    /// measurement of a larger fleet these units belong to, ms.
+    #[must_use]
+    pub fn finish_at(self, limit_ratio: f64, horizon_months: u32, now_ms: i64) -> FleetReport {
         let horizon_ms = now_ms + (f64::from(horizon_months) / 12.0 * YEAR_MS) as i64;
         let mut units = Vec::with_capacity(self.units.len());
-        for ((station, unit), mut pts) in self.units {
+        for ((station, unit), (sums, mut pts)) in self.units {
             pts.sort_by_key(|p| p.0);
-            units.push(trend(station, unit, &pts, limit_ratio, horizon_ms));
+            units.push(trend(station, unit, &sums, &pts, limit_ratio, horizon_ms));
         }
         let mut rates: Vec<f64> = units.iter().filter_map(|u| u.rate_pct_per_year).collect();
         rates.sort_by(f64::total_cmp);
@@ -214,45 +265,88 @@ impl FleetTally {
     }
 }
 
-/// The trend of one unit's series `(ms, ratio)`, sorted by time.
+/// The least-squares line `C/C_nominal = a + b·x` (`x` in years after
+/// `first_ms`) of a unit's exact sums: the centred sums are exact integers
+/// ([`UnitSums::centred`]), only their quotients are floating point, so the
+/// fit does not depend on the order or split of the records. `None` with
+/// fewer than 3 points, no spread in time, or sums out of range.
 #[must_use]
-pub fn trend(station: String, unit: u32, pts: &[(i64, f64)], limit_ratio: f64, horizon_ms: i64) -> UnitTrend {
-    let t0 = pts.first().map_or(0, |p| p.0);
-    let t1 = pts.last().map_or(0, |p| p.0);
-    let x: Vec<f64> = pts.iter().map(|p| (p.0 - t0) as f64 / YEAR_MS).collect();
-    let y: Vec<f64> = pts.iter().map(|p| p.1).collect();
+pub fn fit(s: &UnitSums) -> Option<stats::Line> {
+    if s.n < 3 {
+        return None;
+    }
+    let (sxx_n, sxy_n, syy_n) = s.centred()?;
+    if sxx_n <= 0 {
+        return None;
+    }
+    let nf = s.n as f64;
+    // Centred sums in years and ratio units.
+    let sxx = sxx_n as f64 / nf / (YEAR_MS * YEAR_MS);
+    let sxy = sxy_n as f64 / nf / YEAR_MS * 1e-6;
+    let syy = syy_n as f64 / nf * 1e-12;
+    let slope = sxy / sxx;
+    let t_mean = s.st as f64 / nf;
+    let x_mean = (t_mean - s.first_ms as f64) / YEAR_MS;
+    let y_mean = 1.0 + s.sd as f64 / nf * 1e-6;
+    let intercept = y_mean - slope * x_mean;
+    let sse = (syy - sxy * sxy / sxx).max(0.0);
+    let s2 = if s.n > 2 { sse / (nf - 2.0) } else { 0.0 };
+    Some(stats::Line {
+        intercept,
+        slope,
+        intercept_sd: (s2 * (1.0 / nf + x_mean * x_mean / sxx)).sqrt(),
+        slope_sd: (s2 / sxx).sqrt(),
+        residual_sd: s2.sqrt(),
+        r_squared: if syy > 0.0 { 1.0 - sse / syy } else { 1.0 },
+    })
+}
+
+/// The trend of one unit from its sums; `pts` (`(ms, C/C_nominal)`,
+/// sorted by time; may be empty) only draw its chart.
+#[must_use]
+pub fn trend(
+    station: String,
+    unit: u32,
+    sums: &UnitSums,
+    pts: &[(i64, f64)],
+    limit_ratio: f64,
+    horizon_ms: i64,
+) -> UnitTrend {
+    let (t0, t1) = if sums.n > 0 { (sums.first_ms, sums.last_ms) } else { (0, 0) };
+    let x = |t: i64| (t - t0) as f64 / YEAR_MS;
+    let last_raw = 1.0 + f64::from(sums.last_ppm) * 1e-6;
     let mut u = UnitTrend {
         station,
         unit,
-        points: pts.len(),
+        points: usize::try_from(sums.n).unwrap_or(usize::MAX),
         span_ms: (t0, t1),
-        last_ratio: y.last().copied().unwrap_or(f64::NAN),
+        last_ratio: if sums.n > 0 { last_raw } else { f64::NAN },
         rate_pct_per_year: None,
         rate_sd: None,
         scatter_pct: None,
         forecast_ms: None,
         forecast_interval_ms: None,
         status: Status::TooFewMeasurements,
-        series: x.iter().copied().zip(y.iter().copied()).collect(),
+        series: pts.iter().map(|p| (x(p.0), p.1)).collect(),
         line: None,
         t0_ms: t0,
     };
-    if pts.len() < MIN_POINTS || (t1 - t0) < 30 * 86_400_000 {
+    if u.points < MIN_POINTS || (t1 - t0) < 30 * 86_400_000 {
         return u;
     }
-    let Some(l) = stats::fit_line(&x, &y) else { return u };
+    let Some(l) = fit(sums) else { return u };
     let a = l.intercept;
     if a <= 0.0 {
         return u;
     }
     // Relative to the unit's own commissioning value a: y/a = 1 + (b/a)·x.
     u.line = Some(l);
-    u.series = x.iter().zip(&y).map(|(&x, &y)| (x, y / a)).collect();
-    u.last_ratio = y.last().map_or(f64::NAN, |v| v / a);
+    u.series = pts.iter().map(|p| (x(p.0), p.1 / a)).collect();
+    u.last_ratio = last_raw / a;
     u.rate_pct_per_year = Some(l.slope / a * 100.0);
     u.rate_sd = Some(l.slope_sd / a * 100.0);
     u.scatter_pct = Some(l.residual_sd / a * 100.0);
-    let x_last = (t1 - t0) as f64 / YEAR_MS;
+    let x_last = x(t1);
     if 1.0 + l.slope / a * x_last <= limit_ratio {
         u.status = Status::BeyondLimit;
     } else if l.slope >= -2.0 * l.slope_sd {
@@ -264,7 +358,7 @@ pub fn trend(station: String, unit: u32, pts: &[(i64, f64)], limit_ratio: f64, h
     // x₀ = (L − 1)·a/b; delta method with cov(a, b) = −x̄·var b.
     let (b, g) = (l.slope, limit_ratio - 1.0);
     let x0 = g * a / b;
-    let xbar = x.iter().sum::<f64>() / x.len() as f64;
+    let xbar = (sums.st as f64 / sums.n as f64 - t0 as f64) / YEAR_MS;
     let (var_a, var_b) = (l.intercept_sd * l.intercept_sd, l.slope_sd * l.slope_sd);
     let (da, db) = (g / b, -g * a / (b * b));
     let var_x0 = da * da * var_a + db * db * var_b + 2.0 * da * db * (-xbar * var_b);
@@ -483,16 +577,51 @@ mod tests {
     fn a_straight_decline_gives_its_rate_and_crossing() {
         let day = 86_400_000i64;
         let start = 1_704_089_600_000; // 2024-01-01T06:00:00Z
-                                       // C/C0 falls 10 % per year, measured daily for two years (exact line).
-        let pts: Vec<(i64, f64)> =
-            (0..730).map(|d| (start + d * day, 1.0 - 0.1 * (d * day) as f64 / YEAR_MS)).collect();
-        let u = trend("fleet".into(), 5, &pts, 0.8, start + 800 * day);
+                                       // C/C0 falls 10 % per year, measured daily for two years (a line, rounded to whole ppm).
+        let mut sums = UnitSums::default();
+        let mut pts = Vec::new();
+        for d in 0..730u32 {
+            let t = start + i64::from(d) * day;
+            let ppm = (-0.1 * (t - start) as f64 / YEAR_MS * 1e6).round() as i32;
+            sums.add(t, d, ppm);
+            pts.push((t, 1.0 + f64::from(ppm) * 1e-6));
+        }
+        let u = trend("fleet".into(), 5, &sums, &pts, 0.8, start + 800 * day);
         let rate = u.rate_pct_per_year.unwrap_or(0.0);
-        assert!((rate + 10.0).abs() < 1e-6, "{rate}");
+        // Rounding to whole ppm moves the slope by a few 1e-8 per year at most.
+        assert!((rate + 10.0).abs() < 1e-4, "{rate}");
         // 20 % loss at 10 %/yr: two years after the first measurement.
         let crossing = u.forecast_ms.map_or(0, |f| f - start);
         assert!((crossing as f64 - 2.0 * YEAR_MS).abs() < day as f64, "{crossing}");
         assert!(matches!(u.status, Status::AtRisk | Status::BeyondLimit), "{:?}", u.status);
         assert!(unit_svg(&u, 0.8).contains("end of life 0.80"));
+    }
+
+    /// The fit from exact sums equals the two-pass fit (`stats::fit_line`,
+    /// checked against NIST StRD Norris) on the same points.
+    #[test]
+    fn the_fit_from_sums_matches_the_two_pass_fit() {
+        let start = 1_750_000_000_000i64;
+        let mut sums = UnitSums::default();
+        let (mut x, mut y) = (Vec::new(), Vec::new());
+        for i in 0..400u32 {
+            // A decline with a wobble; times 6 h to 3 days apart.
+            let t = start + i64::from(i) * 21_600_000 * i64::from(1 + i % 12);
+            let ppm = -(i64::from(i) * 37) as i32 + ((i * 7919) % 2001) as i32 - 1000;
+            sums.add(t, i, ppm);
+            x.push((t - start) as f64 / YEAR_MS);
+            y.push(1.0 + f64::from(ppm) * 1e-6);
+        }
+        let (a, b) = (fit(&sums), stats::fit_line(&x, &y));
+        let (Some(a), Some(b)) = (a, b) else { panic!("no fit") };
+        for (p, q) in [
+            (a.intercept, b.intercept),
+            (a.slope, b.slope),
+            (a.slope_sd, b.slope_sd),
+            (a.intercept_sd, b.intercept_sd),
+            (a.residual_sd, b.residual_sd),
+        ] {
+            assert!((p - q).abs() <= 1e-9 * q.abs().max(1e-12), "{p} vs {q}");
+        }
     }
 }

@@ -161,6 +161,107 @@ pub fn each_record(store: &Store, filter: &Filter, mut each: impl FnMut(&str, &S
     })?)
 }
 
+/// The yield report of a store from its summaries ([`Store::cells`]) and,
+/// for the reject list and log, the rows of its rejects only (a partial
+/// index holds them): what `yield` reads when it does not re-check every
+/// verdict and `filter` is on whole days ([`Filter::by_days`]). The figures
+/// equal a [`Tally`] over the same rows (the store's test `summaries_equal_a_recount`).
+/// `all` counts records of every role (a station was named).
+///
+/// # Errors
+/// The store's errors; writing the reject log.
+pub fn yield_from_summaries(
+    store: &Store,
+    filter: &Filter,
+    all: bool,
+    reject_log: Option<Box<dyn std::io::Write + Send>>,
+) -> Result<YieldReport, Error> {
+    let setups = store.setups()?;
+    let stations = store.stations()?;
+    let batches = store.batches()?;
+    let drifting = store.drift_stations()?;
+    let unknown = String::from("?");
+    let mut tally = Tally::new(&setups, false, reject_log);
+    let setup = |id: i64| Some(id).filter(|&i| i != 0);
+    let takes = |station_id: i64, setup_id: Option<i64>| {
+        all || role(setup_id.and_then(|i| setups.get(&i)), drifting.contains(&station_id)).yields
+    };
+    for (at, c) in store.cells(filter)? {
+        if takes(at.station_id, setup(at.setup_id)) {
+            let st = stations.get(&at.station_id).unwrap_or(&unknown);
+            let b = batches.get(&at.batch_id).unwrap_or(&unknown);
+            tally.add_cell(st, b, at.day, setup(at.setup_id), at.clock_hz, &c);
+        }
+    }
+    store.rejects(filter, |s| {
+        if takes(s.station_id, s.setup_id) {
+            let st = stations.get(&s.station_id).unwrap_or(&unknown);
+            tally.add_reject(st, &s.batch, s.measured_ms, &s.record, s.setup_id);
+        }
+        !tally.rejects_full()
+    })?;
+    tally.finish().map_err(|e| Error::io("rejects.csv", e))
+}
+
+/// The fleet's aging from the store's per-unit sums ([`Store::unit_fits`]):
+/// one row per unit instead of every record. `station` and `unit` select;
+/// `all` takes units of every role (a station was named). Units in `charted`
+/// (station, unit) get their points read from the rows, for their charts.
+///
+/// # Errors
+/// The store's errors.
+pub fn aging_from_summaries(
+    store: &Store,
+    station: Option<&str>,
+    unit: Option<u32>,
+    all: bool,
+    limit_ratio: f64,
+    horizon_months: u32,
+) -> Result<FleetReport, Error> {
+    let setups = store.setups()?;
+    let stations = store.stations()?;
+    let drifting = store.drift_stations()?;
+    let unknown = String::from("?");
+    let mut tally = FleetTally::new(&setups);
+    for ((station_id, unit_id, setup_id), sums) in store.unit_fits(station, unit)? {
+        let setup = Some(setup_id).filter(|&i| i != 0).and_then(|i| setups.get(&i));
+        if all || role(setup, drifting.contains(&station_id)).aging {
+            tally.add_unit(stations.get(&station_id).unwrap_or(&unknown), unit_id, &sums);
+        }
+    }
+    Ok(tally.finish(limit_ratio, horizon_months))
+}
+
+/// Gives the units of `report` named in `charted` (station, unit) their
+/// points, read from the store's rows (for their charts): the trend of those
+/// rows is the same as the sums' (the store's test `summaries_equal_a_recount`).
+///
+/// # Errors
+/// The store's errors.
+pub fn with_points(store: &Store, report: &mut FleetReport, charted: &[(String, u32)], all: bool) -> Result<(), Error> {
+    if charted.is_empty() {
+        return Ok(());
+    }
+    let setups = store.setups()?;
+    let mut tally = FleetTally::new(&setups);
+    for (station, unit) in charted {
+        let f = Filter { station: Some(station.clone()), unit_id: Some(*unit), ..Filter::default() };
+        each_record(store, &f, |st, s, role| {
+            if all || role.aging {
+                tally.add(st, s.measured_ms, &s.record, s.setup_id);
+            }
+        })?;
+    }
+    // The same horizon: the report's "now" is the whole fleet's last measurement.
+    let mut fresh = tally.finish_at(report.limit_ratio, report.horizon_months, report.now_ms);
+    for u in &mut report.units {
+        if let Some(i) = fresh.units.iter().position(|f| f.station == u.station && f.unit == u.unit) {
+            *u = fresh.units.swap_remove(i);
+        }
+    }
+    Ok(())
+}
+
 /// The whole report of a store into `dir`: the yield of the records that
 /// belong in it (with the `f64` re-check and `rejects.csv`), the aging of its
 /// field records, their text files and charts (the twelve units that need

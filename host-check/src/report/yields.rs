@@ -19,6 +19,7 @@ use serde::Serialize;
 
 use crate::data::codes::VERDICTS;
 use crate::data::store::Setup;
+use crate::data::summary::{self, Cell, HoldSums};
 use crate::data::{codes, log, time};
 use crate::fmt::si;
 use crate::reference::{self, StageF};
@@ -27,8 +28,7 @@ use crate::report::stats::{self, Moments};
 use crate::stage::file::{self as stagefile, Purpose, StageFile};
 use crate::Error;
 
-/// Bins of the hold histogram.
-pub const BINS: usize = 60;
+pub use crate::data::summary::BINS;
 
 /// The window recomputed with the `f64` reference.
 #[derive(Debug, Clone, Serialize)]
@@ -326,70 +326,50 @@ impl Group {
         ]
     }
 
-    /// Adds one record; `gross` says whether its cause is a gross fault
-    /// (wrong part, open capacitor or diode), which Cp/Cpk leaves out.
-    fn add(&mut self, r: &Record, limits: Limits, gross: bool) {
-        let window_s = limits.window_s;
-        if self.spec_s.is_none() {
-            self.spec_s = limits.spec_s;
-        }
-        self.total += 1;
-        if let Some(c) = self.verdicts.get_mut(usize::from(codes::verdict_code(r.verdict))) {
-            *c += 1;
-        }
-        let Some(hold) = r.hold_ticks else { return };
-        if !r.verdict.needs_hold() {
-            return;
-        }
-        if gross {
-            self.gross += 1;
-            return;
-        }
-        let s = hold as f64 / f64::from(r.clock_hz.max(1));
-        self.hold_s.add(s);
-        if self.window_s.is_none() {
-            if let Some((lo, hi)) = window_s {
-                self.window_s = Some((lo, hi));
-                let w = hi - lo;
-                self.hist_range_s = (lo - 0.5 * w, hi + 0.5 * w);
-                self.bins = vec![0; BINS];
-            }
-        }
-        if !self.bins.is_empty() {
-            let (a, b) = self.hist_range_s;
-            let k = ((s - a) / (b - a) * BINS as f64).floor();
-            if k < 0.0 {
-                self.outside_hist.0 += 1;
-            } else if k >= BINS as f64 {
-                self.outside_hist.1 += 1;
-            } else if let Some(c) = self.bins.get_mut(k as usize) {
-                *c += 1;
-            }
-        }
-    }
-
-    fn merge(&mut self, o: Group) {
-        self.total += o.total;
-        for (a, b) in self.verdicts.iter_mut().zip(o.verdicts) {
-            *a += b;
-        }
-        self.hold_s.merge(&o.hold_s);
-        self.gross += o.gross;
-        if self.spec_s.is_none() {
-            self.spec_s = o.spec_s;
-        }
-        if self.window_s.is_none() {
-            self.window_s = o.window_s;
-            self.hist_range_s = o.hist_range_s;
-            self.bins = vec![0; o.bins.len()];
-        }
-        if self.bins.len() == o.bins.len() && self.hist_range_s == o.hist_range_s {
-            for (a, b) in self.bins.iter_mut().zip(o.bins) {
+    /// The group of `cells` (in the canonical order of [`Tally::finish`]):
+    /// counts summed, the holds' exact sums merged per clock and turned into
+    /// moments in clock order, the histogram of the first window met (cells
+    /// against another window are counted but not drawn).
+    fn of<'a>(
+        name: &str,
+        cells: impl Iterator<Item = (&'a CellKey, &'a Cell)>,
+        limits: impl Fn(&CellKey) -> Limits,
+    ) -> Group {
+        let mut g = Group::new(name);
+        let mut per_clock: std::collections::BTreeMap<u32, HoldSums> = std::collections::BTreeMap::new();
+        for (k, c) in cells {
+            for (a, b) in g.verdicts.iter_mut().zip(c.verdicts) {
                 *a += b;
             }
-            self.outside_hist.0 += o.outside_hist.0;
-            self.outside_hist.1 += o.outside_hist.1;
+            g.gross += c.gross;
+            per_clock.entry(k.clock_hz).or_default().merge(&c.holds);
+            let l = limits(k);
+            if g.spec_s.is_none() {
+                g.spec_s = l.spec_s;
+            }
+            if g.window_s.is_none() && !c.bins.is_empty() {
+                if let Some(w) = l.window_s {
+                    g.window_s = Some(w);
+                    g.hist_range_s = summary::hist_range(w);
+                    g.bins = vec![0; c.bins.len()];
+                }
+            }
+            if g.window_s.is_some() && g.window_s == l.window_s && g.bins.len() == c.bins.len() {
+                for (a, b) in g.bins.iter_mut().zip(&c.bins) {
+                    *a += b;
+                }
+                g.outside_hist.0 += c.outside.0;
+                g.outside_hist.1 += c.outside.1;
+            }
         }
+        g.total = g.verdicts.iter().sum();
+        for (clock, s) in per_clock {
+            if let Some(m) = s.moments(clock) {
+                g.hold_s.merge(&m);
+            }
+        }
+        g.finish();
+        g
     }
 
     fn finish(&mut self) {
@@ -528,31 +508,38 @@ enum RejectLog {
     Buffer(Vec<u8>),
 }
 
-/// One-pass accumulator of the yield report.
+/// What a [`Cell`] of a tally groups: station and batch (indices into the
+/// tally's names), UTC day, setup and clock.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub struct CellKey {
+    station: usize,
+    batch: usize,
+    day: i64,
+    setup_id: Option<i64>,
+    clock_hz: u32,
+}
+
+/// One-pass accumulator of the yield report: every record lands in one
+/// [`Cell`] per (station, batch, day, setup, clock) — the same summaries the
+/// store keeps at ingest, so a report from the store's summaries and one
+/// from its rows or logs are the same computation.
 pub struct Tally {
-    stations: Vec<Group>,
+    stations: Vec<String>,
     index: HashMap<String, usize>,
     last_station: usize,
-    /// Per station: the batch and the day entry it used last.
-    station_batch: Vec<usize>,
-    station_day: Vec<usize>,
-    all: Group,
-    /// (station, batch, total, passed), with an index and the last one used.
-    batches: Vec<(usize, String, u64, u64)>,
-    batch_index: HashMap<(usize, String), usize>,
-    /// (station, day, total, passed), likewise.
-    /// (station, day, measured, passed, sum of the capability's holds (s), their count).
-    days: Vec<(usize, i64, u64, u64, f64, u64)>,
-    day_index: HashMap<(usize, i64), usize>,
+    batches: Vec<String>,
+    batch_index: HashMap<String, usize>,
+    /// Per station: the cell it used last.
+    station_cell: Vec<usize>,
+    cells: Vec<(CellKey, Cell)>,
+    cell_index: HashMap<CellKey, usize>,
     windows: HashMap<i64, Limits>,
     last_window: (Option<i64>, Limits),
     checkers: HashMap<i64, Checker>,
     recheck: Option<Recheck>,
     rejects: Vec<Reject>,
-    rejects_total: u64,
     reject_log: RejectLog,
     reject_error: Option<std::io::Error>,
-    span: Option<(i64, i64)>,
     /// How many rejects and disagreements to keep for the report.
     pub keep: usize,
 }
@@ -596,142 +583,106 @@ impl Tally {
             stations: Vec::new(),
             index: HashMap::new(),
             last_station: usize::MAX,
-            station_batch: Vec::new(),
-            station_day: Vec::new(),
-            all: Group::new("all"),
             batches: Vec::new(),
             batch_index: HashMap::new(),
-            days: Vec::new(),
-            day_index: HashMap::new(),
+            station_cell: Vec::new(),
+            cells: Vec::new(),
+            cell_index: HashMap::new(),
             last_window: (None, Limits::default()),
             windows,
             checkers,
             recheck: recheck.then_some(rc),
             rejects: Vec::new(),
-            rejects_total: 0,
             reject_log,
             reject_error,
-            span: None,
             keep: 50,
         }
     }
 
     fn station(&mut self, name: &str) -> usize {
         if let Some(g) = self.stations.get(self.last_station) {
-            if g.name == name {
+            if g == name {
                 return self.last_station;
             }
         }
         // A handful of stations is the rule: look through them before hashing.
         let found = if self.stations.len() <= 16 {
-            self.stations.iter().position(|g| g.name == name)
+            self.stations.iter().position(|g| g == name)
         } else {
             self.index.get(name).copied()
         };
         let i = found.unwrap_or_else(|| {
-            self.stations.push(Group::new(name));
+            self.stations.push(name.to_owned());
             self.index.insert(name.to_owned(), self.stations.len() - 1);
-            self.station_batch.push(usize::MAX);
-            self.station_day.push(usize::MAX);
+            self.station_cell.push(usize::MAX);
             self.stations.len() - 1
         });
         self.last_station = i;
         i
     }
 
-    /// Adds one measurement.
-    pub fn add(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
-        let si = self.station(station);
-        let window = match self.last_window {
+    fn batch(&mut self, name: &str) -> usize {
+        if let Some(&i) = self.batch_index.get(name) {
+            return i;
+        }
+        self.batches.push(name.to_owned());
+        self.batch_index.insert(name.to_owned(), self.batches.len() - 1);
+        self.batches.len() - 1
+    }
+
+    /// The cell of a record: the station's last one when the key matches
+    /// (consecutive records of a log mostly share it), else by hash.
+    fn cell(&mut self, si: usize, batch: &str, day: i64, setup_id: Option<i64>, clock_hz: u32) -> usize {
+        let last = self.station_cell.get(si).copied().unwrap_or(usize::MAX);
+        if let Some((k, _)) = self.cells.get(last) {
+            if k.day == day
+                && k.setup_id == setup_id
+                && k.clock_hz == clock_hz
+                && self.batches.get(k.batch).is_some_and(|b| b == batch)
+            {
+                return last;
+            }
+        }
+        let key = CellKey { station: si, batch: self.batch(batch), day, setup_id, clock_hz };
+        let i = *self.cell_index.entry(key).or_insert_with(|| {
+            self.cells.push((key, Cell::default()));
+            self.cells.len() - 1
+        });
+        if let Some(x) = self.station_cell.get_mut(si) {
+            *x = i;
+        }
+        i
+    }
+
+    fn limits(&mut self, setup_id: Option<i64>) -> Limits {
+        match self.last_window {
             (id, w) if id == setup_id => w,
             _ => {
                 let w = setup_id.and_then(|id| self.windows.get(&id)).copied().unwrap_or_default();
                 self.last_window = (setup_id, w);
                 w
             }
-        };
+        }
+    }
+
+    /// Adds one measurement.
+    pub fn add(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
+        let si = self.station(station);
+        let window = self.limits(setup_id);
         // The re-check's own judgement, where there is a stage: its hint decides what is a
-        // gross fault; a reject that carries no C deviation gets the one it implies.
-        let checker = setup_id.and_then(|id| self.checkers.get(&id));
+        // gross fault.
         let decided = r.verdict.needs_hold();
-        let judged = match (checker, r.hold_ticks) {
+        let judged = match (setup_id.and_then(|id| self.checkers.get(&id)), r.hold_ticks) {
             (Some(c), Some(h)) if decided => Some(c.judge(r.on_ticks, h)),
             _ => None,
         };
-        let hint = judged.map_or(r.hint, |(_, h)| h);
-        let gross = matches!(hint, Hint::WrongPart | Hint::OpenCapacitorOrDiode);
-        if let Some(g) = self.stations.get_mut(si) {
-            g.add(r, window, gross);
+        let gross = summary::is_gross(judged.map_or(r.hint, |(_, h)| h));
+        let ci = self.cell(si, batch, summary::day_of(measured_ms), setup_id, r.clock_hz);
+        if let Some((_, c)) = self.cells.get_mut(ci) {
+            c.add(r, measured_ms, window.window_s, gross);
         }
-        let pass = u64::from(r.verdict.passes());
-        let last = self.station_batch.get(si).copied().unwrap_or(usize::MAX);
-        let b = match self.batches.get(last) {
-            Some(e) if e.1 == batch => last,
-            _ => *self.batch_index.entry((si, batch.to_owned())).or_insert_with(|| {
-                self.batches.push((si, batch.to_owned(), 0, 0));
-                self.batches.len() - 1
-            }),
-        };
-        if let Some(x) = self.station_batch.get_mut(si) {
-            *x = b;
-        }
-        if let Some(e) = self.batches.get_mut(b) {
-            e.2 += 1;
-            e.3 += pass;
-        }
-        let day = measured_ms.div_euclid(86_400_000);
-        let last = self.station_day.get(si).copied().unwrap_or(usize::MAX);
-        let d = match self.days.get(last) {
-            Some(e) if e.1 == day => last,
-            _ => *self.day_index.entry((si, day)).or_insert_with(|| {
-                self.days.push((si, day, 0, 0, 0.0, 0));
-                self.days.len() - 1
-            }),
-        };
-        if let Some(x) = self.station_day.get_mut(si) {
-            *x = d;
-        }
-        if let Some(e) = self.days.get_mut(d) {
-            e.2 += 1;
-            e.3 += pass;
-            // The day's mean hold, over the holds the capability counts (no gross faults).
-            if let (Some(h), true, false) = (r.hold_ticks, decided, gross) {
-                e.4 += h as f64 / f64::from(r.clock_hz.max(1));
-                e.5 += 1;
-            }
-        }
-        self.span =
-            Some(self.span.map_or((measured_ms, measured_ms), |(a, b)| (a.min(measured_ms), b.max(measured_ms))));
         if !r.verdict.passes() {
-            self.rejects_total += 1;
-            if self.rejects.len() < self.keep {
-                self.rejects.push(Reject {
-                    station: station.to_owned(),
-                    batch: batch.to_owned(),
-                    measured_ms,
-                    record: *r,
-                    unit: r.unit_id,
-                    verdict: r.verdict.name(),
-                    hint: r.hint.name(),
-                    hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
-                    c_dev_pct: r
-                        .c_deviation_ppm
-                        .map(|d| f64::from(d) / 1e4)
-                        // Computed for rejects only: the inverse is not free.
-                        .or_else(|| {
-                            checker.zip(r.hold_ticks).and_then(|(c, h)| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4)
-                        }),
-                    // Computed for the kept rejects only: a diagnosis is a few thousand evaluations.
-                    reads: checker.and_then(|c| c.reads(r)),
-                });
-            }
-            if self.reject_error.is_none() {
-                self.reject_error = match &mut self.reject_log {
-                    RejectLog::None => None,
-                    RejectLog::Writer(w) => log::write_line(w, measured_ms, station, batch, r).err(),
-                    RejectLog::Buffer(v) => log::write_line(v, measured_ms, station, batch, r).err(),
-                };
-            }
+            self.add_reject(station, batch, measured_ms, r, setup_id);
         }
         if let Some(rc) = self.recheck.as_mut() {
             match (judged, r.hold_ticks) {
@@ -764,41 +715,73 @@ impl Tally {
         }
     }
 
+    /// Adds a summary the store kept: `cell` of (station, batch, UTC day,
+    /// setup, clock). Its rejects come separately ([`Tally::add_reject`]).
+    pub fn add_cell(
+        &mut self,
+        station: &str,
+        batch: &str,
+        day: i64,
+        setup_id: Option<i64>,
+        clock_hz: u32,
+        cell: &Cell,
+    ) {
+        let si = self.station(station);
+        let ci = self.cell(si, batch, day, setup_id, clock_hz);
+        if let Some((_, c)) = self.cells.get_mut(ci) {
+            c.merge(cell);
+        }
+    }
+
+    /// Lists a failing measurement (the first [`Tally::keep`] in the report,
+    /// every one in the reject log) without counting it: [`Tally::add`]
+    /// counts and lists; a report from summaries counts with
+    /// [`Tally::add_cell`] and lists the stored rejects with this.
+    pub fn add_reject(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
+        let checker = setup_id.and_then(|id| self.checkers.get(&id));
+        if self.rejects.len() < self.keep {
+            self.rejects.push(Reject {
+                station: station.to_owned(),
+                batch: batch.to_owned(),
+                measured_ms,
+                record: *r,
+                unit: r.unit_id,
+                verdict: r.verdict.name(),
+                hint: r.hint.name(),
+                hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
+                c_dev_pct: r
+                    .c_deviation_ppm
+                    .map(|d| f64::from(d) / 1e4)
+                    // Computed for rejects only: the inverse is not free.
+                    .or_else(|| checker.zip(r.hold_ticks).and_then(|(c, h)| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4)),
+                // Computed for the kept rejects only: a diagnosis is a few thousand evaluations.
+                reads: checker.and_then(|c| c.reads(r)),
+            });
+        }
+        if self.reject_error.is_none() {
+            self.reject_error = match &mut self.reject_log {
+                RejectLog::None => None,
+                RejectLog::Writer(w) => log::write_line(w, measured_ms, station, batch, r).err(),
+                RejectLog::Buffer(v) => log::write_line(v, measured_ms, station, batch, r).err(),
+            };
+        }
+    }
+
+    /// Whether the reject list is full and no reject log is written: a
+    /// report from summaries stops reading rejects here.
+    #[must_use]
+    pub fn rejects_full(&self) -> bool {
+        self.rejects.len() >= self.keep && matches!(self.reject_log, RejectLog::None)
+    }
+
     /// Adds everything another tally (over later records) holds.
     pub fn merge(&mut self, o: Tally) {
-        let map: Vec<usize> = o.stations.iter().map(|g| self.station(&g.name)).collect();
-        for (g, &i) in o.stations.into_iter().zip(&map) {
-            if let Some(mine) = self.stations.get_mut(i) {
-                mine.merge(g);
-            }
-        }
-        for (s, b, total, passed) in o.batches {
-            let si = map.get(s).copied().unwrap_or(0);
-            let k = *self.batch_index.entry((si, b.clone())).or_insert_with(|| {
-                self.batches.push((si, b, 0, 0));
-                self.batches.len() - 1
-            });
-            if let Some(e) = self.batches.get_mut(k) {
-                e.2 += total;
-                e.3 += passed;
-            }
-        }
-        for (s, d, total, passed, sum, n) in o.days {
-            let si = map.get(s).copied().unwrap_or(0);
-            let k = *self.day_index.entry((si, d)).or_insert_with(|| {
-                self.days.push((si, d, 0, 0, 0.0, 0));
-                self.days.len() - 1
-            });
-            if let Some(e) = self.days.get_mut(k) {
-                e.2 += total;
-                e.3 += passed;
-                e.4 += sum;
-                e.5 += n;
-            }
+        for (k, c) in &o.cells {
+            let (Some(station), Some(batch)) = (o.stations.get(k.station), o.batches.get(k.batch)) else { continue };
+            self.add_cell(station, batch, k.day, k.setup_id, k.clock_hz, c);
         }
         let room = self.keep.saturating_sub(self.rejects.len());
         self.rejects.extend(o.rejects.into_iter().take(room));
-        self.rejects_total += o.rejects_total;
         if let (Some(a), Some(b)) = (self.recheck.as_mut(), o.recheck) {
             a.checked += b.checked;
             a.agreed += b.agreed;
@@ -808,10 +791,6 @@ impl Tally {
             let room = self.keep.saturating_sub(a.disagreements.len());
             a.disagreements.extend(b.disagreements.into_iter().take(room));
         }
-        self.span = match (self.span, o.span) {
-            (Some((a, b)), Some((c, d))) => Some((a.min(c), b.max(d))),
-            (x, None) | (None, x) => x,
-        };
         if self.reject_error.is_none() {
             self.reject_error = o.reject_error;
         }
@@ -829,7 +808,9 @@ impl Tally {
         }
     }
 
-    /// The report.
+    /// The report. Cells are taken in one canonical order — station, setup,
+    /// clock, batch, day — so the figures do not depend on the order the
+    /// records came in.
     ///
     /// # Errors
     /// Writing the reject log failed.
@@ -840,50 +821,79 @@ impl Tally {
         if let RejectLog::Writer(w) = &mut self.reject_log {
             w.flush()?;
         }
-        for g in &mut self.stations {
-            g.finish();
+        let (stations, batch_names, windows) = (&self.stations, &self.batches, &self.windows);
+        let sname = |i: usize| stations.get(i).map_or("", String::as_str);
+        let bname = |i: usize| batch_names.get(i).map_or("", String::as_str);
+        let mut cells: Vec<&(CellKey, Cell)> = self.cells.iter().filter(|(_, c)| c.total() > 0).collect();
+        cells.sort_by(|(a, _), (b, _)| {
+            (sname(a.station), a.setup_id, a.clock_hz, bname(a.batch), a.day).cmp(&(
+                sname(b.station),
+                b.setup_id,
+                b.clock_hz,
+                bname(b.batch),
+                b.day,
+            ))
+        });
+        let limits = |k: &CellKey| k.setup_id.and_then(|id| windows.get(&id)).copied().unwrap_or_default();
+        // Stations in the order they came.
+        let mut out_stations = Vec::new();
+        for (i, name) in stations.iter().enumerate() {
+            let mine = cells.iter().filter(|(k, _)| k.station == i).map(|(k, c)| (k, c));
+            let g = Group::of(name, mine, limits);
+            if g.total > 0 {
+                out_stations.push(g);
+            }
         }
-        // "all" is the stations merged (in station order).
-        for g in &self.stations {
-            self.all.merge(g.clone());
+        let all = Group::of("all", cells.iter().map(|(k, c)| (k, c)), limits);
+        let mut batches: std::collections::BTreeMap<(&str, &str), (u64, u64)> = std::collections::BTreeMap::new();
+        let mut days: std::collections::BTreeMap<(&str, i64), (u64, u64, f64, u64)> = std::collections::BTreeMap::new();
+        let mut span: Option<(i64, i64)> = None;
+        for (k, c) in &cells {
+            let b = batches.entry((sname(k.station), bname(k.batch))).or_default();
+            b.0 += c.total();
+            b.1 += c.passed();
+            let d = days.entry((sname(k.station), k.day)).or_default();
+            d.0 += c.total();
+            d.1 += c.passed();
+            // The day's mean hold, over the holds the capability counts (no gross faults).
+            if !c.holds.saturated {
+                d.2 += c.holds.sum as f64 / f64::from(k.clock_hz.max(1));
+                d.3 += c.holds.n;
+            }
+            span = Some(span.map_or((c.first_ms, c.last_ms), |(a, b)| (a.min(c.first_ms), b.max(c.last_ms))));
         }
-        self.all.finish();
-        let name = |i: usize| self.stations.get(i).map_or_else(String::new, |g| g.name.clone());
-        let mut batches: Vec<Part> = self
-            .batches
-            .iter()
-            .map(|(s, b, total, passed)| Part {
-                station: name(*s),
-                key: b.clone(),
-                total: *total,
-                passed: *passed,
+        let batches = batches
+            .into_iter()
+            .map(|((s, b), (total, passed))| Part {
+                station: s.to_owned(),
+                key: b.to_owned(),
+                total,
+                passed,
                 day_ms: None,
                 hold_mean_s: None,
             })
             .collect();
-        batches.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
-        let mut days: Vec<Part> = self
-            .days
-            .iter()
-            .map(|(s, d, total, passed, sum, n)| Part {
-                station: name(*s),
-                key: time::date_of(d * 86_400_000),
-                total: *total,
-                passed: *passed,
-                day_ms: Some(d * 86_400_000),
-                hold_mean_s: (*n > 0).then(|| sum / *n as f64),
+        let days = days
+            .into_iter()
+            .map(|((s, d), (total, passed, sum, n))| Part {
+                station: s.to_owned(),
+                key: time::date_of(d * summary::DAY_MS),
+                total,
+                passed,
+                day_ms: Some(d * summary::DAY_MS),
+                hold_mean_s: (n > 0).then(|| sum / n as f64),
             })
             .collect();
-        days.sort_by(|a, b| (&a.station, &a.key).cmp(&(&b.station, &b.key)));
+        let rejects_total = all.total - all.passed();
         Ok(YieldReport {
-            stations: self.stations,
-            all: self.all,
+            stations: out_stations,
+            all,
             batches,
             days,
             rejects: self.rejects,
-            rejects_total: self.rejects_total,
+            rejects_total,
             recheck: self.recheck,
-            span_ms: self.span,
+            span_ms: span,
         })
     }
 }

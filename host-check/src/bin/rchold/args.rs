@@ -212,6 +212,7 @@ impl Select {
             from_ms: self.from.as_deref().map(|s| date_or_time("from", s)).transpose()?,
             to_ms: self.to.as_deref().map(|s| date_or_time("to", s)).transpose()?,
             unit_id: None,
+            rejects_only: false,
         })
     }
 }

@@ -6,7 +6,7 @@ use std::process::ExitCode;
 
 use host_check::data::store::Store;
 use host_check::report::aging::{self, FleetTally, Status, UnitTrend};
-use host_check::report::files::{each_record, needing_attention, ReportDir};
+use host_check::report::files::{aging_from_summaries, each_record, needing_attention, with_points, ReportDir};
 
 use crate::args::{emit, emit_json, end_of_life, Select};
 
@@ -48,16 +48,30 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let mut filter = a.select.filter()?;
     filter.unit_id = a.unit;
     let store = Store::open_existing(&a.db)?;
-    let setups = store.setups()?;
-    let mut tally = FleetTally::new(&setups);
     // Without --station, a fixture's boards (measured once, no drift tracked) are left out.
     let all = a.select.station.is_some();
-    each_record(&store, &filter, |station, s, role| {
-        if all || role.aging {
-            tally.add(station, s.measured_ms, &s.record, s.setup_id);
+    let charted = |r: &aging::FleetReport| -> Vec<(String, u32)> {
+        let units: Vec<&UnitTrend> = if a.unit.is_some() { r.units.iter().collect() } else { needing_attention(r) };
+        units.iter().map(|u| (u.station.clone(), u.unit)).collect()
+    };
+    let report = if filter.batch.is_none() && filter.from_ms.is_none() && filter.to_ms.is_none() {
+        // The per-unit sums kept at ingest: one row per unit.
+        let mut r = aging_from_summaries(&store, a.select.station.as_deref(), a.unit, all, limit_ratio, a.months)?;
+        if a.out.is_some() {
+            let units = charted(&r);
+            with_points(&store, &mut r, &units, all)?;
         }
-    })?;
-    let report = tally.finish(limit_ratio, a.months);
+        r
+    } else {
+        let setups = store.setups()?;
+        let mut tally = FleetTally::new(&setups);
+        each_record(&store, &filter, |station, s, role| {
+            if all || role.aging {
+                tally.add(station, s.measured_ms, &s.record, s.setup_id);
+            }
+        })?;
+        tally.finish(limit_ratio, a.months)
+    };
     if let Some(out) = &a.out {
         let units: Vec<&UnitTrend> =
             if a.unit.is_some() { report.units.iter().collect() } else { needing_attention(&report) };

@@ -8,7 +8,7 @@ use std::process::ExitCode;
 
 use host_check::data::log;
 use host_check::data::store::{Filter, Store};
-use host_check::report::files::{each_record, ReportDir};
+use host_check::report::files::{each_record, yield_from_summaries, ReportDir};
 use host_check::report::yields::{self, Tally, YieldReport};
 use host_check::Error;
 
@@ -50,6 +50,10 @@ type RejectLog = Option<Box<dyn Write + Send>>;
 fn from_store(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldReport, Error> {
     let store = Store::open_existing(&a.db)?;
     let (given, override_id) = a.setup.replacing()?;
+    // Without a re-check or a replacing stage, on whole days: the summaries kept at ingest.
+    if a.skip_recheck && override_id.is_none() && filter.by_days() {
+        return yield_from_summaries(&store, filter, a.select.station.is_some(), reject_log);
+    }
     // A --stage given here replaces the stored setups (id 0 for all records).
     let setups = if override_id.is_some() { given } else { store.setups()? };
     let mut tally = Tally::new(&setups, !a.skip_recheck, reject_log);
