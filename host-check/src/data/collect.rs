@@ -11,6 +11,7 @@
 use std::fmt;
 use std::io::{self, Read};
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use hold_firmware::record::Record;
@@ -19,7 +20,7 @@ use sha2::{Digest as _, Sha256};
 use crate::data::frames::{Counts, FrameReader};
 use crate::data::log::{self, LogError};
 use crate::data::mapping::Mapping;
-use crate::data::store::{hex, Store, StoreError, Written};
+use crate::data::store::{hex, Station, Store, StoreError, Written};
 use crate::data::time;
 use crate::report::yields::{HoldJudge, NO_JUDGE};
 
@@ -294,45 +295,85 @@ fn ingest_with(
         return Ok(Ingested::AlreadyStored { source_id });
     };
     let file = std::fs::File::open(path).map_err(io_err(path))?;
-    let mut store_error = None;
-    let mut last_station: Option<(String, i64)> = None;
-    let mut store_line = |_: u64, l: &log::Line<'_>| -> Result<(), String> {
-        let mut judged;
-        let l = if l.unjudged() {
-            judged = l.clone();
-            judge.as_ref().ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut judged)?;
-            &judged
-        } else {
-            l
-        };
-        let station = match &last_station {
-            Some((name, id)) if name == l.station => *id,
-            _ => {
-                let id = batch.station(l.station).map_err(|e| {
-                    let m = e.to_string();
-                    store_error = Some(e);
-                    m
-                })?;
-                last_station = Some((l.station.to_owned(), id));
-                id
+    // Two threads: one reads and checks the lines, the other stores them, a
+    // chunk at a time (a bounded channel: memory stays flat in the file's size).
+    let judge = judge.as_ref();
+    let (lines, store_error) = std::thread::scope(|scope| {
+        let (tx, rx) = std::sync::mpsc::sync_channel::<Vec<Parsed>>(4);
+        let reader = scope.spawn(move || {
+            let mut chunk = Vec::with_capacity(CHUNK);
+            let (mut station, mut batch): (Arc<str>, Arc<str>) = (Arc::from(""), Arc::from(""));
+            let mut each = |_: u64, l: &log::Line<'_>| -> Result<(), String> {
+                let mut judged;
+                let l = if l.unjudged() {
+                    judged = l.clone();
+                    judge.ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut judged)?;
+                    &judged
+                } else {
+                    l
+                };
+                if *station != *l.station {
+                    station = Arc::from(l.station);
+                }
+                if *batch != *l.batch {
+                    batch = Arc::from(l.batch);
+                }
+                chunk.push(Parsed {
+                    station: station.clone(),
+                    batch: batch.clone(),
+                    measured_ms: l.measured_ms,
+                    record: l.record,
+                });
+                if chunk.len() >= CHUNK {
+                    let full = std::mem::replace(&mut chunk, Vec::with_capacity(CHUNK));
+                    tx.send(full).map_err(|_| STORE_STOPPED.to_owned())?;
+                }
+                Ok(())
+            };
+            let lines = match mapping {
+                Some(m) => m.read(path, &mut each),
+                None => log::read(path, file, &mut each),
+            }?;
+            if !chunk.is_empty() {
+                tx.send(chunk).map_err(|_| log::LogError::at(path, lines, None, STORE_STOPPED.to_owned()))?;
             }
-        };
-        batch.insert(station, l.batch, l.measured_ms, &l.record, setup_id, source_id).map(|_| ()).map_err(|e| {
-            let m = e.to_string();
-            store_error = Some(e);
-            m
-        })
-    };
-    let lines = match mapping {
-        Some(m) => m.read(path, &mut store_line),
-        None => log::read(path, file, &mut store_line),
-    };
+            Ok::<u64, log::LogError>(lines)
+        });
+        let mut store_error = None;
+        for chunk in rx {
+            let rows = chunk.iter().map(|p| (Station::Name(&p.station), &*p.batch, p.measured_ms, &p.record));
+            if let Err(e) = batch.insert_all(rows, setup_id, source_id) {
+                // Dropping the receiver stops the reader at its next chunk.
+                store_error = Some(e);
+                break;
+            }
+        }
+        let lines = reader
+            .join()
+            .unwrap_or_else(|_| Err(log::LogError::at(path, 0, None, "the reading thread failed".to_owned())));
+        (lines, store_error)
+    });
     if let Some(e) = store_error {
         return Err(CollectError::Store(e));
     }
     let lines = lines.map_err(CollectError::Log)?;
     let written = batch.commit(source_id, 0, 0)?;
     Ok(Ingested::Stored { written, lines })
+}
+
+/// Lines per chunk handed from the reading thread to the storing one.
+const CHUNK: usize = 8_192;
+
+/// Why the reading thread stopped when the storing one failed (never shown:
+/// the store's error is).
+const STORE_STOPPED: &str = "the store stopped taking records";
+
+/// A checked line, owned, on its way to the store.
+struct Parsed {
+    station: Arc<str>,
+    batch: Arc<str>,
+    measured_ms: i64,
+    record: Record,
 }
 
 /// Where a listened stream comes from, for messages.

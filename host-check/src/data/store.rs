@@ -328,6 +328,9 @@ pub fn pack_codes(r: &Record) -> i64 {
         + 256 * i64::from(codes::drift_code(r.drift))
 }
 
+/// The page size of a new store, bytes.
+const PAGE_SIZE: u32 = 16_384;
+
 /// How long a connection waits for another writer's lock before it gives up.
 const BUSY_WAIT: Duration = Duration::from_secs(60);
 
@@ -382,6 +385,10 @@ impl Store {
         let err = |m: String| StoreError { path: path.to_path_buf(), message: m };
         let conn = Connection::open(path).map_err(|e| err(format!("cannot open: {e}")))?;
         conn.busy_timeout(BUSY_WAIT).map_err(|e| err(e.to_string()))?;
+        // Larger pages for a new file (ignored once the file has tables): fewer
+        // B-tree levels and splits per row, less space per row.
+        let page: u32 = std::env::var("RCHOLD_PAGE").ok().and_then(|v| v.parse().ok()).unwrap_or(PAGE_SIZE);
+        conn.pragma_update(None, "page_size", page).map_err(|e| err(e.to_string()))?;
         into_wal(&conn).map_err(err)?;
         // A 64 MiB page cache: an ingest of millions of rows stays in memory
         // between the B-tree's pages (bounded, whatever the store's size).
@@ -1078,6 +1085,34 @@ fn write_summaries(conn: &Connection, path: &Path, sums: &Summaries, replace: bo
     Ok(())
 }
 
+/// A station, by name or by its id in the store.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Station<'a> {
+    /// By id ([`Batch::station`]).
+    Id(i64),
+    /// By name, stored if new.
+    Name(&'a str),
+}
+
+/// The id of a name in table `table` (`station` or `batch`), stored if new;
+/// `cache` holds the ones looked up before.
+fn name_id(
+    conn: &Connection,
+    path: &Path,
+    cache: &mut HashMap<String, i64>,
+    table: &str,
+    name: &str,
+) -> Result<i64, StoreError> {
+    if let Some(&id) = cache.get(name) {
+        return Ok(id);
+    }
+    let e = |e: rusqlite::Error| se(path, e);
+    conn.execute(&format!("INSERT OR IGNORE INTO {table} (name) VALUES (?1)"), [name]).map_err(e)?;
+    let id = conn.query_row(&format!("SELECT id FROM {table} WHERE name = ?1"), [name], |r| r.get(0)).map_err(e)?;
+    cache.insert(name.to_owned(), id);
+    Ok(id)
+}
+
 /// One write transaction. Dropped without [`Batch::commit`], it rolls back;
 /// the summaries of its records are kept in memory and written with it.
 pub struct Batch<'c> {
@@ -1110,27 +1145,7 @@ impl Batch<'_> {
     /// # Errors
     /// SQLite errors.
     pub fn station(&mut self, name: &str) -> Result<i64, StoreError> {
-        if let Some(&id) = self.stations.get(name) {
-            return Ok(id);
-        }
-        self.tx.execute("INSERT OR IGNORE INTO station (name) VALUES (?1)", [name]).map_err(|e| self.err(e))?;
-        let id = self
-            .tx
-            .query_row("SELECT id FROM station WHERE name = ?1", [name], |r| r.get(0))
-            .map_err(|e| self.err(e))?;
-        self.stations.insert(name.to_owned(), id);
-        Ok(id)
-    }
-
-    fn batch_id(&mut self, name: &str) -> Result<i64, StoreError> {
-        if let Some(&id) = self.batches.get(name) {
-            return Ok(id);
-        }
-        self.tx.execute("INSERT OR IGNORE INTO batch (name) VALUES (?1)", [name]).map_err(|e| self.err(e))?;
-        let id =
-            self.tx.query_row("SELECT id FROM batch WHERE name = ?1", [name], |r| r.get(0)).map_err(|e| self.err(e))?;
-        self.batches.insert(name.to_owned(), id);
-        Ok(id)
+        name_id(&self.tx, &self.path, &mut self.stations, "station", name)
     }
 
     /// Starts a log-file source inside this transaction: it exists only if
@@ -1167,7 +1182,6 @@ impl Batch<'_> {
     ///
     /// # Errors
     /// SQLite errors.
-    #[allow(clippy::too_many_arguments)]
     pub fn insert(
         &mut self,
         station_id: i64,
@@ -1177,47 +1191,81 @@ impl Batch<'_> {
         setup_id: Option<i64>,
         source_id: i64,
     ) -> Result<bool, StoreError> {
-        let batch_id = self.batch_id(batch)?;
+        let before = self.stored;
+        self.insert_all(std::iter::once((Station::Id(station_id), batch, measured_ms, r)), setup_id, source_id)?;
+        Ok(self.stored > before)
+    }
+
+    /// Stores measurements `(station, batch, measured_ms, record)` measured
+    /// against `setup_id`, through one prepared statement (an ingest's fast
+    /// path); (station, unit, seq) already stored counts as a duplicate.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn insert_all<'r>(
+        &mut self,
+        rows: impl IntoIterator<Item = (Station<'r>, &'r str, i64, &'r Record)>,
+        setup_id: Option<i64>,
+        source_id: i64,
+    ) -> Result<(), StoreError> {
+        let Batch { tx, path, stations, batches, setups, drifting, newly_drifting, pending, stored, duplicates } = self;
+        let err = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
+        let mut st = tx.prepare_cached(INSERT).map_err(err)?;
         let setup = setup_id.unwrap_or(0);
-        // The clock is stored only where it is not the setup's.
-        let clock = match self.setups.get(&setup) {
-            Some(i) if i.clock_hz == r.clock_hz => None,
-            _ => Some(r.clock_hz),
-        };
-        let mut st = self
-            .tx
-            .prepare_cached(INSERT)
-            .map_err(|e| StoreError { path: self.path.clone(), message: e.to_string() })?;
-        let n = st
-            .execute(params![
-                station_id,
-                r.unit_id,
-                r.seq,
-                measured_ms,
-                batch_id,
-                setup,
-                source_id,
-                clock,
-                u64_sql(r.press_ticks),
-                r.on_ticks.map(u64_sql),
-                r.hold_ticks.map(u64_sql),
-                r.temp_mdeg_c,
-                r.c_deviation_ppm,
-                pack_codes(r),
-            ])
-            .map_err(|e| StoreError { path: self.path.clone(), message: e.to_string() })?;
-        if n == 1 {
-            self.stored += 1;
-            if r.drift != DriftState::Settling && !self.drifting.contains(&station_id) {
-                // From now on every record of the station belongs in aging.
-                self.drifting.insert(station_id);
-                self.newly_drifting.insert(station_id);
+        let setup_clock = setups.get(&setup).map(|i| i.clock_hz);
+        let mut last_batch: Option<(&str, i64)> = None;
+        let mut last_station: Option<(&str, i64)> = None;
+        for (station, batch, measured_ms, r) in rows {
+            let station_id = match (station, last_station) {
+                (Station::Id(id), _) => id,
+                (Station::Name(n), Some((m, id))) if n == m => id,
+                (Station::Name(n), _) => {
+                    let id = name_id(tx, path, stations, "station", n)?;
+                    last_station = Some((n, id));
+                    id
+                }
+            };
+            let batch_id = match last_batch {
+                Some((b, id)) if b == batch => id,
+                _ => {
+                    let id = name_id(tx, path, batches, "batch", batch)?;
+                    last_batch = Some((batch, id));
+                    id
+                }
+            };
+            // The clock is stored only where it is not the setup's.
+            let clock = if setup_clock == Some(r.clock_hz) { None } else { Some(r.clock_hz) };
+            let n = st
+                .execute(params![
+                    station_id,
+                    r.unit_id,
+                    r.seq,
+                    measured_ms,
+                    batch_id,
+                    setup,
+                    source_id,
+                    clock,
+                    u64_sql(r.press_ticks),
+                    r.on_ticks.map(u64_sql),
+                    r.hold_ticks.map(u64_sql),
+                    r.temp_mdeg_c,
+                    r.c_deviation_ppm,
+                    pack_codes(r),
+                ])
+                .map_err(err)?;
+            if n == 1 {
+                *stored += 1;
+                if r.drift != DriftState::Settling && !drifting.contains(&station_id) {
+                    // From now on every record of the station belongs in aging.
+                    drifting.insert(station_id);
+                    newly_drifting.insert(station_id);
+                }
+                pending.add(station_id, batch_id, measured_ms, r, setup, setups, drifting);
+            } else {
+                *duplicates += 1;
             }
-            self.pending.add(station_id, batch_id, measured_ms, r, setup, &self.setups, &self.drifting);
-        } else {
-            self.duplicates += 1;
         }
-        Ok(n == 1)
+        Ok(())
     }
 
     /// Writes the summaries, adds this batch's counts (and `bad_frames`,
