@@ -2,6 +2,7 @@
 //! the measurement log, the names of verdicts and hints, UTC times, the
 //! SQLite store and the two ways in (`listen`, `ingest`).
 
+pub mod archive;
 pub mod codes;
 pub mod collect;
 pub mod frames;

@@ -2,6 +2,7 @@
 //! on, their charts and the HTML page.
 
 pub mod aging;
+pub mod archive;
 pub mod chart;
 pub mod files;
 pub mod html;

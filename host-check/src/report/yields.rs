@@ -767,6 +767,13 @@ impl Tally {
         }
     }
 
+    /// Keeps this tally's reject log lines in memory, to be written in order
+    /// when it is merged into one with a log ([`Tally::merge`]): for a tally
+    /// of one piece of work among several.
+    pub fn buffer_rejects(&mut self) {
+        self.reject_log = RejectLog::Buffer(Vec::new());
+    }
+
     /// Whether the reject list is full and no reject log is written: a
     /// report from summaries stops reading rejects here.
     #[must_use]
@@ -930,7 +937,7 @@ pub fn tally_logs(
                     scope.spawn(move || {
                         let mut t = Tally::new(setups, recheck, None);
                         if buffer {
-                            t.reject_log = RejectLog::Buffer(Vec::new());
+                            t.buffer_rejects();
                         }
                         log::read_range(path, a, b, |_, l| {
                             if keep(l) {

@@ -6,6 +6,7 @@ use std::process::ExitCode;
 
 use host_check::data::store::Store;
 use host_check::report::aging::{self, FleetTally, Status, UnitTrend};
+use host_check::report::archive::aging_from_parquet;
 use host_check::report::files::{aging_from_summaries, each_record, needing_attention, with_points, ReportDir};
 
 use crate::args::{emit, emit_json, end_of_life, Select};
@@ -16,6 +17,9 @@ pub struct Args {
     /// The measurement store (SQLite).
     #[arg(long, default_value = "rchold.db")]
     db: PathBuf,
+    /// Read this Parquet dataset (`rchold export --parquet`) instead of the store.
+    #[arg(long, value_name = "DIR")]
+    parquet: Option<PathBuf>,
     #[command(flatten)]
     select: Select,
     /// Only this unit.
@@ -47,6 +51,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let limit_ratio = end_of_life("limit", &a.limit)?;
     let mut filter = a.select.filter()?;
     filter.unit_id = a.unit;
+    if let Some(dir) = &a.parquet {
+        if a.out.is_some() {
+            anyhow::bail!(
+                "--out draws each unit's points, which a Parquet dataset's sums do not keep: report from the store"
+            );
+        }
+        let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
+        let all = a.select.station.is_some();
+        let report = aging_from_parquet(dir, &filter, all, limit_ratio, a.months, threads)?;
+        return finish(&a, &report);
+    }
     let store = Store::open_existing(&a.db)?;
     // Without --station, a fixture's boards (measured once, no drift tracked) are left out.
     let all = a.select.station.is_some();
@@ -77,10 +92,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             if a.unit.is_some() { report.units.iter().collect() } else { needing_attention(&report) };
         ReportDir::create(out)?.aging(&report, a.rows, &units)?;
     }
+    finish(&a, &report)
+}
+
+/// Prints the report; exit code 1 when `--alert` finds units.
+fn finish(a: &Args, report: &aging::FleetReport) -> anyhow::Result<ExitCode> {
     if a.json {
-        emit_json(&report)?;
+        emit_json(report)?;
     } else {
-        emit(&aging::render_text(&report, a.rows))?;
+        emit(&aging::render_text(report, a.rows))?;
     }
     let flagged = report
         .units

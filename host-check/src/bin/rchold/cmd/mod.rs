@@ -14,6 +14,7 @@ mod curve;
 mod demo;
 mod diagnose;
 mod eval;
+mod export;
 mod ingest;
 mod listen;
 mod pick;
@@ -60,6 +61,8 @@ pub enum Command {
     Yield(yields::Args),
     /// Fleet aging: each unit's capacitance trend, rate per year and forecast end of life.
     Aging(aging::Args),
+    /// The store's records (or logs') as a Hive-partitioned Parquet dataset for Spark, DataFusion and rchold.
+    Export(export::Args),
     /// The whole report of a store into a folder: yield, aging, charts and the HTML page.
     Report(report::Args),
     /// What the store holds: each stream and log with its counts.
@@ -88,6 +91,7 @@ pub fn run(command: Command) -> anyhow::Result<ExitCode> {
         Command::Ingest(a) => ingest::run(a),
         Command::Yield(a) => yields::run(a),
         Command::Aging(a) => aging::run(a),
+        Command::Export(a) => export::run(a),
         Command::Report(a) => report::run(a),
         Command::Sources(a) => sources::run(a),
         Command::Demo(a) => demo::run(a),

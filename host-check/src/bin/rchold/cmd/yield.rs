@@ -8,6 +8,7 @@ use std::process::ExitCode;
 
 use host_check::data::log;
 use host_check::data::store::{Filter, Store};
+use host_check::report::archive::yield_from_parquet;
 use host_check::report::files::{each_record, yield_from_summaries, ReportDir};
 use host_check::report::yields::{self, Tally, YieldReport};
 use host_check::Error;
@@ -21,8 +22,11 @@ pub struct Args {
     #[arg(long, default_value = "rchold.db")]
     db: PathBuf,
     /// Read these measurement logs directly instead of the store.
-    #[arg(long, value_name = "FILE", num_args = 1..)]
+    #[arg(long, value_name = "FILE", num_args = 1.., conflicts_with = "parquet")]
     csv: Vec<PathBuf>,
+    /// Read this Parquet dataset (`rchold export --parquet`) instead of the store.
+    #[arg(long, value_name = "DIR")]
+    parquet: Option<PathBuf>,
     #[command(flatten)]
     select: Select,
     #[command(flatten)]
@@ -92,8 +96,17 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
         None => None,
     };
-    let report =
-        if a.csv.is_empty() { from_store(&a, &filter, reject_log)? } else { from_logs(&a, &filter, reject_log)? };
+    let report = if let Some(dir) = &a.parquet {
+        let (given, id) = a.setup.replacing()?;
+        let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
+        let given = id.map(|id| (given, id));
+        let all = a.select.station.is_some();
+        yield_from_parquet(dir, &filter, given, all, !a.skip_recheck, reject_log, threads)?
+    } else if a.csv.is_empty() {
+        from_store(&a, &filter, reject_log)?
+    } else {
+        from_logs(&a, &filter, reject_log)?
+    };
     if let Some(d) = &mut dir {
         d.yields(&report, a.rows)?;
     }
