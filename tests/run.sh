@@ -30,6 +30,9 @@ RUSTDOCFLAGS="-D warnings" cargo doc -q --workspace --no-deps
 step "tests"
 cargo test --workspace
 
+step "the shipped SQL on Spark and DataFusion agrees with rchold (a synthetic fleet of 10^6 records)"
+bash benches/fleet_on_engines.sh 10000 100
+
 step "cross builds of the no_std crates"
 cargo build -q -p rc-model --release --target thumbv6m-none-eabi
 cargo build -q -p rc-model --release --target thumbv6m-none-eabi --no-default-features

@@ -26,3 +26,16 @@ if [ "${#missing[@]}" -gt 0 ]; then
     apt-get update -qq
     DEBIAN_FRONTEND=noninteractive apt-get install -y -qq "${missing[@]}" >/dev/null
 fi
+
+# The engines the shipped SQL (host-check/sql/) is checked on: Apache Spark
+# (pyspark, which needs Java 17) and Apache DataFusion, with pyarrow.
+if ! command -v java >/dev/null 2>&1; then
+    if [ "$(id -u)" -ne 0 ]; then
+        echo "tests/setup.sh: need root to apt-get install openjdk-17-jre-headless" >&2
+        exit 1
+    fi
+    apt-get update -qq
+    DEBIAN_FRONTEND=noninteractive apt-get install -y -qq openjdk-17-jre-headless >/dev/null
+fi
+python3 -c 'import pyspark, datafusion, pyarrow' 2>/dev/null ||
+    python3 -m pip install -q --disable-pip-version-check pyspark==4.3.0 datafusion==55.0.0 pyarrow==26.0.1
