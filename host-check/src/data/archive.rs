@@ -208,7 +208,8 @@ pub struct ArchiveWriter {
     tmp: PathBuf,
     /// A prefix of this writer's file names (writers in parallel use their own).
     prefix: String,
-    parts: HashMap<(String, i64), Part>,
+    /// Buffers by station, then UTC day.
+    parts: HashMap<String, HashMap<i64, Part>>,
     files: HashMap<(String, i64), u32>,
     buffered: usize,
     /// Records written.
@@ -270,15 +271,25 @@ impl ArchiveWriter {
         r: &Record,
         setup_id: i64,
     ) -> Result<(), Error> {
-        let key = (station.to_owned(), day_of(measured_ms));
-        let part = self.parts.entry(key.clone()).or_default();
+        let day = day_of(measured_ms);
+        // No allocation for a station seen before.
+        let days = match self.parts.get_mut(station) {
+            Some(d) => d,
+            None => self.parts.entry(station.to_owned()).or_default(),
+        };
+        let part = days.entry(day).or_default();
         part.push(batch, measured_ms, r, setup_id);
         self.records += 1;
         self.buffered += 1;
         if part.len() >= PART_ROWS {
-            self.flush(&key)?;
+            self.flush(&(station.to_owned(), day))?;
         } else if self.buffered >= BUFFERED_ROWS {
-            let largest = self.parts.iter().max_by_key(|(_, p)| p.len()).map(|(k, _)| k.clone());
+            let largest = self
+                .parts
+                .iter()
+                .flat_map(|(s, d)| d.iter().map(move |(day, p)| (p.len(), s, *day)))
+                .max()
+                .map(|(_, s, day)| (s.clone(), day));
             if let Some(k) = largest {
                 self.flush(&k)?;
             }
@@ -287,7 +298,7 @@ impl ArchiveWriter {
     }
 
     fn flush(&mut self, key: &(String, i64)) -> Result<(), Error> {
-        let Some(part) = self.parts.get_mut(key) else { return Ok(()) };
+        let Some(part) = self.parts.get_mut(&key.0).and_then(|d| d.get_mut(&key.1)) else { return Ok(()) };
         if part.len() == 0 {
             return Ok(());
         }
@@ -305,14 +316,18 @@ impl ArchiveWriter {
         write_file(&path, &batch)
     }
 
+    /// Every partition buffered, (station, day).
+    fn keys(&self) -> Vec<(String, i64)> {
+        self.parts.iter().flat_map(|(s, d)| d.keys().map(move |&day| (s.clone(), day))).collect()
+    }
+
     /// Takes over what another writer of the same dataset holds (its
     /// buffers are written as its own files).
     ///
     /// # Errors
     /// Writing failed.
     pub fn absorb(&mut self, mut other: ArchiveWriter) -> Result<(), Error> {
-        let keys: Vec<_> = other.parts.keys().cloned().collect();
-        for k in keys {
+        for k in other.keys() {
             other.flush(&k)?;
         }
         self.records += other.records;
@@ -326,8 +341,7 @@ impl ArchiveWriter {
     /// Writing or renaming failed (the temporary folder is removed).
     pub fn finish(mut self, setups: &HashMap<i64, Setup>) -> Result<u64, Error> {
         let result = (|| {
-            let keys: Vec<_> = self.parts.keys().cloned().collect();
-            for k in keys {
+            for k in self.keys() {
                 self.flush(&k)?;
             }
             write_setups(&self.tmp.join("setups"), setups)?;
@@ -772,58 +786,6 @@ pub fn jobs(parts: &[PartFile]) -> Result<Vec<(&PartFile, usize)>, Error> {
         }
     }
     Ok(out)
-}
-
-/// Runs `work` over `jobs` on `threads` threads, each job into its own
-/// accumulator from `fresh`, and hands the accumulators to `merge` in job
-/// order as they complete (the result does not depend on the thread count;
-/// only a few finished jobs wait for an earlier one).
-///
-/// # Errors
-/// The first error in job order.
-pub fn run_ordered<T: Send>(
-    jobs: &[(&PartFile, usize)],
-    threads: usize,
-    fresh: impl Fn() -> T + Sync,
-    work: impl Fn(&mut T, &PartFile, usize) -> Result<(), Error> + Sync,
-    mut merge: impl FnMut(T),
-) -> Result<(), Error> {
-    let next = std::sync::atomic::AtomicUsize::new(0);
-    let (tx, rx) = std::sync::mpsc::channel::<(usize, Result<T, Error>)>();
-    std::thread::scope(|s| {
-        for _ in 0..threads.max(1) {
-            let tx = tx.clone();
-            let (next, fresh, work) = (&next, &fresh, &work);
-            s.spawn(move || loop {
-                let i = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                let Some(&(p, rg)) = jobs.get(i) else { break };
-                let mut acc = fresh();
-                let r = work(&mut acc, p, rg).map(|()| acc);
-                let failed = r.is_err();
-                if tx.send((i, r)).is_err() || failed {
-                    // Stop taking jobs: the error is reported in order.
-                    next.store(usize::MAX / 2, std::sync::atomic::Ordering::Relaxed);
-                    break;
-                }
-            });
-        }
-        drop(tx);
-        let mut pending = std::collections::BTreeMap::new();
-        let mut want = 0usize;
-        for (i, r) in rx {
-            pending.insert(i, r);
-            while let Some(r) = pending.remove(&want) {
-                merge(r?);
-                want += 1;
-            }
-        }
-        // A job that failed stopped the others: its error comes first in order.
-        match pending.into_values().next() {
-            Some(Err(e)) => Err(e),
-            _ if want < jobs.len() => Err(Error::Input("a reading thread stopped".into())),
-            _ => Ok(()),
-        }
-    })
 }
 
 /// Runs `work` over `jobs` on `threads` threads, one accumulator per thread

@@ -387,7 +387,7 @@ impl Store {
         conn.busy_timeout(BUSY_WAIT).map_err(|e| err(e.to_string()))?;
         // Larger pages for a new file (ignored once the file has tables): fewer
         // B-tree levels and splits per row, less space per row.
-        let page: u32 = std::env::var("RCHOLD_PAGE").ok().and_then(|v| v.parse().ok()).unwrap_or(PAGE_SIZE);
+        let page = PAGE_SIZE;
         conn.pragma_update(None, "page_size", page).map_err(|e| err(e.to_string()))?;
         into_wal(&conn).map_err(err)?;
         // A 64 MiB page cache: an ingest of millions of rows stays in memory
@@ -606,17 +606,80 @@ impl Store {
         let batches = self.batches()?;
         let mut n = 0;
         Store::scan(&self.conn, &self.path, filter, None, |x| {
-            each(Stored {
-                station_id: x.station_id,
-                batch: batches.get(&x.batch_id).cloned().unwrap_or_default(),
-                measured_ms: x.measured_ms,
-                record: x.record,
-                setup_id: Some(x.setup).filter(|&id| id != 0),
-            });
+            each(x.stored(&batches));
             n += 1;
             true
         })?;
         Ok(n)
+    }
+
+    /// Key ranges, in key order, that split the rows into about `parts`
+    /// pieces per station (by unit id, evenly over each station's range of
+    /// ids: two index lookups per station, no scan).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn key_ranges(&self, parts: u32) -> Result<Vec<KeyRange>, StoreError> {
+        let e = |e: rusqlite::Error| self.err(e);
+        let mut ids: Vec<i64> = self.stations()?.into_keys().collect();
+        ids.sort_unstable();
+        let mut out = Vec::new();
+        for id in ids {
+            let (lo, hi): (Option<i64>, Option<i64>) = self
+                .conn
+                .query_row(
+                    "SELECT (SELECT min(unit_id) FROM reading WHERE station_id = ?1), \
+                     (SELECT max(unit_id) FROM reading WHERE station_id = ?1)",
+                    [id],
+                    |r| Ok((r.get(0)?, r.get(1)?)),
+                )
+                .map_err(e)?;
+            let (Some(lo), Some(hi)) = (lo, hi) else { continue };
+            let (lo, hi) = (u32::try_from(lo).unwrap_or(0), u32::try_from(hi).unwrap_or(u32::MAX));
+            let step = (u64::from(hi - lo) + 1).div_ceil(u64::from(parts.max(1)));
+            let mut a = u64::from(lo);
+            while a <= u64::from(hi) {
+                let b = (a + step - 1).min(u64::from(hi));
+                out.push(KeyRange {
+                    station_id: id,
+                    units: (u32::try_from(a).unwrap_or(u32::MAX), u32::try_from(b).unwrap_or(u32::MAX)),
+                });
+                a = b + 1;
+            }
+        }
+        Ok(out)
+    }
+
+    /// Reads the measurements of `range` that `filter` selects, as
+    /// [`Store::for_each`] does, on this connection (one per thread: a store
+    /// opened with [`Store::open_reader`]).
+    ///
+    /// # Errors
+    /// SQLite errors, or a stored code this build does not know.
+    pub fn for_each_in(
+        &self,
+        filter: &Filter,
+        range: KeyRange,
+        batches: &HashMap<i64, String>,
+        mut each: impl FnMut(Stored),
+    ) -> Result<(), StoreError> {
+        Store::scan_keys(&self.conn, &self.path, filter, Some(range), |x| {
+            each(x.stored(batches));
+            true
+        })
+    }
+
+    /// Opens an existing store for reading only, without migrating (one more
+    /// reader beside a connection that opened it with [`Store::open`]).
+    ///
+    /// # Errors
+    /// The file cannot be opened.
+    pub fn open_reader(path: &Path) -> Result<Store, StoreError> {
+        // One connection per thread: no locking inside SQLite.
+        let flags = rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX;
+        let conn = Connection::open_with_flags(path, flags).map_err(|e| se(path, format!("cannot open: {e}")))?;
+        conn.busy_timeout(BUSY_WAIT).map_err(|e| se(path, e))?;
+        Ok(Store { conn, path: path.to_path_buf() })
     }
 
     /// The rows matching `filter` (and `station`, by id), in (station, unit,
@@ -626,6 +689,17 @@ impl Store {
         path: &Path,
         filter: &Filter,
         station: Option<i64>,
+        each: impl FnMut(Row) -> bool,
+    ) -> Result<(), StoreError> {
+        Store::scan_keys(conn, path, filter, station.map(|s| KeyRange { station_id: s, units: (0, u32::MAX) }), each)
+    }
+
+    /// As [`Store::scan`], within one key range.
+    fn scan_keys(
+        conn: &Connection,
+        path: &Path,
+        filter: &Filter,
+        keys: Option<KeyRange>,
         mut each: impl FnMut(Row) -> bool,
     ) -> Result<(), StoreError> {
         let err = |e: rusqlite::Error| se(path, e);
@@ -639,9 +713,9 @@ impl Store {
             sql.push_str(" AND m.station_id = (SELECT id FROM station WHERE name = ?)");
             args.push(s.clone().into());
         }
-        if let Some(id) = station {
-            sql.push_str(" AND m.station_id = ?");
-            args.push(id.into());
+        if let Some(k) = keys {
+            sql.push_str(" AND m.station_id = ? AND m.unit_id BETWEEN ? AND ?");
+            args.extend([k.station_id.into(), i64::from(k.units.0).into(), i64::from(k.units.1).into()]);
         }
         if let Some(b) = &filter.batch {
             sql.push_str(" AND m.batch_id = (SELECT id FROM batch WHERE name = ?)");
@@ -793,15 +867,7 @@ impl Store {
     pub fn rejects(&self, filter: &Filter, mut each: impl FnMut(Stored) -> bool) -> Result<(), StoreError> {
         let batches = self.batches()?;
         let reject = Filter { rejects_only: true, ..filter.clone() };
-        Store::scan(&self.conn, &self.path, &reject, None, |x| {
-            each(Stored {
-                station_id: x.station_id,
-                batch: batches.get(&x.batch_id).cloned().unwrap_or_default(),
-                measured_ms: x.measured_ms,
-                record: x.record,
-                setup_id: Some(x.setup).filter(|&id| id != 0),
-            })
-        })
+        Store::scan(&self.conn, &self.path, &reject, None, |x| each(x.stored(&batches)))
     }
 
     /// SQLite's own consistency check (`PRAGMA integrity_check`): `ok` or the problems.
@@ -813,6 +879,16 @@ impl Store {
     }
 }
 
+/// Rows of one station with unit ids in `units` (inclusive): a piece of the
+/// table for one thread ([`Store::key_ranges`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct KeyRange {
+    /// Station id.
+    pub station_id: i64,
+    /// First and last unit id.
+    pub units: (u32, u32),
+}
+
 /// A row as [`Store::scan`] reads it.
 struct Row {
     station_id: i64,
@@ -820,6 +896,19 @@ struct Row {
     measured_ms: i64,
     record: Record,
     setup: i64,
+}
+
+impl Row {
+    /// The row as the reports see it, with its batch's name.
+    fn stored(self, batches: &HashMap<i64, String>) -> Stored {
+        Stored {
+            station_id: self.station_id,
+            batch: batches.get(&self.batch_id).cloned().unwrap_or_default(),
+            measured_ms: self.measured_ms,
+            record: self.record,
+            setup_id: Some(self.setup).filter(|&id| id != 0),
+        }
+    }
 }
 
 /// Where a [`Cell`] of the store's summaries belongs: station, batch, UTC

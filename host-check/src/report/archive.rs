@@ -72,25 +72,21 @@ pub fn yield_from_parquet(
         "verdict",
         "hint",
     ];
-    let log = reject_log.is_some();
-    if log {
+    if reject_log.is_some() {
         // The reject log repeats whole records.
         wanted.extend(["press_ticks", "temp_mdeg_c", "drift"]);
     }
     let mut total = Tally::new(&setups, recheck, reject_log);
+    // A Mutex only to share it: forking takes no time.
+    let proto = std::sync::Mutex::new(total.fork());
     let setups = &setups;
     let yields = |id: Option<i64>| all || role(id.and_then(|i| setups.get(&i)), false).yields;
-    archive::run_ordered(
+    crate::par::run_ordered(
         &jobs,
         threads,
-        || {
-            let mut t = Tally::new(setups, recheck, None);
-            if log {
-                t.buffer_rejects();
-            }
-            t
-        },
-        |t, part, rg| {
+        || Ok(()),
+        || proto.lock().unwrap_or_else(std::sync::PoisonError::into_inner).fork(),
+        |(), t, &(part, rg)| {
             archive::read_part(part, Some(rg), &wanted, |x| {
                 let setup = force.or(x.setup_id);
                 if keeps(filter, x.batch, x.measured_ms, x.record.unit_id) && yields(setup) {

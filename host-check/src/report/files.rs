@@ -161,6 +161,45 @@ pub fn each_record(store: &Store, filter: &Filter, mut each: impl FnMut(&str, &S
     })?)
 }
 
+/// As [`each_record`], on `threads` threads over key ranges of the store
+/// (each with its own read connection): `fresh` makes an accumulator per
+/// range, `merge` receives them in key order, so the result is the one
+/// [`each_record`] gives.
+///
+/// # Errors
+/// The store's errors.
+pub fn each_record_split<T: Send>(
+    store: &Store,
+    filter: &Filter,
+    threads: usize,
+    fresh: impl Fn() -> T + Sync,
+    each: impl Fn(&mut T, &str, &Stored, Role) + Sync,
+    merge: impl FnMut(T),
+) -> Result<(), Error> {
+    let setups = store.setups()?;
+    let stations = store.stations()?;
+    let batches = store.batches()?;
+    let drifting = store.drift_stations()?;
+    let unknown = String::from("?");
+    let ranges = store.key_ranges(u32::try_from(threads * 4).unwrap_or(u32::MAX))?;
+    let path = store.path().to_path_buf();
+    crate::par::run_ordered(
+        &ranges,
+        threads,
+        || Store::open_reader(&path).map_err(Error::from),
+        fresh,
+        |reader, acc, range| {
+            reader
+                .for_each_in(filter, *range, &batches, |s| {
+                    let role = role(s.setup_id.and_then(|id| setups.get(&id)), drifting.contains(&s.station_id));
+                    each(acc, stations.get(&s.station_id).unwrap_or(&unknown), &s, role);
+                })
+                .map_err(Error::from)
+        },
+        merge,
+    )
+}
+
 /// The yield report of a store from its summaries ([`Store::cells`]) and,
 /// for the reject list and log, the rows of its rejects only (a partial
 /// index holds them): what `yield` reads when it does not re-check every

@@ -12,6 +12,9 @@ use std::collections::HashMap;
 use std::fmt::Write as _;
 use std::io::Write;
 use std::path::Path;
+use std::sync::Arc;
+
+use rayon::prelude::*;
 
 use hold_firmware::record::Record;
 use hold_firmware::{Hint, Verdict};
@@ -416,6 +419,9 @@ pub struct Reject {
     pub c_dev_pct: Option<f64>,
     /// Which part the `f64` diagnosis blames, in a few words (with a stored stage).
     pub reads: Option<String>,
+    /// The setup it was judged against (for the diagnosis, made when the report is finished).
+    #[serde(skip)]
+    setup_id: Option<i64>,
 }
 
 /// A verdict the reference does not confirm.
@@ -533,9 +539,10 @@ pub struct Tally {
     station_cell: Vec<usize>,
     cells: Vec<(CellKey, Cell)>,
     cell_index: HashMap<CellKey, usize>,
-    windows: HashMap<i64, Limits>,
+    windows: Arc<HashMap<i64, Limits>>,
     last_window: (Option<i64>, Limits),
-    checkers: HashMap<i64, Checker>,
+    /// The re-check's judges, shared by the tallies [`Tally::fork`] makes.
+    checkers: Arc<HashMap<i64, Checker>>,
     recheck: Option<Recheck>,
     rejects: Vec<Reject>,
     reject_log: RejectLog,
@@ -579,6 +586,17 @@ impl Tally {
             RejectLog::Writer(w) => log::write_header(w).err(),
             _ => None,
         };
+        let mut t = Tally::empty(Arc::new(windows), Arc::new(checkers), recheck.then_some(rc), reject_log);
+        t.reject_error = reject_error;
+        t
+    }
+
+    fn empty(
+        windows: Arc<HashMap<i64, Limits>>,
+        checkers: Arc<HashMap<i64, Checker>>,
+        recheck: Option<Recheck>,
+        reject_log: RejectLog,
+    ) -> Tally {
         Tally {
             stations: Vec::new(),
             index: HashMap::new(),
@@ -591,12 +609,26 @@ impl Tally {
             last_window: (None, Limits::default()),
             windows,
             checkers,
-            recheck: recheck.then_some(rc),
+            recheck,
             rejects: Vec::new(),
             reject_log,
-            reject_error,
+            reject_error: None,
             keep: 50,
         }
+    }
+
+    /// An empty tally over the same setups, sharing this one's windows and
+    /// re-check judges (which take time to build): for one piece of work
+    /// among several, merged back with [`Tally::merge`]. Its rejects are kept
+    /// in memory when this one writes a reject log.
+    #[must_use]
+    pub fn fork(&self) -> Tally {
+        let log =
+            if matches!(self.reject_log, RejectLog::None) { RejectLog::None } else { RejectLog::Buffer(Vec::new()) };
+        let recheck = self.recheck.as_ref().map(|_| Recheck::default());
+        let mut t = Tally::empty(Arc::clone(&self.windows), Arc::clone(&self.checkers), recheck, log);
+        t.keep = self.keep;
+        t
     }
 
     fn station(&mut self, name: &str) -> usize {
@@ -738,7 +770,6 @@ impl Tally {
     /// counts and lists; a report from summaries counts with
     /// [`Tally::add_cell`] and lists the stored rejects with this.
     pub fn add_reject(&mut self, station: &str, batch: &str, measured_ms: i64, r: &Record, setup_id: Option<i64>) {
-        let checker = setup_id.and_then(|id| self.checkers.get(&id));
         if self.rejects.len() < self.keep {
             self.rejects.push(Reject {
                 station: station.to_owned(),
@@ -749,13 +780,9 @@ impl Tally {
                 verdict: r.verdict.name(),
                 hint: r.hint.name(),
                 hold_s: r.hold_ticks.map(|h| h as f64 / f64::from(r.clock_hz.max(1))),
-                c_dev_pct: r
-                    .c_deviation_ppm
-                    .map(|d| f64::from(d) / 1e4)
-                    // Computed for rejects only: the inverse is not free.
-                    .or_else(|| checker.zip(r.hold_ticks).and_then(|(c, h)| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4)),
-                // Computed for the kept rejects only: a diagnosis is a few thousand evaluations.
-                reads: checker.and_then(|c| c.reads(r)),
+                c_dev_pct: r.c_deviation_ppm.map(|d| f64::from(d) / 1e4),
+                reads: None,
+                setup_id,
             });
         }
         if self.reject_error.is_none() {
@@ -892,6 +919,17 @@ impl Tally {
             })
             .collect();
         let rejects_total = all.total - all.passed();
+        // Only for the rejects the report keeps (each piece of parallel work kept its
+        // own first ones): the inverse and a diagnosis are a few thousand evaluations.
+        let checkers = &self.checkers;
+        self.rejects.par_iter_mut().for_each(|j| {
+            if let Some(c) = j.setup_id.and_then(|id| checkers.get(&id)) {
+                if j.c_dev_pct.is_none() {
+                    j.c_dev_pct = j.record.hold_ticks.and_then(|h| c.implied_c_ppm(h)).map(|ppm| ppm / 1e4);
+                }
+                j.reads = c.reads(&j.record);
+            }
+        });
         Ok(YieldReport {
             stations: out_stations,
             all,

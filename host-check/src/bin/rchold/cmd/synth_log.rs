@@ -72,7 +72,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
                     synth::write_log(&tmp, a.records, stations, a.seed)?;
                     w.abandon();
                     let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
-                    let r = host_check::data::archive::export_logs(std::slice::from_ref(&tmp), Some(&setup), dir, threads);
+                    let r =
+                        host_check::data::archive::export_logs(std::slice::from_ref(&tmp), Some(&setup), dir, threads);
                     let _ = std::fs::remove_file(&tmp);
                     (dir.clone(), r?)
                 }

@@ -9,7 +9,7 @@ use std::process::ExitCode;
 use host_check::data::log;
 use host_check::data::store::{Filter, Store};
 use host_check::report::archive::yield_from_parquet;
-use host_check::report::files::{each_record, yield_from_summaries, ReportDir};
+use host_check::report::files::{each_record_split, yield_from_summaries, ReportDir};
 use host_check::report::yields::{self, Tally, YieldReport};
 use host_check::Error;
 
@@ -61,13 +61,23 @@ fn from_store(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldR
     // A --stage given here replaces the stored setups (id 0 for all records).
     let setups = if override_id.is_some() { given } else { store.setups()? };
     let mut tally = Tally::new(&setups, !a.skip_recheck, reject_log);
+    // A Mutex only to share it: forking takes no time.
+    let proto = std::sync::Mutex::new(tally.fork());
     // Without --station, records measured against a field setup are aging's only.
     let all = a.select.station.is_some();
-    each_record(&store, filter, |station, s, role| {
-        if all || role.yields {
-            tally.add(station, &s.batch, s.measured_ms, &s.record, override_id.or(s.setup_id));
-        }
-    })?;
+    let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
+    each_record_split(
+        &store,
+        filter,
+        threads,
+        || proto.lock().unwrap_or_else(std::sync::PoisonError::into_inner).fork(),
+        |t, station, s, role| {
+            if all || role.yields {
+                t.add(station, &s.batch, s.measured_ms, &s.record, override_id.or(s.setup_id));
+            }
+        },
+        |t| tally.merge(t),
+    )?;
     tally.finish().map_err(|e| Error::io("rejects.csv", e))
 }
 
