@@ -1620,7 +1620,7 @@ pub(crate) mod tests {
     enum Step {
         /// A log ingested in one transaction.
         Ingest(Vec<(u8, u8, Record, u8, i64)>),
-        /// A stream committed in several batches.
+        /// A stream of frames through `listen`.
         Listen(Vec<(u8, u8, Record, u8, i64)>),
         /// An ingest killed before its commit (the transaction rolls back).
         Killed(Vec<(u8, u8, Record, u8, i64)>),
@@ -1692,12 +1692,21 @@ pub(crate) mod tests {
                             b.commit(src, 0, 0)?;
                         }
                         Step::Listen(recs) => {
-                            let src = s.begin_stream("stream", 0)?;
-                            for part in recs.chunks(7) {
-                                let mut b = s.batch()?;
-                                put(&mut b, part, &setups, src)?;
-                                b.commit(src, 0, 0)?;
-                            }
+                            // Framed as the firmware sends them, through `listen` itself.
+                            use crate::data::collect::{listen, Labels, TimeRule};
+                            let (st, setup) = recs.first().map_or((0, 0), |r| (r.0, r.3));
+                            let bytes: Vec<u8> = recs
+                                .iter()
+                                .flat_map(|r| hold_firmware::record::encode(&r.2).map(|f| f.to_vec()).unwrap_or_default())
+                                .collect();
+                            let labels = Labels {
+                                station: format!("st-{st}"),
+                                batch: format!("b{i}"),
+                                setup_id: setups.get(usize::from(setup)).copied().flatten(),
+                                time: TimeRule::Sequence { start_ms: 1_750_000_000_000, period_ms: 28_800_000 },
+                            };
+                            listen(&mut s, "stream", &bytes[..], &labels, |_| {}, || false)
+                                .map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
                         }
                         Step::Killed(recs) => {
                             let mut b = s.batch()?;
