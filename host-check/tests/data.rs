@@ -166,7 +166,11 @@ fn listen_from_a_file_then_report() {
         ],
     );
     assert!(out.status.success(), "{}", text(&out.stderr));
-    assert!(text(&out.stdout).contains("300 records stored, 0 already stored, 1 bad frames"), "{}", text(&out.stdout));
+    assert!(
+        text(&out.stdout).contains("300 records stored, 0 already stored, 0 refused, 1 bad frames"),
+        "{}",
+        text(&out.stdout)
+    );
     let src = rchold(dir.path(), &["sources"]);
     assert!(text(&src.stdout).contains("300 measurements"), "{}", text(&src.stdout));
     // Aging: the deviation is computed from hold, temperature and the stored stage file.

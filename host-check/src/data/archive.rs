@@ -754,6 +754,10 @@ pub fn read_part(
                 drift: codes::drift_of(code(&drift, "drift", codes::DRIFTS.len())?).unwrap_or(DriftState::Settling),
                 c_deviation_ppm: small(&cdev, i),
             };
+            crate::data::validate::record(&record).map_err(|e| {
+                // The log's temperature column is in °C; the dataset's in m°C.
+                bad(if e.field == "temp_c" { "temp_mdeg_c" } else { e.field }, e.message)
+            })?;
             let setup_id = small(&setup, i).map(i64::from).filter(|&s| s != 0);
             let batch = batch.as_ref().map_or("", |a| if a.is_valid(i) { a.value(i) } else { "" });
             each(&ReadRecord { batch, measured_ms, record, setup_id });
@@ -865,6 +869,11 @@ mod tests {
                 r.verdict = Verdict::Short;
                 r.hint = Hint::WrongPart;
                 r.drift = DriftState::Drifting;
+            }
+            if r.hold_ticks.is_none() {
+                // A record without a hold is one the firmware gave before any hold.
+                r.verdict = Verdict::StuckActive;
+                r.hint = Hint::OpenResistorOrShortedNode;
             }
             let ms = 1_790_000_000_000 + i64::from(i) * 3_600_000;
             b.insert(st, &format!("B{}", i / 100), ms, &r, ids.get(i as usize % 3).copied().flatten(), src)?;

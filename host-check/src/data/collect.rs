@@ -107,7 +107,7 @@ pub struct Progress {
 }
 
 /// A finished stream.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Listened {
     /// Source id in the store.
     pub source_id: i64,
@@ -117,6 +117,8 @@ pub struct Listened {
     pub stored: u64,
     /// Records already stored.
     pub duplicates: u64,
+    /// Records refused by the record check ([`crate::data::validate`]), by the field at fault.
+    pub refused: std::collections::BTreeMap<&'static str, u64>,
 }
 
 /// Whether an I/O error is a read timeout (a quiet serial line), not a failure.
@@ -144,6 +146,7 @@ pub fn listen<R: Read>(
     let mut reader = FrameReader::new(input);
     let mut committed = Counts::default();
     let (mut stored, mut duplicates) = (0u64, 0u64);
+    let mut refused = std::collections::BTreeMap::new();
     let mut last = None;
     let mut failure = None;
     let mut ended = false;
@@ -155,19 +158,25 @@ pub fn listen<R: Read>(
         loop {
             match reader.next_record() {
                 Ok(Some(r)) => {
-                    let at = match labels.time {
-                        TimeRule::Arrival => time::now_ms(),
-                        TimeRule::Sequence { start_ms, period_ms } => {
-                            start_ms.saturating_add(i64::from(r.seq).saturating_mul(period_ms))
-                        }
-                    };
-                    if batch.insert(station, &labels.batch, at, &r, labels.setup_id, source_id)? {
-                        stored += 1;
-                    } else {
-                        duplicates += 1;
-                    }
-                    last = Some(r);
                     n += 1;
+                    // A frame can be whole and its record still impossible: refused, counted, not stored.
+                    if let Err(e) = crate::data::validate::record(&r) {
+                        *refused.entry(e.field).or_insert(0u64) += 1;
+                        batch.refuse();
+                    } else {
+                        let at = match labels.time {
+                            TimeRule::Arrival => time::now_ms(),
+                            TimeRule::Sequence { start_ms, period_ms } => {
+                                start_ms.saturating_add(i64::from(r.seq).saturating_mul(period_ms))
+                            }
+                        };
+                        if batch.insert(station, &labels.batch, at, &r, labels.setup_id, source_id)? {
+                            stored += 1;
+                        } else {
+                            duplicates += 1;
+                        }
+                        last = Some(r);
+                    }
                 }
                 Ok(None) => {
                     ended = true;
@@ -199,7 +208,7 @@ pub fn listen<R: Read>(
     if let Some(f) = failure {
         return Err(f);
     }
-    Ok(Listened { source_id, counts: reader.counts(), stored, duplicates })
+    Ok(Listened { source_id, counts: reader.counts(), stored, duplicates, refused })
 }
 
 /// The outcome of ingesting one log file.
@@ -397,8 +406,8 @@ mod tests {
         Labels { station: "bench".into(), batch: String::new(), setup_id: None, time: TimeRule::Arrival }
     }
 
-    fn frame(seq: u32) -> Vec<u8> {
-        let r = Record {
+    fn good(seq: u32) -> Record {
+        Record {
             seq,
             unit_id: 1,
             press_ticks: 10,
@@ -410,8 +419,11 @@ mod tests {
             hint: Hint::None,
             drift: DriftState::Settling,
             c_deviation_ppm: None,
-        };
-        hold_firmware::record::encode(&r).map(|f| f.to_vec()).unwrap_or_default()
+        }
+    }
+
+    fn frame(seq: u32) -> Vec<u8> {
+        hold_firmware::record::encode(&good(seq)).map(|f| f.to_vec()).unwrap_or_default()
     }
 
     #[test]
@@ -423,6 +435,46 @@ mod tests {
         assert_eq!((l.stored, l.duplicates, l.counts.bad_frames), (2, 1, 0));
         assert_eq!(store.count()?, 2);
         assert_eq!(source_name(None, Some("/dev/ttyUSB0")), "serial /dev/ttyUSB0");
+        Ok(())
+    }
+
+    /// Frames whose CRC is good but whose record is impossible (a clock of 0,
+    /// 1 or 4294967295 Hz, −273.15 °C, −2,000,000 ppm, a within-window or short
+    /// verdict without a hold, ticks of u64::MAX) were once stored and made the
+    /// yield report a mean hold of 493 ks and Cpk −0.38: they are refused,
+    /// counted by field, and nothing of them is stored.
+    #[test]
+    fn impossible_records_in_whole_frames_are_refused_and_counted() -> Result<(), CollectError> {
+        let dir = tempfile::tempdir().map_err(|e| CollectError::Io { what: "tempdir".into(), error: e })?;
+        let mut store = Store::open(&dir.path().join("s.db"))?;
+        let base = good(0);
+        let bad: Vec<Record> = vec![
+            Record { clock_hz: 0, ..base },
+            Record { clock_hz: 1, ..base },
+            Record { clock_hz: u32::MAX, ..base },
+            Record { temp_mdeg_c: Some(-2_147_483_000), ..base },
+            Record { temp_mdeg_c: Some(-273_150), ..base },
+            Record { c_deviation_ppm: Some(-2_000_000), ..base },
+            Record { hold_ticks: None, ..base },
+            Record { verdict: Verdict::Short, hint: Hint::WrongPart, hold_ticks: None, ..base },
+            Record { hold_ticks: Some(u64::MAX), ..base },
+            Record { press_ticks: u64::MAX, ..base },
+        ];
+        let mut bytes = Vec::new();
+        for (i, r) in bad.iter().enumerate() {
+            let r = Record { seq: 100 + i as u32, ..*r };
+            bytes.extend(hold_firmware::record::encode(&r).map(|f| f.to_vec()).unwrap_or_default());
+        }
+        bytes.extend(frame(7));
+        let l = listen(&mut store, "t", io::Cursor::new(bytes), &labels(), |_| {}, || false)?;
+        assert_eq!((l.stored, l.counts.bad_frames), (1, 0), "only the good frame is stored");
+        let by_field: Vec<(&str, u64)> = l.refused.iter().map(|(f, n)| (*f, *n)).collect();
+        assert_eq!(
+            by_field,
+            vec![("c_dev_ppm", 1), ("clock_hz", 3), ("hold_ticks", 3), ("press_ticks", 1), ("temp_c", 2)]
+        );
+        assert_eq!(store.count()?, 1);
+        assert_eq!(store.sources()?.first().map(|s| s.refused), Some(10));
         Ok(())
     }
 }

@@ -291,13 +291,7 @@ pub fn parse_fields_cached<'a>(
             .filter(|&v| v >= -1_000_000)
             .ok_or_else(|| ("c_dev_ppm", format!("{} is not a whole number in range (accepted: {range})", text(b))))
     })?;
-    if hold_ticks.is_none() && verdict.needs_hold() {
-        return Err((
-            "hold_ticks",
-            format!("is empty but verdict is {} (accepted: a hold for within-window, short, long, fast-start and slow-start)", verdict.name()),
-        ));
-    }
-    Ok(Line {
+    let line = Line {
         measured_ms,
         station,
         batch,
@@ -316,7 +310,12 @@ pub fn parse_fields_cached<'a>(
         },
         verdict_empty,
         hint_empty,
-    })
+    };
+    // A line that leaves its verdict or hint to rchold is checked once they are judged.
+    if !line.unjudged() {
+        crate::data::validate::record(&line.record).map_err(|e| (e.field, e.message))?;
+    }
+    Ok(line)
 }
 
 /// Splits a line without quotes at its commas, eight bytes at a time: a byte

@@ -11,3 +11,4 @@ pub mod mapping;
 pub mod store;
 pub mod summary;
 pub mod time;
+pub mod validate;

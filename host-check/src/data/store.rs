@@ -46,11 +46,11 @@ use crate::report::aging;
 use crate::stage::file::StageFile;
 
 /// The schema version this build writes.
-pub const SCHEMA_VERSION: u32 = 4;
+pub const SCHEMA_VERSION: u32 = 5;
 
 /// Migrations: entry `i` moves a database from version `i` to `i + 1`
 /// (3 → 4 is followed by the summaries' recount, [`Store::migrate_to`]).
-const MIGRATIONS: [&str; 4] = [
+const MIGRATIONS: [&str; 5] = [
     // 0 → 1: the tables.
     "CREATE TABLE setup (
         id INTEGER PRIMARY KEY,
@@ -156,6 +156,8 @@ const MIGRATIONS: [&str; 4] = [
                r.temp_mdeg_c, r.codes % 16 AS verdict, (r.codes / 16) % 16 AS hint, r.codes / 256 AS drift,
                r.c_dev_ppm, nullif(r.setup_id, 0) AS setup_id, r.source_id
         FROM reading r JOIN batch b ON b.id = r.batch_id LEFT JOIN setup s ON s.id = r.setup_id;",
+    // 4 → 5: frames whose record failed the record check, per source.
+    "ALTER TABLE source ADD COLUMN refused INTEGER NOT NULL DEFAULT 0;",
 ];
 
 /// One source of records in the store: a stream `listen` read or a log
@@ -174,6 +176,8 @@ pub struct Source {
     pub duplicates: u64,
     /// Frames that failed their check.
     pub bad_frames: u64,
+    /// Frames whose record failed the record check (`data::validate`), not stored.
+    pub refused: u64,
     /// Bytes read.
     pub bytes: u64,
 }
@@ -594,6 +598,7 @@ impl Store {
             pending: Summaries::default(),
             stored: 0,
             duplicates: 0,
+            refused: 0,
         })
     }
 
@@ -774,7 +779,7 @@ impl Store {
     pub fn sources(&self) -> Result<Vec<Source>, StoreError> {
         let mut st = self
             .conn
-            .prepare("SELECT id, kind, name, records, duplicates, bad_frames, bytes FROM source ORDER BY id")
+            .prepare("SELECT id, kind, name, records, duplicates, bad_frames, bytes, refused FROM source ORDER BY id")
             .map_err(|e| self.err(e))?;
         let rows = st
             .query_map([], |r| {
@@ -787,6 +792,7 @@ impl Store {
                     duplicates: u(4)?,
                     bad_frames: u(5)?,
                     bytes: u(6)?,
+                    refused: u(7)?,
                 })
             })
             .map_err(|e| self.err(e))?;
@@ -1216,6 +1222,7 @@ pub struct Batch<'c> {
     pending: Summaries,
     stored: u64,
     duplicates: u64,
+    refused: u64,
 }
 
 impl std::fmt::Debug for Batch<'_> {
@@ -1297,7 +1304,9 @@ impl Batch<'_> {
         setup_id: Option<i64>,
         source_id: i64,
     ) -> Result<(), StoreError> {
-        let Batch { tx, path, stations, batches, setups, drifting, newly_drifting, pending, stored, duplicates } = self;
+        let Batch {
+            tx, path, stations, batches, setups, drifting, newly_drifting, pending, stored, duplicates, ..
+        } = self;
         let err = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
         let mut st = tx.prepare_cached(INSERT).map_err(err)?;
         let setup = setup_id.unwrap_or(0);
@@ -1322,6 +1331,8 @@ impl Batch<'_> {
                     id
                 }
             };
+            // Every path checks its records before this; nothing unchecked is stored.
+            crate::data::validate::record(r).map_err(|e| se(path, format!("unit {} seq {}: {e}", r.unit_id, r.seq)))?;
             // The clock is stored only where it is not the setup's.
             let clock = if setup_clock == Some(r.clock_hz) { None } else { Some(r.clock_hz) };
             let n = st
@@ -1357,6 +1368,11 @@ impl Batch<'_> {
         Ok(())
     }
 
+    /// Counts a record refused by the record check (written to the source on commit).
+    pub fn refuse(&mut self) {
+        self.refused += 1;
+    }
+
     /// Writes the summaries, adds this batch's counts (and `bad_frames`,
     /// `bytes`) to the source and commits.
     ///
@@ -1377,8 +1393,15 @@ impl Batch<'_> {
         self.tx
             .execute(
                 "UPDATE source SET records = records + ?1, duplicates = duplicates + ?2, \
-                 bad_frames = bad_frames + ?3, bytes = bytes + ?4 WHERE id = ?5",
-                params![u64_sql(self.stored), u64_sql(self.duplicates), u64_sql(bad_frames), u64_sql(bytes), source_id],
+                 bad_frames = bad_frames + ?3, bytes = bytes + ?4, refused = refused + ?6 WHERE id = ?5",
+                params![
+                    u64_sql(self.stored),
+                    u64_sql(self.duplicates),
+                    u64_sql(bad_frames),
+                    u64_sql(bytes),
+                    source_id,
+                    u64_sql(self.refused)
+                ],
             )
             .map_err(e)?;
         let w = Written { source_id, stored: self.stored, duplicates: self.duplicates };
@@ -1642,6 +1665,19 @@ pub(crate) mod tests {
                 r.c_deviation_ppm = dev;
                 if fast {
                     r.clock_hz = 4_000_000;
+                }
+                // Only records the record check accepts (the store refuses the others).
+                if r.verdict.needs_hold() && r.hold_ticks.is_none() {
+                    r.hold_ticks = Some(1_000);
+                }
+                if matches!(r.verdict, Verdict::NoResponse | Verdict::StuckActive | Verdict::NotIdle) {
+                    r.hold_ticks = None;
+                }
+                if matches!(r.verdict, Verdict::NoResponse | Verdict::NotIdle) {
+                    r.on_ticks = None;
+                }
+                if r.verdict.passes() {
+                    r.hint = Hint::None;
                 }
                 (st, b, r, setup, 1_750_000_000_000 + ms)
             })

@@ -63,10 +63,20 @@ pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldChar
     if !sources.is_empty() {
         o.push_str(
             "<h2>Sources</h2><table><tr><th>id</th><th class=l>kind</th><th>stored</th><th>repeated</th>\
-             <th>bad frames</th><th>bytes</th><th class=l>name</th></tr>",
+             <th>refused</th><th>bad frames</th><th>bytes</th><th class=l>name</th></tr>",
         );
         for x in sources {
-            row(&mut o, &[r(x.id), l(&x.kind), r(x.records), r(x.duplicates), r(x.bad_frames), r(x.bytes), l(&x.name)]);
+            let cells = [
+                r(x.id),
+                l(&x.kind),
+                r(x.records),
+                r(x.duplicates),
+                r(x.refused),
+                r(x.bad_frames),
+                r(x.bytes),
+                l(&x.name),
+            ];
+            row(&mut o, &cells);
         }
         o.push_str("</table>");
     }
@@ -202,6 +212,7 @@ mod tests {
             records: 1,
             duplicates: 0,
             bad_frames: 0,
+            refused: 0,
             bytes: 9,
         };
         let p = page(&y, &f, &[src], &YieldCharts::default(), &AgingCharts::default());

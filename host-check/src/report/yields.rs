@@ -233,7 +233,7 @@ impl HoldJudge {
         }
         line.verdict_empty = false;
         line.hint_empty = false;
-        Ok(())
+        crate::data::validate::record(&line.record).map_err(|e| e.to_string())
     }
 }
 

@@ -107,8 +107,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let result = collect::listen(&mut store, &source, reader, &labels, show, || STOP.load(Ordering::SeqCst));
     status.finish_and_clear();
     let l = result?;
+    let refused: u64 = l.refused.values().sum();
+    let why = if refused == 0 {
+        String::new()
+    } else {
+        let parts: Vec<String> = l.refused.iter().map(|(f, n)| format!("{f} {n}")).collect();
+        format!(" (out of range or inconsistent: {})", parts.join(", "))
+    };
     emit(&format!(
-        "{source}: {} records stored, {} already stored, {} bad frames, {} bytes (source {} in {})\n",
+        "{source}: {} records stored, {} already stored, {refused} refused{why}, {} bad frames, {} bytes (source {} in {})\n",
         l.stored,
         l.duplicates,
         l.counts.bad_frames,

@@ -20,7 +20,7 @@ pub struct Args {
 pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let store = Store::open_existing(&a.db)?;
     let mut o = format!(
-        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>11}  name\n",
+        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>11}  name\n",
         a.db.display(),
         store.schema_version()?,
         store.count()?,
@@ -28,14 +28,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         "kind",
         "stored",
         "repeated",
+        "refused",
         "bad",
         "bytes"
     );
     for s in store.sources()? {
         let _ = writeln!(
             o,
-            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>11}  {}",
-            s.id, s.kind, s.records, s.duplicates, s.bad_frames, s.bytes, s.name
+            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>11}  {}",
+            s.id, s.kind, s.records, s.duplicates, s.refused, s.bad_frames, s.bytes, s.name
         );
     }
     emit(&o)?;
