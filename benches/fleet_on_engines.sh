@@ -14,8 +14,14 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 UNITS="${1:-1000000}"
 DAYS="${2:-100}"
-cargo build -q --release -p host-check --bin rchold
-R="$PWD/target/release/rchold"
+# RCHOLD_PROFILE=dev uses the workspace's dev build (optimised too; CI has built it already).
+if [ "${RCHOLD_PROFILE:-release}" = dev ]; then
+    cargo build -q -p host-check --bin rchold
+    R="$PWD/target/debug/rchold"
+else
+    cargo build -q --release -p host-check --bin rchold
+    R="$PWD/target/release/rchold"
+fi
 B="$PWD/benches"
 TMP="$(mktemp -d)"
 trap 'rm -rf "$TMP"' EXIT

@@ -31,7 +31,7 @@ step "tests"
 cargo test --workspace
 
 step "the shipped SQL on Spark and DataFusion agrees with rchold (a synthetic fleet of 10^6 records)"
-bash benches/fleet_on_engines.sh 10000 100
+RCHOLD_PROFILE=dev bash benches/fleet_on_engines.sh 10000 100
 
 step "cross builds of the no_std crates"
 cargo build -q -p rc-model --release --target thumbv6m-none-eabi

@@ -379,3 +379,28 @@ zone = "+01:00"
     let err = text(&out.stderr);
     assert!(err.contains("no column \"Batch\"") && err.lines().count() == 1, "{err}");
 }
+
+/// Inputs without bounds once filled memory: `eval /dev/zero` grew past 8 GB,
+/// a log line of hundreds of megabytes was read whole. Each is now a one-line
+/// refusal naming the file (and line) and what is accepted, exit code 2.
+#[test]
+fn unbounded_inputs_are_refused_in_one_line() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let out = rchold(dir.path(), &["eval", "/dev/zero"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = text(&out.stderr);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(err.contains("/dev/zero") && err.contains("not a regular file") && err.contains("1024 KiB"), "{err}");
+    // A log whose second data line never ends.
+    synth(dir.path(), "a.csv", 3, 1);
+    let mut log = std::fs::read(dir.path().join("a.csv")).unwrap_or_default();
+    log.extend(std::iter::repeat_n(b'x', 200_000));
+    std::fs::write(dir.path().join("long.csv"), &log).unwrap_or_else(|e| panic!("{e}"));
+    for args in [&["ingest", "long.csv"][..], &["yield", "--csv", "long.csv"][..]] {
+        let out = rchold(dir.path(), args);
+        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        let err = text(&out.stderr);
+        assert_eq!(err.lines().count(), 1, "{err}");
+        assert!(err.contains("long.csv:5") && err.contains("at most 64 KiB"), "{args:?}: {err}");
+    }
+}

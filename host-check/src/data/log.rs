@@ -487,12 +487,24 @@ pub fn read<R: Read>(
             Err((i, field, m)) => return Err(at(line_no + i + 1, field, m)),
         }
         buf.drain(..usable);
+        // What is left is the start of one line: bounded, so a file without line
+        // breaks cannot fill memory.
+        if !eof && buf.len() > MAX_LINE_BYTES {
+            return Err(at(
+                line_no + 1,
+                None,
+                format!("is longer than {MAX_LINE_BYTES} bytes (accepted: lines of at most 64 KiB)"),
+            ));
+        }
     }
     if !header_done {
         return Err(at(1, None, format!("empty file: an rchold log starts with {HEADER:?}")));
     }
     Ok(n)
 }
+
+/// The longest line a log may have, bytes.
+pub const MAX_LINE_BYTES: usize = 64 << 10;
 
 /// A problem reading part of a log.
 #[derive(Debug)]
@@ -523,10 +535,6 @@ pub fn read_range(
     let mut filled = 0usize;
     let mut n = 0u64;
     loop {
-        if filled == buf.len() {
-            // One line longer than the buffer: grow (a valid line is far shorter; the parser will say why).
-            buf.resize(buf.len() * 2, 0);
-        }
         let got = loop {
             match input.read(buf.get_mut(filled..).unwrap_or(&mut [])) {
                 Ok(g) => break g,
@@ -546,6 +554,10 @@ pub fn read_range(
         filled -= usable;
         if eof {
             return Ok(n);
+        }
+        if filled > MAX_LINE_BYTES {
+            let m = format!("is longer than {MAX_LINE_BYTES} bytes (accepted: lines of at most 64 KiB)");
+            return Err(RangeError::Line(n, None, m));
         }
     }
 }

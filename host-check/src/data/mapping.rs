@@ -124,7 +124,8 @@ impl Mapping {
     /// [`Error::Input`] naming the file, the key and what is accepted.
     pub fn load(path: &Path) -> Result<Mapping, Error> {
         let bad = |key: &str, why: String| Error::Input(format!("{}: {key}: {why}", path.display()));
-        let text = std::fs::read_to_string(path).map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
+        let text = crate::input::read_text(path, crate::input::MAX_TEXT_BYTES)
+            .map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
         let raw: RawMapping = toml::from_str(&text).map_err(|e| {
             Error::Input(format!("{}: {}", path.display(), e.message().lines().next().unwrap_or("invalid TOML")))
         })?;

@@ -354,11 +354,11 @@ fn quantity_text(q: Quantity, s: &Stage) -> Option<String> {
 /// [`StageFileError`] for unreadable files, TOML syntax, unknown or missing
 /// keys, unreadable values and values outside the model's domain.
 pub fn load(path: &Path) -> Result<StageFile, StageFileError> {
-    let text = std::fs::read_to_string(path).map_err(|e| StageFileError {
+    let text = crate::input::read_text(path, crate::input::MAX_TEXT_BYTES).map_err(|message| StageFileError {
         file: path.to_path_buf(),
         line: None,
         key: None,
-        message: format!("cannot read the file: {e}"),
+        message,
     })?;
     parse(path, &text)
 }

@@ -155,7 +155,8 @@ impl SetupArgs {
     /// The setup to store, when `--stage` was given.
     pub fn setup(&self) -> Result<Option<Setup>, Error> {
         let Some(path) = &self.stage else { return Ok(None) };
-        let text = std::fs::read_to_string(path).map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
+        let text = host_check::input::read_text(path, host_check::input::MAX_TEXT_BYTES)
+            .map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
         let sf = stagefile::parse(path, &text)?;
         let purpose = if self.field { Purpose::Field } else { Purpose::Fixture };
         let (setup, guard_ppm, poll_ns) = tester(&sf, purpose, &self.clock, &self.guard, self.poll.as_deref())?;
