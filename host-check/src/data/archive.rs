@@ -581,6 +581,7 @@ pub fn part_files(dir: &Path) -> Result<Vec<PartFile>, Error> {
     let mut out = Vec::new();
     for s in list(&root)? {
         let station = value(&s, "station")?;
+        crate::data::validate::name(&station, 1).map_err(|m| Error::Input(format!("{}: station {m}", s.display())))?;
         for d in list(&s)? {
             let date = value(&d, "day")?;
             let day = time::parse_date_or_time(&date)

@@ -203,12 +203,7 @@ fn label<'a>(field: &'static str, b: &'a [u8], min: usize) -> FieldResult<&'a st
         }
     }
     let s = std::str::from_utf8(b).map_err(|_| (field, format!("{} is not UTF-8 text", text(b))))?;
-    if s.len() < min || s.len() > 64 {
-        return Err((field, format!("{} has {} bytes (accepted: {min} … 64 bytes)", text(b), s.len())));
-    }
-    if s.chars().any(char::is_control) {
-        return Err((field, format!("{} holds a control character (accepted: text without them)", text(b))));
-    }
+    crate::data::validate::name(s, min).map_err(|m| (field, format!("{} {m}", text(b))))?;
     Ok(s)
 }
 

@@ -226,12 +226,13 @@ impl Mapping {
                 .time_ms(cell(Some(at)))
                 .ok_or_else(|| bad("measured_at", cell(Some(at)), "the mapping's time format, years 1970 … 9999"))?;
             let name = cell(Some(station));
-            if name.is_empty() || name.len() > 64 || name.chars().any(char::is_control) {
-                return Err(bad("station", name, "1 … 64 bytes, no control characters"));
+            let names = "64 bytes, no control, direction or invisible characters";
+            if crate::data::validate::name(name, 1).is_err() {
+                return Err(bad("station", name, &format!("1 … {names}")));
             }
             let lot = cell(batch);
-            if lot.len() > 64 || lot.chars().any(char::is_control) {
-                return Err(bad("batch", lot, "0 … 64 bytes, no control characters"));
+            if crate::data::validate::name(lot, 0).is_err() {
+                return Err(bad("batch", lot, &format!("0 … {names}")));
             }
             let unit_id: u32 =
                 cell(Some(unit)).trim().parse().map_err(|_| bad("unit", cell(Some(unit)), "0 … 4294967295"))?;

@@ -31,6 +31,37 @@ impl std::fmt::Display for Refusal {
 
 impl std::error::Error for Refusal {}
 
+/// Whether a character may stand in a station or batch name: not a control
+/// character, and not one that reorders or hides text on a terminal or in a
+/// spreadsheet (the bidirectional embeddings, overrides and isolates
+/// U+202A…U+202E and U+2066…U+2069, the marks U+200E, U+200F and U+061C, and
+/// the zero-width U+200B…U+200D, U+2060 and U+FEFF).
+#[must_use]
+pub fn name_char(c: char) -> bool {
+    !(c.is_control()
+        || matches!(c, '\u{202A}'..='\u{202E}' | '\u{2066}'..='\u{2069}' | '\u{200B}'..='\u{200F}')
+        || matches!(c, '\u{061C}' | '\u{2060}' | '\u{FEFF}'))
+}
+
+/// Checks a station or batch name: `min` … 64 bytes of text whose every
+/// character passes [`name_char`]. The one rule for log lines, mapped logs
+/// and `listen`'s labels.
+///
+/// # Errors
+/// What is wrong, with what is accepted.
+pub fn name(text: &str, min: usize) -> Result<(), String> {
+    if text.len() < min || text.len() > 64 {
+        return Err(format!("has {} bytes (accepted: {min} … 64 bytes)", text.len()));
+    }
+    if let Some(c) = text.chars().find(|&c| !name_char(c)) {
+        return Err(format!(
+            "holds U+{:04X}, a control, direction or invisible character (accepted: text without them)",
+            u32::from(c)
+        ));
+    }
+    Ok(())
+}
+
 fn refuse(field: &'static str, message: String) -> Result<(), Refusal> {
     Err(Refusal { field, message })
 }
@@ -105,6 +136,16 @@ pub fn record(r: &Record) -> Result<(), Refusal> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn names_without_hidden_or_reordering_characters() {
+        assert_eq!(name("bay-A 2", 1), Ok(()));
+        assert_eq!(name("Ünïcode ok", 1), Ok(()));
+        for bad in ["a\u{202E}b", "a\u{200B}b", "\u{FEFF}a", "a\u{2066}b", "a\x1b[31mb", "a\u{200F}"] {
+            assert!(name(bad, 1).is_err_and(|m| m.contains("direction or invisible")), "{bad:?}");
+        }
+        assert!(name("", 1).is_err() && name("", 0).is_ok() && name(&"x".repeat(65), 0).is_err());
+    }
     use crate::data::store::tests::record as good;
     use hold_firmware::drift::DriftState;
 

@@ -95,8 +95,9 @@ pub fn period_ms(opt: &str, text: &str) -> Result<i64, Error> {
 
 /// A station or batch name: `min ..= 64` bytes, no control characters.
 pub fn name<'a>(opt: &str, text: &'a str, min: usize) -> Result<&'a str, Error> {
-    if text.len() < min || text.len() > 64 || text.chars().any(char::is_control) {
-        return Err(bad(opt, text, "not a name", &format!("{min} … 64 bytes, no control characters")));
+    if host_check::data::validate::name(text, min).is_err() {
+        let accepted = format!("{min} … 64 bytes, no control, direction or invisible characters");
+        return Err(bad(opt, text, "not a name", &accepted));
     }
     Ok(text)
 }
