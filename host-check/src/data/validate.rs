@@ -44,7 +44,8 @@ pub fn name_char(c: char) -> bool {
 }
 
 /// Checks a station or batch name: `min` … 64 bytes of text whose every
-/// character passes [`name_char`]. The one rule for log lines, mapped logs
+/// character passes [`name_char`] (the formatting characters are those
+/// Unicode's bidirectional algorithm, UAX #9, and its format category list). The one rule for log lines, mapped logs
 /// and `listen`'s labels.
 ///
 /// # Errors

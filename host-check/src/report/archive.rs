@@ -18,6 +18,10 @@ use crate::report::yields::{Tally, YieldReport};
 use crate::stage::file::StageFile;
 use crate::Error;
 
+/// The columns every report reads: which record, when, in which batch,
+/// against which setup, on which clock.
+const KEY_COLUMNS: [&str; 6] = ["unit_id", "seq", "measured_ms", "batch", "setup_id", "clock_hz"];
+
 /// The dataset's files that `filter`'s station and days can hold.
 fn selected(dir: &Path, filter: &Filter) -> Result<Vec<PartFile>, Error> {
     let mut parts = archive::part_files(dir)?;
@@ -59,19 +63,8 @@ pub fn yield_from_parquet(
     };
     let parts = selected(dir, filter)?;
     let jobs = archive::jobs(&parts)?;
-    let mut wanted = vec![
-        "unit_id",
-        "seq",
-        "measured_ms",
-        "batch",
-        "setup_id",
-        "clock_hz",
-        "on_ticks",
-        "hold_ticks",
-        "c_dev_ppm",
-        "verdict",
-        "hint",
-    ];
+    let mut wanted = KEY_COLUMNS.to_vec();
+    wanted.extend(["on_ticks", "hold_ticks", "c_dev_ppm", "verdict", "hint"]);
     if reject_log.is_some() {
         // The reject log repeats whole records.
         wanted.extend(["press_ticks", "temp_mdeg_c", "drift"]);
@@ -128,18 +121,8 @@ pub fn aging_from_parquet(
     let stages: HashMap<i64, Option<StageFile>> = setups.iter().map(|(&id, s)| (id, aging::setup_stage(s))).collect();
     let parts = selected(dir, filter)?;
     let jobs = archive::jobs(&parts)?;
-    let wanted = [
-        "unit_id",
-        "seq",
-        "measured_ms",
-        "batch",
-        "setup_id",
-        "clock_hz",
-        "hold_ticks",
-        "temp_mdeg_c",
-        "c_dev_ppm",
-        "drift",
-    ];
+    let mut wanted = KEY_COLUMNS.to_vec();
+    wanted.extend(["hold_ticks", "temp_mdeg_c", "c_dev_ppm", "drift"]);
     let accs = archive::run_per_thread(&jobs, threads, AgingAcc::default, |acc, part, rg| {
         let field_of = |id: Option<i64>| id.and_then(|i| setups.get(&i)).is_some_and(Setup::is_field);
         let (mut field, mut other) =
