@@ -12,6 +12,7 @@ bash tests/setup.sh
 step "format"
 cargo fmt --all -- --check
 (cd hold-firmware/emulator && cargo fmt -- --check)
+(cd host-check/fuzz && cargo fmt -- --check)
 
 step "lints"
 cargo clippy --workspace --all-targets --all-features -- -D warnings
@@ -32,6 +33,9 @@ cargo test --workspace
 
 step "the shipped SQL on Spark and DataFusion agrees with rchold (a synthetic fleet of 10^6 records)"
 RCHOLD_PROFILE=dev bash benches/fleet_on_engines.sh 10000 100
+
+step "fuzz smoke: 30 s of each parser's fuzz target (host-check/fuzz; long runs: README, Fuzzing)"
+bash host-check/fuzz/run.sh 30
 
 step "cross builds of the no_std crates"
 cargo build -q -p rc-model --release --target thumbv6m-none-eabi

@@ -39,3 +39,11 @@ if ! command -v java >/dev/null 2>&1; then
 fi
 python3 -c 'import pyspark, datafusion, pyarrow' 2>/dev/null ||
     python3 -m pip install -q --disable-pip-version-check pyspark==4.3.0 datafusion==55.0.0 pyarrow==26.0.1
+
+# The fuzz targets (host-check/fuzz/): cargo-fuzz from crates.io, built with
+# the machine's nightly toolchain (libFuzzer's instrumentation needs it).
+if ! rustup toolchain list | grep -q '^nightly'; then
+    echo "tests/setup.sh: the fuzz smoke needs the nightly toolchain (rustup toolchain install nightly)" >&2
+    exit 1
+fi
+command -v cargo-fuzz >/dev/null 2>&1 || cargo install -q --locked cargo-fuzz --version 0.13.2
