@@ -597,6 +597,40 @@ pub fn part_files(dir: &Path) -> Result<Vec<PartFile>, Error> {
     Ok(out)
 }
 
+/// Opens a Parquet file and checks its footer before anything reads by it:
+/// every column chunk lies inside the file (the `parquet` crate asserts
+/// this, and a damaged footer would end the process instead of naming the
+/// file; found by the `parquet` fuzz target).
+///
+/// # Errors
+/// [`Error::Io`] when the file cannot be opened; [`Error::Input`] naming the
+/// file when its footer is unreadable or points outside it.
+fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>, Error> {
+    let unreadable =
+        |m: &dyn std::fmt::Display| Error::Input(format!("{}: not a readable Parquet file: {m}", path.display()));
+    let f = File::open(path).map_err(|e| Error::io(path, e))?;
+    let len = f.metadata().map_err(|e| Error::io(path, e))?.len();
+    let builder = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&e))?;
+    for (g, rg) in builder.metadata().row_groups().iter().enumerate() {
+        for c in rg.columns() {
+            let start = c.dictionary_page_offset().unwrap_or_else(|| c.data_page_offset());
+            let size = c.compressed_size();
+            let inside = u64::try_from(start)
+                .ok()
+                .zip(u64::try_from(size).ok())
+                .and_then(|(a, b)| a.checked_add(b))
+                .is_some_and(|end| end <= len);
+            if !inside {
+                return Err(unreadable(&format!(
+                    "row group {g}, column {}: a chunk at byte {start} of {size} bytes lies outside the file ({len} bytes)",
+                    c.column_path()
+                )));
+            }
+        }
+    }
+    Ok(builder)
+}
+
 /// The setups of the dataset `dir` (none when it has no setups file).
 ///
 /// # Errors
@@ -607,9 +641,8 @@ pub fn read_setups(dir: &Path) -> Result<HashMap<i64, Setup>, Error> {
         return Ok(HashMap::new());
     }
     let bad = |col: &str, m: &str| Error::Input(format!("{}: column {col}: {m}", path.display()));
-    let f = File::open(&path).map_err(|e| Error::io(&path, e))?;
-    let reader = ParquetRecordBatchReaderBuilder::try_new(f)
-        .and_then(parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder::build)
+    let reader = open_parquet(&path)?
+        .build()
         .map_err(|e| Error::Input(format!("{}: not a readable Parquet file: {e}", path.display())))?;
     let mut out = HashMap::new();
     for b in reader {
@@ -682,8 +715,7 @@ pub fn read_part(
     let bad = |col: &str, m: String| Error::Input(format!("{}: column {col}: {m}", path.display()));
     let unreadable =
         |e: &dyn std::fmt::Display| Error::Input(format!("{}: not a readable Parquet file: {e}", path.display()));
-    let f = File::open(path).map_err(|e| Error::io(path, e))?;
-    let builder = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&e))?;
+    let builder = open_parquet(path)?;
     let schema = builder.schema().clone();
     let mut indices = Vec::new();
     for (name, ty, _) in COLUMNS.iter().filter(|c| wanted.contains(&c.0)) {
@@ -773,10 +805,7 @@ pub fn read_part(
 /// # Errors
 /// [`Error::Input`]: the file's footer cannot be read.
 pub fn row_groups(part: &PartFile) -> Result<usize, Error> {
-    let f = File::open(&part.path).map_err(|e| Error::io(&part.path, e))?;
-    let b = ParquetRecordBatchReaderBuilder::try_new(f)
-        .map_err(|e| Error::Input(format!("{}: not a readable Parquet file: {e}", part.path.display())))?;
-    Ok(b.metadata().num_row_groups())
+    Ok(open_parquet(&part.path)?.metadata().num_row_groups())
 }
 
 /// Every (file, row group) of a dataset, in order: the units of parallel work.
@@ -928,6 +957,21 @@ mod tests {
 
     /// A wrong type, a missing column, a corrupt footer and a row in the
     /// wrong day partition: one line naming the file and the column.
+    #[test]
+    fn a_footer_pointing_outside_the_file_is_named_not_a_crash() -> Result<(), Error> {
+        // Found by the `parquet` fuzz target: a footer with a negative chunk
+        // offset made the parquet crate assert (the process ended).
+        let dir = tempfile::tempdir().map_err(err)?;
+        let path = dir.path().join("part-0.parquet");
+        let found = include_bytes!("../../fuzz/found/parquet/negative-chunk-offset");
+        std::fs::write(&path, found).map_err(err)?;
+        let part = PartFile { path: path.clone(), station: "bay-1".into(), day: 20_089 };
+        let e = read_part(&part, None, &COLUMNS.map(|c| c.0), |_| {}).err().map(|e| e.to_string()).unwrap_or_default();
+        assert!(e.contains(&path.display().to_string()) && e.contains("lies outside the file"), "{e}");
+        assert!(row_groups(&part).is_err());
+        Ok(())
+    }
+
     #[test]
     fn bad_files_are_named_with_their_column() -> Result<(), Error> {
         let dir = tempfile::tempdir().map_err(err)?;

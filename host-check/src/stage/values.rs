@@ -144,6 +144,8 @@ pub fn parse_tolerance(text: &str, unit: &[&str]) -> Result<Tol, ValueError> {
         Tol::Relative(v) | Tol::Absolute(v) if v.is_nan() || v < 0.0 => {
             Err(ValueError { text: text.to_string(), reason: "a tolerance is a size, not negative" })
         }
+        // "1e400%" reads as an infinite fraction: no tolerance at all.
+        Tol::Relative(v) if !v.is_finite() => Err(ValueError { text: text.to_string(), reason: "not a finite number" }),
         _ => Ok(tol),
     }
 }
@@ -160,6 +162,14 @@ pub enum Tol {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn an_infinite_percentage_is_refused() {
+        // Found by the `values` fuzz target: "1e660%" was read as an infinite tolerance.
+        assert!(parse_tolerance("1e660 %", &[]).is_err());
+        assert!(parse_tolerance("inf%", &[]).is_err());
+        assert_eq!(parse_tolerance("1e2%", &[]).ok(), Some(Tol::Relative(1.0)));
+    }
 
     #[test]
     fn a_space_before_the_unit_and_spice_meg() {
