@@ -66,11 +66,45 @@ pub fn xml(s: &str) -> String {
     s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
 }
 
-/// A station or unit name made safe as part of a file name: ASCII letters,
-/// digits and `-` kept, anything else `_`.
+/// A station or unit name as part of a file name: ASCII letters, digits and
+/// `-` kept, every other byte written `_XX` (its hex). One name, one file
+/// name: `a/b`, `a_b` and `a b` give `a_2Fb`, `a_5Fb` and `a_20b`.
 #[must_use]
 pub fn file_safe(name: &str) -> String {
-    name.replace(|c: char| !c.is_ascii_alphanumeric() && c != '-', "_")
+    use std::fmt::Write as _;
+    let mut out = String::with_capacity(name.len());
+    for b in name.bytes() {
+        if b.is_ascii_alphanumeric() || b == b'-' {
+            out.push(char::from(b));
+        } else {
+            let _ = write!(out, "_{b:02X}");
+        }
+    }
+    out
+}
+
+/// Text as it may reach a terminal: every control character but line feed
+/// and tab (escape sequences and carriage returns among them), and the
+/// direction and invisible characters refused in names
+/// ([`crate::data::validate::name_char`]), written `\uXXXX` — the way JSON
+/// writes them, so JSON output keeps its value. Everything `rchold` prints
+/// passes through here.
+#[must_use]
+pub fn terminal(text: &str) -> std::borrow::Cow<'_, str> {
+    use std::fmt::Write as _;
+    let keep = |c: char| c == '\n' || c == '\t' || crate::data::validate::name_char(c);
+    if text.chars().all(keep) {
+        return std::borrow::Cow::Borrowed(text);
+    }
+    let mut out = String::with_capacity(text.len() + 16);
+    for c in text.chars() {
+        if keep(c) {
+            out.push(c);
+        } else {
+            let _ = write!(out, "\\u{:04X}", u32::from(c));
+        }
+    }
+    std::borrow::Cow::Owned(out)
 }
 
 #[cfg(test)]
@@ -89,8 +123,24 @@ mod tests {
     }
 
     #[test]
+    fn terminal_text_shows_escapes_and_hidden_characters_escaped() {
+        assert_eq!(terminal("bay-1\tok\n"), "bay-1\tok\n");
+        assert_eq!(terminal("\u{1b}[2Jred\r"), "\\u001B[2Jred\\u000D");
+        assert_eq!(terminal("abc\u{202E}fed\u{200B}"), "abc\\u202Efed\\u200B");
+        // In JSON the escape reads back as the same character.
+        let json = serde_json::to_string("a\u{202E}b").unwrap_or_default();
+        let back: String = serde_json::from_str(&terminal(&json)).unwrap_or_default();
+        assert_eq!(back, "a\u{202E}b");
+    }
+
+    #[test]
     fn names_made_safe() {
-        assert_eq!(file_safe("bay A/1"), "bay_A_1");
+        assert_eq!(file_safe("bay A/1"), "bay_20A_2F1");
+        // Names that once shared a file name (the last one's charts won).
+        let names = ["a/b", "a_b", "a b", "a-b", "a.b", "aé"];
+        let files: std::collections::BTreeSet<String> = names.iter().map(|n| file_safe(n)).collect();
+        assert_eq!(files.len(), names.len(), "{files:?}");
+        assert!(files.iter().all(|f| f.bytes().all(|b| b.is_ascii_alphanumeric() || b == b'-' || b == b'_')));
         assert_eq!(xml("<a & \"b\">"), "&lt;a &amp; &quot;b&quot;&gt;");
         assert_eq!(corner_text(Corner { high: 0, active: 0 }), "nominal");
     }

@@ -226,7 +226,7 @@ pub fn bar(total: u64, what: &str) -> ProgressBar {
     if let Ok(style) = ProgressStyle::with_template("  {msg} [{bar:30}] {pos}/{len} ({eta} left)") {
         b.set_style(style.progress_chars("=> "));
     }
-    b.set_message(what.to_owned());
+    b.set_message(host_check::fmt::terminal(what).into_owned());
     b
 }
 
@@ -241,9 +241,15 @@ pub fn spinner(quiet: bool) -> ProgressBar {
 /// Writes a report to standard output.
 pub fn emit(text: &str) -> anyhow::Result<()> {
     let mut out = std::io::stdout().lock();
-    out.write_all(text.as_bytes()).context("writing the report")?;
+    // Names and texts from files and stores reach the terminal escaped.
+    out.write_all(host_check::fmt::terminal(text).as_bytes()).context("writing the report")?;
     out.flush().context("writing the report")?;
     Ok(())
+}
+
+/// Writes a line to standard error, escaped as [`emit`] escapes.
+pub fn warn(text: &str) {
+    eprintln!("{}", host_check::fmt::terminal(text));
 }
 
 /// Writes a value as pretty JSON to standard output.

@@ -34,7 +34,7 @@ fn main() -> ExitCode {
         Ok(code) => code,
         Err(e) if args::is_broken_pipe(&e) => ExitCode::SUCCESS,
         Err(e) => {
-            eprintln!("rchold: {e:#}");
+            args::warn(&format!("rchold: {e:#}"));
             ExitCode::from(args::exit_code(&e))
         }
     }

@@ -41,6 +41,6 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
         archive::export_logs(&a.csv, a.setup.setup()?.as_ref(), &a.parquet, threads)?
     };
-    eprintln!("{}: {n} records in {:.2} s", a.parquet.display(), started.elapsed().as_secs_f64());
+    crate::args::warn(&format!("{}: {n} records in {:.2} s", a.parquet.display(), started.elapsed().as_secs_f64()));
     Ok(ExitCode::SUCCESS)
 }

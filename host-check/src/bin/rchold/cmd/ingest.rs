@@ -35,7 +35,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let progress = bar(a.files.len() as u64, "files");
     let mut failed = 0;
     for f in &a.files {
-        progress.set_message(f.display().to_string());
+        progress.set_message(host_check::fmt::terminal(&f.display().to_string()).into_owned());
         let result = match &mapping {
             Some(m) => collect::ingest_mapped(&mut store, f, setup_id, m),
             None => collect::ingest(&mut store, f, setup_id),
@@ -53,7 +53,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             }
             Err(e) => {
                 failed += 1;
-                progress.suspend(|| eprintln!("rchold: {e} (nothing of this file was stored)"));
+                progress.suspend(|| crate::args::warn(&format!("rchold: {e} (nothing of this file was stored)")));
                 String::new()
             }
         };

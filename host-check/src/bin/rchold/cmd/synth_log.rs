@@ -114,6 +114,6 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         }
         (_, None, None) => anyhow::bail!("give --out FILE or --parquet DIR"),
     };
-    eprintln!("{}: {n} synthetic measurements (not real data)", what.display());
+    crate::args::warn(&format!("{}: {n} synthetic measurements (not real data)", what.display()));
     Ok(ExitCode::SUCCESS)
 }
