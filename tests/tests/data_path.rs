@@ -168,7 +168,7 @@ proptest! {
         bytes.truncate(keep);
         let dir = tmp();
         let mut store = Store::open(&dir.path().join("c.db")).map_err(|e| TestCaseError::fail(e.to_string()))?;
-        let got = collect::listen(&mut store, "noisy", Cursor::new(bytes), &labels(), |_| {}, || false)
+        let got = collect::listen(&mut store, "noisy", collect::Input::once(Cursor::new(bytes)), &labels(), |_| {}, || false)
             .map_err(|e| TestCaseError::fail(e.to_string()))?;
         let mut seen = HashSet::new();
         let mut wrong = 0;
@@ -190,10 +190,17 @@ fn a_clean_stream_is_stored_whole_and_once() {
     let mut store = Store::open(&dir.path().join("s.db")).unwrap_or_else(|e| panic!("{e}"));
     let sent: Vec<Record> = (0..10_000).map(rec).collect();
     let bytes: Vec<u8> = sent.iter().flat_map(|r| record::encode(r).map(|f| f.to_vec()).unwrap_or_default()).collect();
-    let a = collect::listen(&mut store, "first", Cursor::new(bytes.clone()), &labels(), |_| {}, || false)
-        .unwrap_or_else(|e| panic!("{e}"));
+    let a = collect::listen(
+        &mut store,
+        "first",
+        collect::Input::once(Cursor::new(bytes.clone())),
+        &labels(),
+        |_| {},
+        || false,
+    )
+    .unwrap_or_else(|e| panic!("{e}"));
     assert_eq!((a.stored, a.counts.bad_frames, a.duplicates), (10_000, 0, 0));
-    let b = collect::listen(&mut store, "again", Cursor::new(bytes), &labels(), |_| {}, || false)
+    let b = collect::listen(&mut store, "again", collect::Input::once(Cursor::new(bytes)), &labels(), |_| {}, || false)
         .unwrap_or_else(|e| panic!("{e}"));
     assert_eq!((b.stored, b.duplicates), (0, 10_000));
     let mut back = Vec::new();
@@ -254,7 +261,8 @@ fn two_writers_lose_nothing() {
     std::thread::scope(|s| {
         let a = s.spawn(|| {
             let mut st = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));
-            collect::listen(&mut st, "stream", Cursor::new(bytes), &labels(), |_| {}, || false).map(|l| l.stored)
+            collect::listen(&mut st, "stream", collect::Input::once(Cursor::new(bytes)), &labels(), |_| {}, || false)
+                .map(|l| l.stored)
         });
         let b = s.spawn(|| {
             let mut st = Store::open(&db).unwrap_or_else(|e| panic!("{e}"));

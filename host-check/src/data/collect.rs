@@ -3,9 +3,11 @@
 //! (measurement logs, see [`crate::data::log`]).
 //!
 //! `listen` commits every [`COMMIT_RECORDS`] records or [`COMMIT_MS`] ms,
-//! whichever comes first, and before it returns for any reason, so a stream
-//! that ends or fails keeps every record received; a killed process loses at
-//! most the uncommitted part of the last interval. `ingest` stores each file
+//! whichever comes first (a timer of its own: records that arrive before a
+//! quiet spell are committed within [`COMMIT_MS`]), and before it returns for
+//! any reason, so a stream that ends, fails or is stopped by a signal keeps
+//! every record received; a killed process loses at most the records of the
+//! last [`COMMIT_MS`]. `ingest` stores each file
 //! in one transaction: all of it or none of it.
 
 use std::fmt;
@@ -20,7 +22,7 @@ use sha2::{Digest as _, Sha256};
 use crate::data::frames::{Counts, FrameReader};
 use crate::data::log::{self, LogError};
 use crate::data::mapping::Mapping;
-use crate::data::store::{hex, Station, Store, StoreError, Written};
+use crate::data::store::{hex, Station, Store, StoreError, UnitSeq, Written};
 use crate::data::time;
 use crate::report::yields::{HoldJudge, NO_JUDGE};
 
@@ -92,11 +94,11 @@ pub struct Labels {
 }
 
 /// Where a stream stands.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Progress {
     /// Frame counts so far.
     pub counts: Counts,
-    /// Records stored so far (committed or pending).
+    /// Records stored so far (committed).
     pub stored: u64,
     /// Records that were already stored.
     pub duplicates: u64,
@@ -104,6 +106,10 @@ pub struct Progress {
     pub last: Option<Record>,
     /// Time since the stream started.
     pub elapsed: Duration,
+    /// The input is lost and being reopened: why, and the next try's wait.
+    pub lost: Option<(String, Duration)>,
+    /// Times the input was reopened after it was lost.
+    pub reopened: u32,
 }
 
 /// A finished stream.
@@ -119,6 +125,12 @@ pub struct Listened {
     pub duplicates: u64,
     /// Records refused by the record check ([`crate::data::validate`]), by the field at fault.
     pub refused: std::collections::BTreeMap<&'static str, u64>,
+    /// Each unit's sequence numbers as the stream delivered them.
+    pub units: std::collections::BTreeMap<u32, UnitSeq>,
+    /// Times the input was reopened after it was lost.
+    pub reopened: u32,
+    /// Whether `stop` ended the stream (a signal), not the input's end.
+    pub stopped: bool,
 }
 
 /// Whether an I/O error is a read timeout (a quiet serial line), not a failure.
@@ -126,89 +138,259 @@ fn quiet(e: &io::Error) -> bool {
     matches!(e.kind(), io::ErrorKind::TimedOut | io::ErrorKind::WouldBlock)
 }
 
-/// Reads framed records from `input` until it ends (or `stop` returns true,
-/// checked after each commit and whenever the input times out) and stores them under `labels`; `status` is called
-/// after every commit.
+/// A byte stream that `listen` reads, on a thread of its own.
+pub type Stream = Box<dyn Read + Send>;
+
+/// Opens the input again after it was lost.
+pub type Opener = Box<dyn FnMut() -> io::Result<Stream> + Send>;
+
+/// What `listen` reads: the opened stream and, for an input that can vanish
+/// and come back (a USB serial port), how to reopen it.
+pub struct Input {
+    /// The stream, opened.
+    pub stream: Stream,
+    /// How to reopen it, and the waits between tries.
+    pub reopen: Option<(Opener, Backoff)>,
+}
+
+impl fmt::Debug for Input {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Input").field("reopen", &self.reopen.as_ref().map(|r| r.1)).finish_non_exhaustive()
+    }
+}
+
+impl Input {
+    /// A stream read once to its end (a file, a pipe, standard input).
+    pub fn once(stream: impl Read + Send + 'static) -> Input {
+        Input { stream: Box::new(stream), reopen: None }
+    }
+}
+
+/// Waits between tries to reopen a lost input: `first_ms`, doubling up to `max_ms`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Backoff {
+    /// First wait, ms.
+    pub first_ms: u64,
+    /// Longest wait, ms.
+    pub max_ms: u64,
+}
+
+/// The waits for a serial port: 0.25 s doubling to 8 s.
+pub const PORT_BACKOFF: Backoff = Backoff { first_ms: 250, max_ms: 8_000 };
+
+/// What the reading thread hands to the storing one.
+enum Feed {
+    /// A whole frame's record, the time it arrived and the counts after it.
+    Record(Record, i64, Counts),
+    /// The counts after a quiet spell or garbage.
+    Counts(Counts),
+    /// The input was lost (why, next try in).
+    Lost(String, Duration),
+    /// The input was reopened.
+    Reopened,
+    /// The input ended (with the error that ended it, if any).
+    End(Counts, Option<io::Error>),
+}
+
+/// How often the storing thread looks at `stop` while nothing arrives.
+const STOP_POLL: Duration = Duration::from_millis(25);
+
+/// The reading thread: frames from `input` until it ends, is lost for good,
+/// or `quit` is set.
+fn read_frames(input: Input, tx: &std::sync::mpsc::SyncSender<Feed>, quit: &std::sync::atomic::AtomicBool) {
+    use std::sync::atomic::Ordering;
+    let Input { stream, mut reopen } = input;
+    let mut reader = FrameReader::new(stream);
+    loop {
+        if quit.load(Ordering::Relaxed) {
+            return;
+        }
+        let feed = match reader.next_record() {
+            Ok(Some(r)) => Feed::Record(r, time::now_ms(), reader.counts()),
+            Ok(None) => Feed::End(reader.counts(), None),
+            Err(e) if quiet(&e) => Feed::Counts(reader.counts()),
+            Err(e) => match reopen.as_mut() {
+                None => Feed::End(reader.counts(), Some(e)),
+                Some((open, backoff)) => {
+                    // The partial frame is lost with the port: counted as a bad frame.
+                    reader.lose_frame();
+                    let mut wait = Duration::from_millis(backoff.first_ms);
+                    let mut why = e.to_string();
+                    loop {
+                        if tx.send(Feed::Lost(why.clone(), wait)).is_err() {
+                            return;
+                        }
+                        let until = Instant::now() + wait;
+                        while Instant::now() < until {
+                            if quit.load(Ordering::Relaxed) {
+                                return;
+                            }
+                            std::thread::sleep(STOP_POLL.min(until.saturating_duration_since(Instant::now())));
+                        }
+                        match open() {
+                            Ok(s) => {
+                                reader.replace_input(s);
+                                break;
+                            }
+                            Err(e) => why = e.to_string(),
+                        }
+                        wait = (wait * 2).min(Duration::from_millis(backoff.max_ms));
+                    }
+                    Feed::Reopened
+                }
+            },
+        };
+        let end = matches!(feed, Feed::End(..));
+        if tx.send(feed).is_err() || end {
+            return;
+        }
+    }
+}
+
+/// Reads framed records from `input` and stores them under `labels`, until
+/// the input ends or `stop` returns true (a signal).
+///
+/// Reading runs on a thread of its own; this one stores. Records are kept in
+/// memory and committed every [`COMMIT_RECORDS`] records or [`COMMIT_MS`] ms,
+/// whichever comes first, whether or not more arrive — so a quiet line loses
+/// nothing to a kill — and the write lock is taken only for the commit, so
+/// other writers (`ingest`) go on meanwhile. `stop` is looked at every
+/// 25 ms: then what has arrived is committed and the stream ends (the reading
+/// thread may stay blocked in a read; it ends with the process). A lost input
+/// with a way to reopen it is retried with backoff, reported through
+/// `status`, which is called after every commit.
 ///
 /// # Errors
-/// Store errors; a read error other than a timeout (the records before it
-/// are committed first).
-pub fn listen<R: Read>(
+/// Store errors; a read error of an input that cannot be reopened (the
+/// records before it are committed first).
+pub fn listen(
     store: &mut Store,
     name: &str,
-    input: R,
+    input: Input,
     labels: &Labels,
     mut status: impl FnMut(&Progress),
     stop: impl Fn() -> bool,
 ) -> Result<Listened, CollectError> {
+    use std::sync::atomic::{AtomicBool, Ordering};
     let started = Instant::now();
     let source_id = store.begin_stream(name, time::now_ms())?;
-    let mut reader = FrameReader::new(input);
+    let (tx, rx) = std::sync::mpsc::sync_channel::<Feed>(2 * COMMIT_RECORDS as usize);
+    let quit = Arc::new(AtomicBool::new(false));
+    let reader_quit = quit.clone();
+    std::thread::Builder::new()
+        .name("listen-read".into())
+        .spawn(move || read_frames(input, &tx, &reader_quit))
+        .map_err(|e| CollectError::Io { what: name.to_owned(), error: e })?;
+    let mut pending: Vec<(i64, Record)> = Vec::with_capacity(COMMIT_RECORDS as usize);
+    let mut pending_refused = 0u64;
+    let mut counts = Counts::default();
     let mut committed = Counts::default();
-    let (mut stored, mut duplicates) = (0u64, 0u64);
+    let mut progress =
+        Progress { counts, stored: 0, duplicates: 0, last: None, elapsed: Duration::ZERO, lost: None, reopened: 0 };
     let mut refused = std::collections::BTreeMap::new();
-    let mut last = None;
+    let mut units: std::collections::BTreeMap<u32, UnitSeq> = std::collections::BTreeMap::new();
+    let mut changed_units = std::collections::BTreeSet::new();
     let mut failure = None;
+    let mut stopped = false;
     let mut ended = false;
-    while !ended && failure.is_none() {
-        let mut batch = store.batch()?;
-        let station = batch.station(&labels.station)?;
-        let since = Instant::now();
-        let mut n = 0u64;
-        loop {
-            match reader.next_record() {
-                Ok(Some(r)) => {
-                    n += 1;
+    let mut last_commit = Instant::now();
+    let commit_every = Duration::from_millis(COMMIT_MS);
+    while !ended {
+        let wait = commit_every.saturating_sub(last_commit.elapsed()).min(STOP_POLL);
+        let mut feeds: Vec<Feed> = match rx.recv_timeout(wait) {
+            Ok(f) => vec![f],
+            Err(std::sync::mpsc::RecvTimeoutError::Timeout) => Vec::new(),
+            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                ended = true;
+                Vec::new()
+            }
+        };
+        if stop() {
+            stopped = true;
+            ended = true;
+            // What the reading thread has already read is stored too.
+            feeds.extend(rx.try_iter());
+        }
+        for feed in feeds {
+            match feed {
+                Feed::Record(r, arrived_ms, c) => {
+                    counts = c;
                     // A frame can be whole and its record still impossible: refused, counted, not stored.
                     if let Err(e) = crate::data::validate::record(&r) {
                         *refused.entry(e.field).or_insert(0u64) += 1;
-                        batch.refuse();
+                        pending_refused += 1;
                     } else {
                         let at = match labels.time {
-                            TimeRule::Arrival => time::now_ms(),
+                            TimeRule::Arrival => arrived_ms,
                             TimeRule::Sequence { start_ms, period_ms } => {
                                 start_ms.saturating_add(i64::from(r.seq).saturating_mul(period_ms))
                             }
                         };
-                        if batch.insert(station, &labels.batch, at, &r, labels.setup_id, source_id)? {
-                            stored += 1;
-                        } else {
-                            duplicates += 1;
-                        }
-                        last = Some(r);
+                        units.entry(r.unit_id).or_insert_with(|| UnitSeq::starting_at(r.seq)).see(r.seq);
+                        changed_units.insert(r.unit_id);
+                        pending.push((at, r));
+                        progress.last = Some(r);
                     }
                 }
-                Ok(None) => {
+                Feed::Counts(c) => counts = c,
+                Feed::Lost(why, next) => {
+                    // Shown at once: a loss may be shorter than a commit interval.
+                    progress.lost = Some((why, next));
+                    progress.elapsed = started.elapsed();
+                    status(&progress);
+                }
+                Feed::Reopened => {
+                    progress.lost = None;
+                    progress.reopened += 1;
+                }
+                Feed::End(c, e) => {
+                    counts = c;
+                    failure = e.map(|error| CollectError::Io { what: name.to_owned(), error });
                     ended = true;
-                    break;
-                }
-                Err(e) if quiet(&e) => {
-                    if stop() {
-                        ended = true;
-                    }
-                    break;
-                }
-                Err(e) => {
-                    failure = Some(CollectError::Io { what: name.to_owned(), error: e });
-                    break;
                 }
             }
-            if n >= COMMIT_RECORDS || since.elapsed() >= Duration::from_millis(COMMIT_MS) {
-                break;
+        }
+        let due = last_commit.elapsed() >= commit_every || pending.len() as u64 >= COMMIT_RECORDS;
+        if !(due || ended) {
+            continue;
+        }
+        if !pending.is_empty() || pending_refused > 0 || counts != committed || !changed_units.is_empty() {
+            let mut batch = store.batch()?;
+            let station = batch.station(&labels.station)?;
+            for (at, r) in pending.drain(..) {
+                batch.insert(station, &labels.batch, at, &r, labels.setup_id, source_id)?;
             }
+            for _ in 0..pending_refused {
+                batch.refuse();
+            }
+            pending_refused = 0;
+            batch.note_units(source_id, changed_units.iter().filter_map(|u| units.get_key_value(u)))?;
+            changed_units.clear();
+            let w =
+                batch.commit(source_id, counts.bad_frames - committed.bad_frames, counts.bytes - committed.bytes)?;
+            progress.stored += w.stored;
+            progress.duplicates += w.duplicates;
+            committed = counts;
         }
-        let c = reader.counts();
-        batch.commit(source_id, c.bad_frames - committed.bad_frames, c.bytes - committed.bytes)?;
-        committed = c;
-        status(&Progress { counts: c, stored, duplicates, last, elapsed: started.elapsed() });
-        if stop() {
-            ended = true;
-        }
+        last_commit = Instant::now();
+        progress.counts = counts;
+        progress.elapsed = started.elapsed();
+        status(&progress);
     }
+    quit.store(true, Ordering::Relaxed);
     if let Some(f) = failure {
         return Err(f);
     }
-    Ok(Listened { source_id, counts: reader.counts(), stored, duplicates, refused })
+    Ok(Listened {
+        source_id,
+        counts,
+        stored: progress.stored,
+        duplicates: progress.duplicates,
+        refused,
+        units,
+        reopened: progress.reopened,
+        stopped,
+    })
 }
 
 /// The outcome of ingesting one log file.
@@ -431,10 +613,140 @@ mod tests {
         let dir = tempfile::tempdir().map_err(|e| CollectError::Io { what: "tempdir".into(), error: e })?;
         let mut store = Store::open(&dir.path().join("s.db"))?;
         let bytes: Vec<u8> = [frame(0), frame(1), frame(1)].concat();
-        let l = listen(&mut store, "t", io::Cursor::new(bytes), &labels(), |_| {}, || false)?;
+        let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
         assert_eq!((l.stored, l.duplicates, l.counts.bad_frames), (2, 1, 0));
         assert_eq!(store.count()?, 2);
         assert_eq!(source_name(None, Some("/dev/ttyUSB0")), "serial /dev/ttyUSB0");
+        Ok(())
+    }
+
+    /// A reader that hands out what the test sends it and blocks meanwhile,
+    /// as a quiet serial line or pipe does; then fails as a vanished port does.
+    struct Line(std::sync::mpsc::Receiver<io::Result<Vec<u8>>>, Vec<u8>);
+
+    impl Read for Line {
+        fn read(&mut self, buf: &mut [u8]) -> io::Result<usize> {
+            if self.1.is_empty() {
+                match self.0.recv() {
+                    Ok(Ok(b)) => self.1 = b,
+                    Ok(Err(e)) => return Err(e),
+                    Err(_) => return Ok(0),
+                }
+            }
+            let n = buf.len().min(self.1.len());
+            buf[..n].copy_from_slice(&self.1[..n]);
+            self.1.drain(..n);
+            Ok(n)
+        }
+    }
+
+    fn temp_store() -> Result<(tempfile::TempDir, std::path::PathBuf), CollectError> {
+        let dir = tempfile::tempdir().map_err(|e| CollectError::Io { what: "tempdir".into(), error: e })?;
+        let path = dir.path().join("s.db");
+        Store::open(&path)?;
+        Ok((dir, path))
+    }
+
+    /// Five frames, then silence: they were once committed only when the next
+    /// byte came (never, on a quiet night), and the write lock was held all
+    /// the while. Now they are in the store within the commit interval, another
+    /// writer gets the lock at once, and a stop ends listen promptly.
+    #[test]
+    fn a_quiet_line_commits_on_time_holds_no_lock_and_stops_promptly() -> Result<(), CollectError> {
+        let (_dir, path) = temp_store()?;
+        let (tx, rx) = std::sync::mpsc::channel();
+        let stop = Arc::new(std::sync::atomic::AtomicBool::new(false));
+        let stop_l = stop.clone();
+        let p = path.clone();
+        let listener = std::thread::spawn(move || -> Result<(Listened, Duration), CollectError> {
+            let mut store = Store::open(&p)?;
+            let l = listen(
+                &mut store,
+                "t",
+                Input::once(Line(rx, Vec::new())),
+                &labels(),
+                |_| {},
+                || stop_l.load(std::sync::atomic::Ordering::SeqCst),
+            )?;
+            Ok((l, Duration::ZERO))
+        });
+        tx.send(Ok((0..5).flat_map(frame).collect()))
+            .map_err(|_| CollectError::Io { what: "line".into(), error: io::Error::other("closed") })?;
+        std::thread::sleep(Duration::from_millis(COMMIT_MS * 3));
+        let mut other = Store::open(&path)?;
+        assert_eq!(other.count()?, 5, "committed without another byte");
+        // The lock is free while listen waits for bytes.
+        let took = Instant::now();
+        other.batch()?.commit(0, 0, 0)?;
+        assert!(took.elapsed() < Duration::from_secs(2), "lock held by listen: {:?}", took.elapsed());
+        let asked = Instant::now();
+        stop.store(true, std::sync::atomic::Ordering::SeqCst);
+        let (l, _) = listener
+            .join()
+            .map_err(|_| CollectError::Io { what: "listener".into(), error: io::Error::other("panicked") })??;
+        let took = asked.elapsed();
+        assert!(took < Duration::from_millis(250), "stop took {took:?}");
+        assert!(l.stopped);
+        assert_eq!((l.stored, l.units.get(&1).map(|u| (u.received, u.missing, u.back))), (5, Some((5, 0, 0))));
+        drop(tx);
+        Ok(())
+    }
+
+    /// A port that vanishes mid-stream is reopened with backoff (two failed
+    /// tries here), the records on both sides of the loss are stored, the
+    /// frame cut by the loss counts as one bad frame, and the loss is reported.
+    #[test]
+    fn a_vanished_port_is_reopened_and_nothing_after_it_lost() -> Result<(), CollectError> {
+        let (_dir, path) = temp_store()?;
+        let mut store = Store::open(&path)?;
+        let (tx1, rx1) = std::sync::mpsc::channel();
+        let half = frame(2);
+        let first: Vec<u8> = [frame(0), frame(1), half[..half.len() / 2].to_vec()].concat();
+        let _ = tx1.send(Ok(first));
+        let _ = tx1.send(Err(io::Error::new(io::ErrorKind::BrokenPipe, "device gone")));
+        let mut tries = 0;
+        let opener: Opener = Box::new(move || {
+            tries += 1;
+            if tries < 3 {
+                return Err(io::Error::new(io::ErrorKind::NotFound, "no such device"));
+            }
+            let (tx, rx) = std::sync::mpsc::channel();
+            let _ = tx.send(Ok([frame(3), frame(4)].concat()));
+            Ok(Box::new(Line(rx, Vec::new())) as Stream)
+        });
+        let input = Input {
+            stream: Box::new(Line(rx1, Vec::new())),
+            reopen: Some((opener, Backoff { first_ms: 5, max_ms: 20 })),
+        };
+        let mut losses = Vec::new();
+        let l = listen(&mut store, "port", input, &labels(), |p| losses.extend(p.lost.clone()), || false)?;
+        assert_eq!((l.stored, l.reopened, l.counts.bad_frames), (4, 1, 1));
+        assert_eq!(l.units.get(&1).map(|u| (u.missing, u.back)), Some((1, 0)), "seq 2 was cut");
+        assert!(losses.iter().any(|(why, _)| why.contains("device gone")), "{losses:?}");
+        drop(tx1);
+        Ok(())
+    }
+
+    /// Gaps and steps back in a unit's numbers are counted per unit and kept
+    /// with the source.
+    #[test]
+    fn sequence_gaps_and_steps_back_per_unit() -> Result<(), CollectError> {
+        let (_dir, path) = temp_store()?;
+        let mut store = Store::open(&path)?;
+        let other = |seq: u32| {
+            hold_firmware::record::encode(&Record { unit_id: 2, ..good(seq) }).map(|f| f.to_vec()).unwrap_or_default()
+        };
+        let bytes: Vec<u8> =
+            [frame(0), frame(1), frame(5), other(10), frame(6), frame(3), other(11), other(20)].concat();
+        let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
+        let seq = |u: u32| l.units.get(&u).map(|x| (x.first_seq, x.last_seq, x.received, x.missing, x.back));
+        assert_eq!(seq(1), Some((0, 3, 5, 3, 1)));
+        assert_eq!(seq(2), Some((10, 20, 3, 8, 0)));
+        let src = store.sources()?;
+        let s = src.first().map(|s| (s.seq_missing, s.seq_back, s.gap_units));
+        assert_eq!(s, Some((11, 1, 2)));
+        let units = store.source_units(l.source_id)?;
+        assert_eq!(units.first().map(|(u, x)| (*u, x.missing)), Some((2, 8)), "most skipped first");
         Ok(())
     }
 
@@ -466,7 +778,7 @@ mod tests {
             bytes.extend(hold_firmware::record::encode(&r).map(|f| f.to_vec()).unwrap_or_default());
         }
         bytes.extend(frame(7));
-        let l = listen(&mut store, "t", io::Cursor::new(bytes), &labels(), |_| {}, || false)?;
+        let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
         assert_eq!((l.stored, l.counts.bad_frames), (1, 0), "only the good frame is stored");
         let by_field: Vec<(&str, u64)> = l.refused.iter().map(|(f, n)| (*f, *n)).collect();
         assert_eq!(

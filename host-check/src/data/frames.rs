@@ -105,6 +105,24 @@ impl<R: Read> FrameReader<R> {
         }
     }
 
+    /// Drops the frame read so far (the input was lost mid-frame): counted
+    /// as a bad frame when it had begun.
+    pub fn lose_frame(&mut self) {
+        if !self.frame.is_empty() || self.overlong {
+            self.counts.bad_frames += 1;
+        }
+        self.frame.clear();
+        self.overlong = false;
+        self.pos = 0;
+        self.len = 0;
+    }
+
+    /// Reads on from `inner` (the input reopened), keeping the counts.
+    pub fn replace_input(&mut self, inner: R) {
+        self.lose_frame();
+        self.inner = inner;
+    }
+
     /// Appends `n` bytes at `pos` to the current frame, or marks it overlong.
     fn take(&mut self, n: usize) {
         if self.overlong {

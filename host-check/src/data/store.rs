@@ -46,11 +46,11 @@ use crate::report::aging;
 use crate::stage::file::StageFile;
 
 /// The schema version this build writes.
-pub const SCHEMA_VERSION: u32 = 5;
+pub const SCHEMA_VERSION: u32 = 6;
 
 /// Migrations: entry `i` moves a database from version `i` to `i + 1`
 /// (3 → 4 is followed by the summaries' recount, [`Store::migrate_to`]).
-const MIGRATIONS: [&str; 5] = [
+const MIGRATIONS: [&str; 6] = [
     // 0 → 1: the tables.
     "CREATE TABLE setup (
         id INTEGER PRIMARY KEY,
@@ -158,7 +158,60 @@ const MIGRATIONS: [&str; 5] = [
         FROM reading r JOIN batch b ON b.id = r.batch_id LEFT JOIN setup s ON s.id = r.setup_id;",
     // 4 → 5: frames whose record failed the record check, per source.
     "ALTER TABLE source ADD COLUMN refused INTEGER NOT NULL DEFAULT 0;",
+    // 5 → 6: each unit's sequence numbers per stream (gaps, steps back).
+    "CREATE TABLE source_unit (
+        source_id INTEGER NOT NULL REFERENCES source(id),
+        unit_id INTEGER NOT NULL,
+        first_seq INTEGER NOT NULL,
+        last_seq INTEGER NOT NULL,
+        received INTEGER NOT NULL,
+        missing INTEGER NOT NULL,
+        back INTEGER NOT NULL,
+        PRIMARY KEY (source_id, unit_id)
+     ) WITHOUT ROWID;
+     ALTER TABLE source ADD COLUMN seq_missing INTEGER NOT NULL DEFAULT 0;
+     ALTER TABLE source ADD COLUMN seq_back INTEGER NOT NULL DEFAULT 0;
+     ALTER TABLE source ADD COLUMN gap_units INTEGER NOT NULL DEFAULT 0;",
 ];
+
+/// One unit's sequence numbers as one stream delivered them. The rule: a
+/// record whose number is above the one before adds the numbers between to
+/// `missing`; one whose number is not above it counts in `back` (a repeat, a
+/// late arrival or a restart after a reboot).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct UnitSeq {
+    /// First sequence number received.
+    pub first_seq: u32,
+    /// Last sequence number received.
+    pub last_seq: u32,
+    /// Records received (that passed the record check).
+    pub received: u64,
+    /// Sequence numbers skipped.
+    pub missing: u64,
+    /// Records whose number was not above the one before.
+    pub back: u64,
+}
+
+impl UnitSeq {
+    /// A unit first seen at `seq` (nothing received yet: call [`UnitSeq::see`]).
+    #[must_use]
+    pub const fn starting_at(seq: u32) -> UnitSeq {
+        UnitSeq { first_seq: seq, last_seq: seq, received: 0, missing: 0, back: 0 }
+    }
+
+    /// Counts a record numbered `seq`.
+    pub fn see(&mut self, seq: u32) {
+        if self.received > 0 {
+            if seq > self.last_seq {
+                self.missing += u64::from(seq - self.last_seq - 1);
+            } else {
+                self.back += 1;
+            }
+        }
+        self.received += 1;
+        self.last_seq = seq;
+    }
+}
 
 /// One source of records in the store: a stream `listen` read or a log
 /// `ingest` stored.
@@ -180,6 +233,12 @@ pub struct Source {
     pub refused: u64,
     /// Bytes read.
     pub bytes: u64,
+    /// Sequence numbers its units skipped (streams; see [`UnitSeq`]).
+    pub seq_missing: u64,
+    /// Records whose number was not above their unit's one before (streams).
+    pub seq_back: u64,
+    /// Units with skipped numbers (streams).
+    pub gap_units: u64,
 }
 
 /// An error of the store, with the database file it concerns.
@@ -772,6 +831,32 @@ impl Store {
         Ok(())
     }
 
+    /// The units of stream `source_id` with their sequence counts, the most
+    /// skipped numbers first.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn source_units(&self, source_id: i64) -> Result<Vec<(u32, UnitSeq)>, StoreError> {
+        let mut st = self
+            .conn
+            .prepare(
+                "SELECT unit_id, first_seq, last_seq, received, missing, back FROM source_unit \
+                 WHERE source_id = ?1 ORDER BY missing DESC, back DESC, unit_id",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = st
+            .query_map([source_id], |r| {
+                let u = |i: usize| r.get::<_, i64>(i).map(|v| v.max(0) as u64);
+                let seq = |i: usize| r.get::<_, i64>(i).map(|v| u32::try_from(v).unwrap_or(0));
+                Ok((
+                    seq(0)?,
+                    UnitSeq { first_seq: seq(1)?, last_seq: seq(2)?, received: u(3)?, missing: u(4)?, back: u(5)? },
+                ))
+            })
+            .map_err(|e| self.err(e))?;
+        rows.collect::<Result<_, _>>().map_err(|e| self.err(e))
+    }
+
     /// Every source (stream or log) with its counts, in the order stored.
     ///
     /// # Errors
@@ -779,7 +864,10 @@ impl Store {
     pub fn sources(&self) -> Result<Vec<Source>, StoreError> {
         let mut st = self
             .conn
-            .prepare("SELECT id, kind, name, records, duplicates, bad_frames, bytes, refused FROM source ORDER BY id")
+            .prepare(
+                "SELECT id, kind, name, records, duplicates, bad_frames, bytes, refused, seq_missing, seq_back, \
+                 gap_units FROM source ORDER BY id",
+            )
             .map_err(|e| self.err(e))?;
         let rows = st
             .query_map([], |r| {
@@ -793,6 +881,9 @@ impl Store {
                     bad_frames: u(5)?,
                     bytes: u(6)?,
                     refused: u(7)?,
+                    seq_missing: u(8)?,
+                    seq_back: u(9)?,
+                    gap_units: u(10)?,
                 })
             })
             .map_err(|e| self.err(e))?;
@@ -1368,6 +1459,55 @@ impl Batch<'_> {
         Ok(())
     }
 
+    /// Writes the sequence counts of `units` (totals so far) for stream
+    /// `source_id`, and the source's totals over all its units.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn note_units<'u>(
+        &mut self,
+        source_id: i64,
+        units: impl Iterator<Item = (&'u u32, &'u UnitSeq)>,
+    ) -> Result<(), StoreError> {
+        let path = self.path.clone();
+        let e = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
+        let mut any = false;
+        {
+            let mut st = self
+                .tx
+                .prepare_cached(
+                    "INSERT INTO source_unit VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7) ON CONFLICT (source_id, unit_id) \
+                     DO UPDATE SET last_seq = excluded.last_seq, received = excluded.received, \
+                     missing = excluded.missing, back = excluded.back",
+                )
+                .map_err(e)?;
+            for (unit, u) in units {
+                any = true;
+                st.execute(params![
+                    source_id,
+                    i64::from(*unit),
+                    i64::from(u.first_seq),
+                    i64::from(u.last_seq),
+                    u64_sql(u.received),
+                    u64_sql(u.missing),
+                    u64_sql(u.back)
+                ])
+                .map_err(e)?;
+            }
+        }
+        if any {
+            self.tx
+                .execute(
+                    "UPDATE source SET (seq_missing, seq_back, gap_units) = (SELECT coalesce(sum(missing), 0), \
+                     coalesce(sum(back), 0), count(*) FILTER (WHERE missing > 0) FROM source_unit \
+                     WHERE source_id = ?1) WHERE id = ?1",
+                    [source_id],
+                )
+                .map_err(e)?;
+        }
+        Ok(())
+    }
+
     /// Counts a record refused by the record check (written to the source on commit).
     pub fn refuse(&mut self) {
         self.refused += 1;
@@ -1741,7 +1881,7 @@ pub(crate) mod tests {
                                 setup_id: setups.get(usize::from(setup)).copied().flatten(),
                                 time: TimeRule::Sequence { start_ms: 1_750_000_000_000, period_ms: 28_800_000 },
                             };
-                            listen(&mut s, "stream", &bytes[..], &labels, |_| {}, || false)
+                            listen(&mut s, "stream", crate::data::collect::Input::once(std::io::Cursor::new(bytes.clone())), &labels, |_| {}, || false)
                                 .map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
                         }
                         Step::Killed(recs) => {

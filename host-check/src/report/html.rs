@@ -63,7 +63,8 @@ pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldChar
     if !sources.is_empty() {
         o.push_str(
             "<h2>Sources</h2><table><tr><th>id</th><th class=l>kind</th><th>stored</th><th>repeated</th>\
-             <th>refused</th><th>bad frames</th><th>bytes</th><th class=l>name</th></tr>",
+             <th>refused</th><th>bad frames</th><th>seq skipped</th><th>seq back</th><th>bytes</th>\
+             <th class=l>name</th></tr>",
         );
         for x in sources {
             let cells = [
@@ -73,6 +74,8 @@ pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldChar
                 r(x.duplicates),
                 r(x.refused),
                 r(x.bad_frames),
+                r(x.seq_missing),
+                r(x.seq_back),
                 r(x.bytes),
                 l(&x.name),
             ];
@@ -214,6 +217,9 @@ mod tests {
             bad_frames: 0,
             refused: 0,
             bytes: 9,
+            seq_missing: 0,
+            seq_back: 0,
+            gap_units: 0,
         };
         let p = page(&y, &f, &[src], &YieldCharts::default(), &AgingCharts::default());
         assert!(!p.contains("<script>") && p.contains("&lt;script&gt;") && p.contains("B&amp;1"));

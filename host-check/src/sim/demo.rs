@@ -368,7 +368,7 @@ fn send(
     damage: (u64, u64),
 ) -> Result<(u64, u64, u64, u64), Error> {
     let (bytes, damaged) = framed(records, rng, damage.0, damage.1)?;
-    let l = collect::listen(store, name, Cursor::new(bytes), labels, |_| {}, || false)?;
+    let l = collect::listen(store, name, collect::Input::once(Cursor::new(bytes)), labels, |_| {}, || false)?;
     Ok((records.len() as u64, damaged, l.stored, l.counts.bad_frames))
 }
 

@@ -1,7 +1,6 @@
 //! `rchold listen`: the firmware's framed records from a serial port, a
 //! file or standard input into the store, committed as they arrive.
 
-use std::io::Read;
 use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::atomic::{AtomicBool, AtomicU32, Ordering};
@@ -12,6 +11,7 @@ use host_check::data::store::Store;
 use host_check::Error;
 
 use crate::args::{date_or_time, emit, name, period_ms, spinner, SetupArgs};
+use host_check::fmt::terminal;
 
 /// Options of `rchold listen`.
 #[derive(clap::Args)]
@@ -41,6 +41,10 @@ pub struct Args {
     /// The measurement store (SQLite).
     #[arg(long, default_value = "rchold.db")]
     db: PathBuf,
+    /// Do not reopen a serial port that vanished (by default it is reopened
+    /// with waits of 0.25 s doubling to 8 s, until it is back or a signal ends listen).
+    #[arg(long)]
+    no_reconnect: bool,
     /// No live status line.
     #[arg(long)]
     quiet: bool,
@@ -49,8 +53,9 @@ pub struct Args {
 static STOP: AtomicBool = AtomicBool::new(false);
 static INTERRUPTS: AtomicU32 = AtomicU32::new(0);
 
-fn on_interrupt() {
-    // First Ctrl-C: commit what has arrived and stop. Second: leave now.
+fn on_signals() {
+    // First SIGINT, SIGTERM or SIGHUP: commit what has arrived, print the
+    // summary and stop (listen looks every 25 ms). A second one: leave now.
     let _ = ctrlc::set_handler(|| {
         STOP.store(true, Ordering::SeqCst);
         if INTERRUPTS.fetch_add(1, Ordering::SeqCst) >= 1 {
@@ -69,18 +74,26 @@ fn time_rule(start: Option<&str>, period: Option<&str>) -> Result<TimeRule, Erro
     }
 }
 
-fn open_input(a: &Args) -> Result<Box<dyn Read>, Error> {
+fn open_port(port: &str, baud: u32) -> std::io::Result<collect::Stream> {
+    serialport::new(port, baud)
+        .timeout(Duration::from_millis(100))
+        .open()
+        .map(|p| Box::new(p) as collect::Stream)
+        .map_err(std::io::Error::other)
+}
+
+fn open_input(a: &Args) -> Result<collect::Input, Error> {
     Ok(match (&a.port, &a.input) {
-        (Some(p), _) => Box::new(
-            serialport::new(p, a.baud)
-                .timeout(Duration::from_millis(100))
-                .open()
-                .map_err(|e| Error::Input(format!("--port {p}: {e}")))?,
-        ),
-        (None, Some(path)) if path.as_os_str() != "-" => {
-            Box::new(std::fs::File::open(path).map_err(|e| Error::Input(format!("{}: {e}", path.display())))?)
+        (Some(p), _) => {
+            let stream = open_port(p, a.baud).map_err(|e| Error::Input(format!("--port {p}: {e}")))?;
+            let (port, baud) = (p.clone(), a.baud);
+            let opener: collect::Opener = Box::new(move || open_port(&port, baud));
+            collect::Input { stream, reopen: (!a.no_reconnect).then_some((opener, collect::PORT_BACKOFF)) }
         }
-        _ => Box::new(std::io::stdin().lock()),
+        (None, Some(path)) if path.as_os_str() != "-" => collect::Input::once(
+            std::fs::File::open(path).map_err(|e| Error::Input(format!("{}: {e}", path.display())))?,
+        ),
+        _ => collect::Input::once(std::io::stdin()),
     })
 }
 
@@ -93,20 +106,32 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let setup_id = a.setup.id_in(&mut store)?;
     let labels = Labels { station: a.station.clone(), batch: a.batch.clone(), setup_id, time };
     let source = collect::source_name(a.input.as_ref(), a.port.as_deref());
-    let reader = open_input(&a)?;
-    on_interrupt();
+    let input = open_input(&a)?;
+    on_signals();
     let status = spinner(a.quiet);
     let show = |p: &collect::Progress| {
         let rate = p.counts.records as f64 / p.elapsed.as_secs_f64().max(1e-3);
         let last = p.last.map_or_else(String::new, |r| format!(" · last: unit {} {}", r.unit_id, r.verdict.name()));
+        let link = match &p.lost {
+            Some((why, next)) => format!(" · input lost ({}), reopening in {:.2} s", terminal(why), next.as_secs_f64()),
+            None if p.reopened > 0 => format!(" · reopened {}×", p.reopened),
+            None => String::new(),
+        };
         status.set_message(format!(
-            "{} records · {} bad frames · {rate:.0}/s{last}",
+            "{} records · {} bad frames · {rate:.0}/s{last}{link}",
             p.counts.records, p.counts.bad_frames
         ));
     };
-    let result = collect::listen(&mut store, &source, reader, &labels, show, || STOP.load(Ordering::SeqCst));
+    let result = collect::listen(&mut store, &source, input, &labels, show, || STOP.load(Ordering::SeqCst));
     status.finish_and_clear();
     let l = result?;
+    emit(&summary(&source, &l, &a.db))?;
+    Ok(ExitCode::SUCCESS)
+}
+
+/// The line `listen` ends with: what was stored, refused and dropped, and
+/// how the units' sequence numbers ran.
+fn summary(source: &str, l: &collect::Listened, db: &std::path::Path) -> String {
     let refused: u64 = l.refused.values().sum();
     let why = if refused == 0 {
         String::new()
@@ -114,14 +139,37 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         let parts: Vec<String> = l.refused.iter().map(|(f, n)| format!("{f} {n}")).collect();
         format!(" (out of range or inconsistent: {})", parts.join(", "))
     };
-    emit(&format!(
-        "{source}: {} records stored, {} already stored, {refused} refused{why}, {} bad frames, {} bytes (source {} in {})\n",
+    let missing: u64 = l.units.values().map(|u| u.missing).sum();
+    let back: u64 = l.units.values().map(|u| u.back).sum();
+    let mut gaps: Vec<(&u32, &host_check::data::store::UnitSeq)> =
+        l.units.iter().filter(|(_, u)| u.missing > 0).collect();
+    gaps.sort_by_key(|(unit, u)| (std::cmp::Reverse(u.missing), **unit));
+    let worst: Vec<String> = gaps.iter().take(3).map(|(unit, u)| format!("unit {unit} {}", u.missing)).collect();
+    let more = if gaps.len() > 3 { ", …" } else { "" };
+    let seq = match (missing, back) {
+        (0, 0) => String::new(),
+        _ if gaps.is_empty() => format!("; sequence: {back} not above the one before"),
+        _ => format!(
+            "; sequence: {missing} numbers skipped in {} unit{} ({}{more}), {back} not above the one before",
+            gaps.len(),
+            if gaps.len() == 1 { "" } else { "s" },
+            worst.join(", ")
+        ),
+    };
+    let end = match (l.stopped, l.reopened) {
+        (true, 0) => " · stopped by signal".to_owned(),
+        (true, n) => format!(" · input reopened {n}× · stopped by signal"),
+        (false, 0) => String::new(),
+        (false, n) => format!(" · input reopened {n}×"),
+    };
+    format!(
+        "{}: {} records stored, {} already stored, {refused} refused{why}, {} bad frames, {} bytes{seq} (source {} in {}){end}\n",
+        source,
         l.stored,
         l.duplicates,
         l.counts.bad_frames,
         l.counts.bytes,
         l.source_id,
-        a.db.display()
-    ))?;
-    Ok(ExitCode::SUCCESS)
+        db.display()
+    )
 }
