@@ -33,6 +33,80 @@ pub fn read_text(path: &Path, max_bytes: u64) -> Result<String, String> {
         .map_err(|e| format!("is not UTF-8 text at byte {} ({accepted})", e.utf8_error().valid_up_to()))
 }
 
+/// A reader that refuses a line longer than `max` bytes (the bytes since
+/// the last line feed), so that a log without line breaks cannot fill the
+/// memory of a parser that buffers a whole line (the CSV reader of mapped logs).
+#[derive(Debug)]
+pub struct LineBound<R> {
+    inner: R,
+    max: usize,
+    run: usize,
+}
+
+impl<R> LineBound<R> {
+    /// Reads `inner`, refusing lines longer than `max` bytes.
+    pub const fn new(inner: R, max: usize) -> Self {
+        LineBound { inner, max, run: 0 }
+    }
+}
+
+impl<R: std::io::Read> std::io::Read for LineBound<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        let n = self.inner.read(buf)?;
+        let got = buf.get(..n).unwrap_or(&[]);
+        self.run = match memchr::memrchr(b'\n', got) {
+            Some(i) => n - i - 1,
+            None => self.run + n,
+        };
+        if self.run > self.max {
+            return Err(std::io::Error::new(
+                std::io::ErrorKind::InvalidData,
+                format!(
+                    "a line is longer than {} bytes (accepted: lines of at most {} KiB)",
+                    self.max,
+                    self.max / 1024
+                ),
+            ));
+        }
+        Ok(n)
+    }
+}
+
+/// A reader that keeps the SHA-256 and the length of what passed through it:
+/// a file's digest taken while it is parsed, so it is read once (pipes and
+/// FIFOs work, and a file that changes meanwhile cannot be stored under
+/// another content's digest).
+#[derive(Debug)]
+pub struct Digesting<R> {
+    inner: R,
+    hash: sha2::Sha256,
+    bytes: u64,
+}
+
+impl<R> Digesting<R> {
+    /// Reads `inner`.
+    pub fn new(inner: R) -> Self {
+        use sha2::Digest as _;
+        Digesting { inner, hash: sha2::Sha256::new(), bytes: 0 }
+    }
+
+    /// The SHA-256 (hex) and length of what was read.
+    pub fn finish(self) -> (String, u64) {
+        use sha2::Digest as _;
+        (crate::data::store::hex(&self.hash.finalize()), self.bytes)
+    }
+}
+
+impl<R: std::io::Read> std::io::Read for Digesting<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        use sha2::Digest as _;
+        let n = self.inner.read(buf)?;
+        self.hash.update(buf.get(..n).unwrap_or(&[]));
+        self.bytes += n as u64;
+        Ok(n)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -52,5 +126,22 @@ mod tests {
         let ok = dir.path().join("ok.toml");
         std::fs::write(&ok, "a = 1\n").unwrap_or_else(|e| panic!("{e}"));
         assert_eq!(read_text(&ok, 1024).ok().as_deref(), Some("a = 1\n"));
+    }
+
+    #[test]
+    fn long_lines_are_refused_whatever_the_reads() {
+        let mut text = vec![b'a'; 100];
+        text.push(b'\n');
+        text.extend(vec![b'b'; 300]);
+        let mut out = Vec::new();
+        let r = LineBound::new(&text[..], 200).read_to_end(&mut out);
+        assert!(r.is_err_and(|e| e.to_string().contains("longer than 200 bytes")));
+        let mut out = Vec::new();
+        assert!(LineBound::new(&text[..], 300).read_to_end(&mut out).is_ok());
+        let mut d = Digesting::new(&b"abc"[..]);
+        let mut out = Vec::new();
+        assert!(d.read_to_end(&mut out).is_ok());
+        // FIPS 180-2, appendix B.1: SHA-256("abc").
+        assert_eq!(d.finish(), ("ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad".to_owned(), 3));
     }
 }

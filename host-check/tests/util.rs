@@ -42,6 +42,19 @@ pub fn text(b: &[u8]) -> String {
     String::from_utf8_lossy(b).into_owned()
 }
 
+/// Starts `rchold` in `dir` with standard input, output and error piped.
+pub fn spawn_piped(dir: &Path, args: &[&str]) -> std::process::Child {
+    use std::process::Stdio;
+    Command::new(env!("CARGO_BIN_EXE_rchold"))
+        .args(args)
+        .current_dir(dir)
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap_or_else(|e| panic!("cannot run rchold: {e}"))
+}
+
 /// Runs `rchold` in `dir` (the same as [`run`]).
 pub fn rchold(dir: &Path, args: &[&str]) -> Output {
     run(dir, args)

@@ -27,7 +27,8 @@ fuzz_target!(|data: &[u8]| {
         return;
     }
     let Ok(m) = Mapping::load(&map_path) else { return };
-    let _ = m.read(&log_path, |_, l| {
+    let Ok(file) = std::fs::File::open(&log_path) else { return };
+    let _ = m.read(&log_path, file, |_, l| {
         assert!(l.unjudged() || validate::record(&l.record).is_ok(), "a mapped line passes the record check");
         Ok(())
     });

@@ -17,12 +17,11 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use hold_firmware::record::Record;
-use sha2::{Digest as _, Sha256};
 
 use crate::data::frames::{Counts, FrameReader};
 use crate::data::log::{self, LogError};
 use crate::data::mapping::Mapping;
-use crate::data::store::{hex, Station, Store, StoreError, UnitSeq, Written};
+use crate::data::store::{Station, Store, StoreError, UnitSeq, Written};
 use crate::data::time;
 use crate::report::yields::{HoldJudge, NO_JUDGE};
 
@@ -414,28 +413,9 @@ fn io_err(path: &Path) -> impl Fn(io::Error) -> CollectError + '_ {
     move |error| CollectError::Io { what: path.display().to_string(), error }
 }
 
-/// SHA-256 of a file, hex, and its length.
-///
-/// # Errors
-/// Read errors.
-pub fn file_digest(path: &Path) -> Result<(String, u64), CollectError> {
-    let mut f = std::fs::File::open(path).map_err(io_err(path))?;
-    let mut h = Sha256::new();
-    let mut buf = vec![0u8; 1 << 20];
-    let mut len = 0u64;
-    loop {
-        let n = f.read(&mut buf).map_err(io_err(path))?;
-        if n == 0 {
-            break;
-        }
-        len += n as u64;
-        h.update(buf.get(..n).unwrap_or(&[]));
-    }
-    Ok((hex(&h.finalize()), len))
-}
-
-/// Stores a log file in one transaction. A file stored before (same
-/// SHA-256) is skipped. On any error nothing of the file is stored.
+/// Stores a log file (`-`: standard input) in one transaction, reading it
+/// once. A file stored before (same SHA-256, taken while it is read) leaves
+/// the store as it was. On any error nothing of the file is stored.
 ///
 /// # Errors
 /// The first bad line ([`CollectError::Log`]), read or store errors.
@@ -464,10 +444,6 @@ fn ingest_with(
     setup_id: Option<i64>,
     mapping: Option<&Mapping>,
 ) -> Result<Ingested, CollectError> {
-    let (digest, bytes) = file_digest(path)?;
-    if let Some(source_id) = store.log_source(&digest)? {
-        return Ok(Ingested::AlreadyStored { source_id });
-    }
     // Lines that leave verdict or hint empty are judged against the stored setup's window.
     let setup = match setup_id {
         Some(id) => store.setups()?.remove(&id),
@@ -477,15 +453,14 @@ fn ingest_with(
         what: path.display().to_string(),
         error: std::io::Error::other(e.to_string()),
     })?;
-    let mut batch = store.batch()?;
-    let name = path.display().to_string();
-    let Some(source_id) = batch.begin_log(&name, &digest, time::now_ms(), bytes)? else {
-        // Another writer stored the same file meanwhile.
-        drop(batch);
-        let source_id = store.log_source(&digest)?.unwrap_or(0);
-        return Ok(Ingested::AlreadyStored { source_id });
+    // Read once: "-" is standard input; pipes and FIFOs work as files do.
+    let (input, name): (Box<dyn Read + Send>, String) = if path.as_os_str() == "-" {
+        (Box::new(io::stdin()), "standard input".to_owned())
+    } else {
+        (Box::new(std::fs::File::open(path).map_err(io_err(path))?), path.display().to_string())
     };
-    let file = std::fs::File::open(path).map_err(io_err(path))?;
+    let mut batch = store.batch()?;
+    let source_id = batch.begin_log(&name, time::now_ms())?;
     // Two threads: one reads and checks the lines, the other stores them, a
     // chunk at a time (a bounded channel: memory stays flat in the file's size).
     let judge = judge.as_ref();
@@ -521,14 +496,18 @@ fn ingest_with(
                 }
                 Ok(())
             };
+            let mut digesting = crate::input::Digesting::new(input);
             let lines = match mapping {
-                Some(m) => m.read(path, &mut each),
-                None => log::read(path, file, &mut each),
+                Some(m) => m.read(path, crate::input::LineBound::new(&mut digesting, log::MAX_LINE_BYTES), &mut each),
+                None => log::read(path, &mut digesting, &mut each),
             }?;
+            // What a parser left unread (after a last line without its break) is in the digest too.
+            std::io::copy(&mut digesting, &mut std::io::sink())
+                .map_err(|e| log::LogError::at(path, lines, None, format!("cannot read: {e}")))?;
             if !chunk.is_empty() {
                 tx.send(chunk).map_err(|_| log::LogError::at(path, lines, None, STORE_STOPPED.to_owned()))?;
             }
-            Ok::<u64, log::LogError>(lines)
+            Ok::<(u64, (String, u64)), log::LogError>((lines, digesting.finish()))
         });
         let mut store_error = None;
         for chunk in rx {
@@ -547,7 +526,12 @@ fn ingest_with(
     if let Some(e) = store_error {
         return Err(CollectError::Store(e));
     }
-    let lines = lines.map_err(CollectError::Log)?;
+    let (lines, (digest, bytes)) = lines.map_err(CollectError::Log)?;
+    if let Some(earlier) = batch.end_log(source_id, &digest, bytes)? {
+        // The same contents were stored before: nothing of this reading is kept.
+        drop(batch);
+        return Ok(Ingested::AlreadyStored { source_id: earlier });
+    }
     let written = batch.commit(source_id, 0, 0)?;
     Ok(Ingested::Stored { written, lines })
 }

@@ -182,7 +182,7 @@ impl Mapping {
         (0..=253_402_300_799_999).contains(&ms).then_some(ms)
     }
 
-    /// Reads the tester's log at `file`, calling `each` with every line as
+    /// Reads the tester's log `file` from `input`, calling `each` with every line as
     /// an rchold log line (verdict and hint empty where the mapping gives
     /// none: to be judged). Stops at the first bad line.
     ///
@@ -192,13 +192,11 @@ impl Mapping {
     pub fn read(
         &self,
         file: &Path,
+        input: impl std::io::Read,
         mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
     ) -> Result<u64, LogError> {
         let err = |line: u64, field: Option<&'static str>, message: String| LogError::at(file, line, field, message);
-        let mut rdr = csv::ReaderBuilder::new()
-            .flexible(false)
-            .from_path(file)
-            .map_err(|e| err(1, None, format!("cannot read: {e}")))?;
+        let mut rdr = csv::ReaderBuilder::new().flexible(false).from_reader(input);
         let headers = rdr.headers().map_err(|e| err(1, None, format!("no header: {e}")))?.clone();
         let col = |name: &str| headers.iter().position(|h| h.trim() == name);
         let need = |key: &'static str, name: &str| {

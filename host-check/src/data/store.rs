@@ -1336,33 +1336,41 @@ impl Batch<'_> {
     }
 
     /// Starts a log-file source inside this transaction: it exists only if
-    /// the transaction commits. `None` if a file with this digest is stored
-    /// already (checked under the write lock, so two writers cannot both add it).
+    /// the transaction commits. Its digest is given when the file has been
+    /// read ([`Batch::end_log`]).
     ///
     /// # Errors
     /// SQLite errors.
-    pub fn begin_log(
-        &mut self,
-        name: &str,
-        digest: &str,
-        started_ms: i64,
-        bytes: u64,
-    ) -> Result<Option<i64>, StoreError> {
+    pub fn begin_log(&mut self, name: &str, started_ms: i64) -> Result<i64, StoreError> {
+        self.tx
+            .execute("INSERT INTO source (kind, name, started_ms) VALUES ('log', ?1, ?2)", params![name, started_ms])
+            .map_err(|e| self.err(e))?;
+        Ok(self.tx.last_insert_rowid())
+    }
+
+    /// Gives log source `source_id` the file's SHA-256 (hex) and length.
+    /// `Some(id)` when a file with this digest is stored already as source
+    /// `id` (checked under the write lock, so two writers cannot both add it):
+    /// then drop this batch, and nothing of the file is stored.
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn end_log(&mut self, source_id: i64, digest: &str, bytes: u64) -> Result<Option<i64>, StoreError> {
         let known: Option<i64> = self
             .tx
-            .query_row("SELECT id FROM source WHERE digest = ?1", [digest], |r| r.get(0))
+            .query_row("SELECT id FROM source WHERE digest = ?1 AND id != ?2", params![digest, source_id], |r| r.get(0))
             .optional()
             .map_err(|e| self.err(e))?;
         if known.is_some() {
-            return Ok(None);
+            return Ok(known);
         }
         self.tx
             .execute(
-                "INSERT INTO source (kind, name, digest, started_ms, bytes) VALUES ('log', ?1, ?2, ?3, ?4)",
-                params![name, digest, started_ms, u64_sql(bytes)],
+                "UPDATE source SET digest = ?1, bytes = ?2 WHERE id = ?3",
+                params![digest, u64_sql(bytes), source_id],
             )
             .map_err(|e| self.err(e))?;
-        Ok(Some(self.tx.last_insert_rowid()))
+        Ok(None)
     }
 
     /// Stores one measurement; `false` if (station, unit, seq) was stored already.
@@ -1863,8 +1871,9 @@ pub(crate) mod tests {
                     match step {
                         Step::Ingest(recs) => {
                             let mut b = s.batch()?;
-                            let src = b.begin_log(&format!("log-{i}"), &format!("digest-{i}"), 0, 0)?.unwrap_or(0);
+                            let src = b.begin_log(&format!("log-{i}"), 0)?;
                             put(&mut b, recs, &setups, src)?;
+                            b.end_log(src, &format!("digest-{i}"), 0)?;
                             b.commit(src, 0, 0)?;
                         }
                         Step::Listen(recs) => {
