@@ -539,3 +539,74 @@ fn logs_from_pipes_and_fifos_are_read_once() {
     let src = rchold(dir.path(), &["sources"]);
     assert!(text(&src.stdout).contains("standard input"), "{}", text(&src.stdout));
 }
+
+/// Reports read a store on a read-only mount (a tmpfs remounted read-only:
+/// root only; CI runs as root, elsewhere the test says it was skipped).
+/// Once, every report opened the store for writing and failed there.
+#[test]
+fn reports_read_a_store_on_a_read_only_mount() {
+    use std::process::Command;
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    let mnt = dir.path().join("ro");
+    std::fs::create_dir_all(&mnt).unwrap_or_else(|e| panic!("{e}"));
+    let mounted = Command::new("mount").args(["-t", "tmpfs", "rchold-test", &mnt.to_string_lossy()]).output();
+    if !mounted.is_ok_and(|o| o.status.success()) {
+        eprintln!("skipped: mounting a tmpfs needs root");
+        return;
+    }
+    let umount = || {
+        let _ = Command::new("umount").arg(&mnt).status();
+    };
+    synth(&mnt, "a.csv", 2_000, 8);
+    let db = mnt.join("rchold.db");
+    let db_arg = db.to_string_lossy().into_owned();
+    let ingest = rchold(&mnt, &["ingest", "a.csv"]);
+    let remounted = Command::new("mount").args(["-o", "remount,ro", &mnt.to_string_lossy()]).status();
+    if !ingest.status.success() || !remounted.is_ok_and(|s| s.success()) {
+        umount();
+        panic!("setting up the read-only mount failed: {}", text(&ingest.stderr));
+    }
+    let before = std::fs::read(&db).unwrap_or_default();
+    let out_dir = dir.path().join("out");
+    let out_arg = out_dir.to_string_lossy().into_owned();
+    let runs = [
+        vec!["sources", "--db", &db_arg],
+        vec!["yield", "--db", &db_arg, "--out", &out_arg],
+        vec!["aging", "--db", &db_arg],
+        vec!["report", "--db", &db_arg, "--out", &out_arg],
+    ];
+    let results: Vec<(Vec<&str>, std::process::Output)> =
+        runs.iter().map(|r| (r.clone(), rchold(dir.path(), r))).collect();
+    let after = std::fs::read(&db).unwrap_or_default();
+    umount();
+    for (args, out) in results {
+        assert!(out.status.success(), "{args:?}: {}", text(&out.stderr));
+    }
+    assert_eq!(before, after, "the store changed");
+    assert!(out_dir.join("rejects.csv").is_file() && out_dir.join("report.html").is_file());
+}
+
+/// A report that fails half-way leaves the folder's earlier report as it was:
+/// once `yield --out DIR` truncated the previous `rejects.csv` before failing.
+#[test]
+fn a_failed_report_leaves_the_earlier_one() {
+    let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+    synth(dir.path(), "a.csv", 3_000, 9);
+    let stage = Path::new(env!("CARGO_MANIFEST_DIR")).join("../examples/kestrel-meter.toml");
+    let stage = stage.to_string_lossy();
+    let first = rchold(dir.path(), &["yield", "--csv", "a.csv", "--out", "r"]);
+    assert!(first.status.success(), "{}", text(&first.stderr));
+    let rejects = std::fs::read(dir.path().join("r/rejects.csv")).unwrap_or_default();
+    assert!(rejects.len() > 200, "the first report has rejects");
+    // The same data and a log whose last line is bad.
+    let mut bad = std::fs::read_to_string(dir.path().join("a.csv")).unwrap_or_default();
+    bad.push_str("2027-01-01T00:00:00Z,bay-1,,1,1,1000000,5,,,,within-window,none,settling,\n");
+    super::util::write(dir.path(), "b.csv", &bad);
+    let second = rchold(dir.path(), &["yield", "--csv", "b.csv", "--out", "r", "--stage", &stage]);
+    assert_eq!(second.status.code(), Some(2), "{}", text(&second.stderr));
+    assert_eq!(std::fs::read(dir.path().join("r/rejects.csv")).unwrap_or_default(), rejects);
+    let names: Vec<String> = std::fs::read_dir(dir.path().join("r"))
+        .map(|d| d.filter_map(Result::ok).map(|e| e.file_name().to_string_lossy().into_owned()).collect())
+        .unwrap_or_default();
+    assert!(names.iter().all(|n| !n.ends_with(".partial")), "{names:?}");
+}

@@ -20,7 +20,10 @@
 //! | `drift` | drift state | `settling`, `steady`, `drifting`, `beyond-limit` |
 //! | `c_dev_ppm` | capacitance deviation from nominal, ppm | −1 000 000 … 2 147 483 647 or empty |
 //!
-//! Fields follow RFC 4180 quoting (a station name with a comma is quoted);
+//! Fields follow RFC 4180 quoting (a station name with a comma is quoted); a
+//! name that starts with `=`, `+`, `-`, `@` or `'` is written behind one more
+//! `'` (so that a spreadsheet shows it rather than running it), and one leading
+//! `'` of a name is dropped on reading;
 //! since no field may hold a line break, every line is one record, which lets
 //! large logs be read in parallel pieces.
 
@@ -196,6 +199,8 @@ fn optional<T>(b: &[u8], f: impl FnOnce(&[u8]) -> FieldResult<T>) -> FieldResult
 
 #[inline]
 fn label<'a>(field: &'static str, b: &'a [u8], min: usize) -> FieldResult<&'a str> {
+    // The spreadsheet guard (see [`guarded`]): one leading apostrophe is not part of the name.
+    let b = b.strip_prefix(b"'").unwrap_or(b);
     if b.len() >= min && b.len() <= 64 && b.iter().fold(true, |ok, &c| ok & (0x20..0x7f).contains(&c)) {
         // Printable ASCII: valid UTF-8 without control characters.
         if let Ok(s) = std::str::from_utf8(b) {
@@ -644,6 +649,19 @@ fn quoted(s: &str) -> std::borrow::Cow<'_, str> {
     }
 }
 
+/// A name as a log cell: one that a spreadsheet would run as a formula
+/// (starting `=`, `+`, `-` or `@`) or that starts with an apostrophe gets a
+/// leading apostrophe — the usual CSV-injection guard (OWASP, "CSV
+/// Injection"). Reading drops one leading apostrophe, so a written log reads
+/// back to the same names and `rejects.csv` can be ingested again.
+fn guarded(s: &str) -> std::borrow::Cow<'_, str> {
+    if s.starts_with(['=', '+', '-', '@', '\'']) {
+        quoted(&format!("'{s}")).into_owned().into()
+    } else {
+        quoted(s)
+    }
+}
+
 /// Writes one line.
 ///
 /// # Errors
@@ -673,8 +691,8 @@ pub fn write_line(
         out,
         "{},{},{},{},{},{},{},{},{},{},{},{},{},{}",
         time::format_ms(measured_ms),
-        quoted(station),
-        quoted(batch),
+        guarded(station),
+        guarded(batch),
         r.unit_id,
         r.seq,
         r.clock_hz,
@@ -739,6 +757,28 @@ mod tests {
             got,
             vec![(1_800_000_000_250, "bay, 2".into(), "B\"7".into(), rec()), (0, "s".into(), String::new(), r2)]
         );
+        Ok(())
+    }
+
+    /// Names a spreadsheet would run as formulas are written behind an
+    /// apostrophe and read back as they were (a name that starts with an
+    /// apostrophe too).
+    #[test]
+    fn formula_names_are_guarded_and_read_back() -> Result<(), LogError> {
+        let names = ["=HYPERLINK(\"http://x\",\"y\")", "+1", "-east", "@SUM(A1)", "'quoted", "plain"];
+        let mut out = Vec::new();
+        let _ = write_header(&mut out);
+        for n in names {
+            let _ = write_line(&mut out, 0, n, n, &rec());
+        }
+        let text = String::from_utf8_lossy(&out).into_owned();
+        for line in text.lines().skip(1).take(5) {
+            let cells: Vec<&str> = line.split(',').collect();
+            let station = cells.get(1).copied().unwrap_or_default().trim_start_matches('"');
+            assert!(station.starts_with('\''), "{line}");
+        }
+        let got: Vec<String> = parse_all(&text)?.into_iter().map(|g| g.1).collect();
+        assert_eq!(got, names.map(String::from));
         Ok(())
     }
 

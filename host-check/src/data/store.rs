@@ -431,6 +431,86 @@ fn into_wal(conn: &Connection) -> Result<(), String> {
     }
 }
 
+/// A file URI for SQLite (RFC 8089 form, the path percent-encoded where it
+/// must be), `immutable` to read a file that nothing will change.
+fn file_uri(path: &Path, immutable: bool) -> String {
+    use std::fmt::Write as _;
+    let mut uri = String::from("file:");
+    for b in path.to_string_lossy().bytes() {
+        if b.is_ascii_alphanumeric() || b"/-._~".contains(&b) {
+            uri.push(char::from(b));
+        } else {
+            let _ = write!(uri, "%{b:02X}");
+        }
+    }
+    if immutable {
+        uri.push_str("?immutable=1");
+    }
+    uri
+}
+
+/// A read-only connection to `path` (with `flags` added). A WAL store on a
+/// read-only mount cannot get its shared-memory file: it is then read as an
+/// unchanging file (SQLite's `immutable`), which it is there.
+fn read_only(path: &Path, flags: rusqlite::OpenFlags) -> Result<Connection, StoreError> {
+    let flags = flags | rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_URI;
+    let open = |immutable: bool| -> Result<Connection, rusqlite::Error> {
+        let conn = Connection::open_with_flags(file_uri(path, immutable), flags)?;
+        conn.busy_timeout(BUSY_WAIT)?;
+        // The first read is where a missing shared-memory file shows.
+        conn.query_row("SELECT count(*) FROM sqlite_master", [], |r| r.get::<_, i64>(0))?;
+        Ok(conn)
+    };
+    match open(false) {
+        Ok(c) => Ok(c),
+        Err(e)
+            if matches!(
+                e.sqlite_error_code(),
+                Some(rusqlite::ErrorCode::CannotOpen | rusqlite::ErrorCode::ReadOnly)
+            ) =>
+        {
+            open(true).map_err(|e| se(path, format!("cannot open: {e}")))
+        }
+        Err(e) if e.sqlite_error_code() == Some(rusqlite::ErrorCode::NotADatabase) => {
+            Err(se(path, format!("not a database rchold can use: {e}; the file was left unchanged")))
+        }
+        Err(e) => Err(se(path, format!("cannot open: {e}"))),
+    }
+}
+
+/// Checks that `conn` is an rchold store this build can use, or a new empty
+/// database, before anything is written: returns its schema version.
+///
+/// # Errors
+/// Not an SQLite database, a database with tables that are not rchold's, or
+/// a schema newer than this build's; each says the file was left unchanged.
+fn check_ours(conn: &Connection, path: &Path) -> Result<u32, StoreError> {
+    let unchanged = "the file was left unchanged";
+    // One statement: one snapshot, whatever another connection creating the store commits meanwhile.
+    let (version, tables, ours): (u32, i64, i64) = conn
+        .query_row(
+            "SELECT (SELECT user_version FROM pragma_user_version), count(*), \
+             count(*) FILTER (WHERE name IN ('setup', 'source', 'station')) FROM sqlite_master \
+             WHERE type = 'table' AND name NOT LIKE 'sqlite_%'",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+        )
+        .map_err(|e| se(path, format!("not a database rchold can use: {e}; {unchanged}")))?;
+    if version > SCHEMA_VERSION {
+        return Err(se(
+            path,
+            format!(
+                "schema version {version} was written by a newer rchold (this one knows 0 … {SCHEMA_VERSION}); {unchanged}"
+            ),
+        ));
+    }
+    let empty = version == 0 && tables == 0;
+    if !empty && (version == 0 || ours < 3) {
+        return Err(se(path, format!("not an rchold store (its tables are not rchold's); {unchanged}")));
+    }
+    Ok(version)
+}
+
 fn u64_sql(v: u64) -> i64 {
     // Ticks beyond 2^63 cannot come from a u32 clock in any plausible run;
     // they are stored saturated rather than wrapped.
@@ -448,6 +528,9 @@ impl Store {
         let err = |m: String| StoreError { path: path.to_path_buf(), message: m };
         let conn = Connection::open(path).map_err(|e| err(format!("cannot open: {e}")))?;
         conn.busy_timeout(BUSY_WAIT).map_err(|e| err(e.to_string()))?;
+        // Ours and not newer, before anything is written (a foreign or newer
+        // file stays byte for byte as it was).
+        check_ours(&conn, path)?;
         // Larger pages for a new file (ignored once the file has tables): fewer
         // B-tree levels and splits per row, less space per row.
         let page = PAGE_SIZE;
@@ -462,11 +545,14 @@ impl Store {
         Ok(store)
     }
 
-    /// Opens an existing store (for the reports, which should not leave an
-    /// empty database behind when the path is mistyped).
+    /// Opens an existing store for the reports: read-only (it works on a
+    /// read-only mount and writes nothing: a mistyped path leaves no empty
+    /// database behind, a foreign or newer file is refused unchanged). A
+    /// store of an older schema is migrated first, the one write a report
+    /// makes, to a file that is ours.
     ///
     /// # Errors
-    /// The file does not exist, and as [`Store::open`].
+    /// The file does not exist, is not an rchold store, or is newer.
     pub fn open_existing(path: &Path) -> Result<Store, StoreError> {
         if !path.is_file() {
             return Err(StoreError {
@@ -474,7 +560,14 @@ impl Store {
                 message: "no such store (make one with `rchold listen` or `rchold ingest`, or give --db)".into(),
             });
         }
-        Store::open(path)
+        let conn = read_only(path, rusqlite::OpenFlags::empty())?;
+        let version = check_ours(&conn, path)?;
+        if version < SCHEMA_VERSION {
+            drop(conn);
+            return Store::open(path);
+        }
+        conn.execute_batch("PRAGMA cache_size = -65536;").map_err(|e| se(path, e))?;
+        Ok(Store { conn, path: path.to_path_buf() })
     }
 
     fn err(&self, e: impl std::fmt::Display) -> StoreError {
@@ -740,9 +833,7 @@ impl Store {
     /// The file cannot be opened.
     pub fn open_reader(path: &Path) -> Result<Store, StoreError> {
         // One connection per thread: no locking inside SQLite.
-        let flags = rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX;
-        let conn = Connection::open_with_flags(path, flags).map_err(|e| se(path, format!("cannot open: {e}")))?;
-        conn.busy_timeout(BUSY_WAIT).map_err(|e| se(path, e))?;
+        let conn = read_only(path, rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX)?;
         Ok(Store { conn, path: path.to_path_buf() })
     }
 
@@ -1781,8 +1872,61 @@ pub(crate) mod tests {
             conn.pragma_update(None, "user_version", 99)
                 .map_err(|e| StoreError { path: path.clone(), message: e.to_string() })?;
         }
+        let before = std::fs::read(&path).map_err(|e| se(&path, e))?;
         let e = Store::open(&path).err().map(|e| e.to_string()).unwrap_or_default();
-        assert!(e.contains("newer rchold") && e.contains("new.db"), "{e}");
+        assert!(e.contains("newer rchold") && e.contains("new.db") && e.contains("left unchanged"), "{e}");
+        let e = Store::open_existing(&path).err().map(|e| e.to_string()).unwrap_or_default();
+        assert!(e.contains("newer rchold"), "{e}");
+        // Not switched to WAL, not written at all.
+        assert_eq!(std::fs::read(&path).map_err(|e| se(&path, e))?, before);
+        assert!(!dir.path().join("new.db-wal").exists());
+        Ok(())
+    }
+
+    /// Another program's SQLite file: once `sources` added seven tables to it
+    /// and switched it to WAL. Now every way in refuses it and leaves it
+    /// byte for byte as it was; an rchold store is read by the reports
+    /// without a byte of it changing.
+    #[test]
+    fn foreign_files_are_refused_unchanged_and_reports_write_nothing() -> Result<(), StoreError> {
+        let dir = tempfile::tempdir().map_err(|e| se(Path::new("tempdir"), e))?;
+        let path = dir.path().join("inventory.db");
+        {
+            let conn = Connection::open(&path).map_err(|e| se(&path, e))?;
+            conn.execute_batch(
+                "CREATE TABLE part (id INTEGER PRIMARY KEY, name TEXT); INSERT INTO part VALUES (1, 'R7');",
+            )
+            .map_err(|e| se(&path, e))?;
+        }
+        let before = std::fs::read(&path).map_err(|e| se(&path, e))?;
+        for e in [Store::open(&path).err(), Store::open_existing(&path).err()] {
+            let m = e.map(|e| e.to_string()).unwrap_or_default();
+            assert!(m.contains("not an rchold store") && m.contains("left unchanged"), "{m}");
+        }
+        assert_eq!(std::fs::read(&path).map_err(|e| se(&path, e))?, before);
+        assert!(!dir.path().join("inventory.db-wal").exists());
+        // Not a database at all.
+        let text = dir.path().join("notes.db");
+        std::fs::write(&text, "not a database, just notes\n".repeat(200)).map_err(|e| se(&text, e))?;
+        let m = Store::open_existing(&text).err().map(|e| e.to_string()).unwrap_or_default();
+        assert!(m.contains("not a database rchold can use"), "{m}");
+        // A store of ours, read by a report: unchanged.
+        let ours = dir.path().join("ours.db");
+        {
+            let mut s = Store::open(&ours)?;
+            let mut b = s.batch()?;
+            let src = b.begin_log("x", 0)?;
+            let st = b.station("bay-1")?;
+            b.insert(st, "", 0, &record(1, 1), None, src)?;
+            b.commit(src, 0, 0)?;
+        }
+        let before = std::fs::read(&ours).map_err(|e| se(&ours, e))?;
+        {
+            let s = Store::open_existing(&ours)?;
+            assert_eq!((s.count()?, s.sources()?.len()), (1, 1));
+        }
+        assert_eq!(std::fs::read(&ours).map_err(|e| se(&ours, e))?, before);
+        assert!(file_uri(Path::new("/a b/c?d#e%.db"), true).starts_with("file:/a%20b/c%3Fd%23e%25.db?immutable=1"));
         Ok(())
     }
 

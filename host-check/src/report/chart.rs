@@ -366,7 +366,7 @@ impl DateAxis {
     fn label(self, x: f64) -> String {
         match self {
             DateAxis::Months => month_label(x),
-            DateAxis::Days if (x - x.round()).abs() < 1e-6 => time::date_of(x.round() as i64 * DAY_MS),
+            DateAxis::Days if (x - x.round()).abs() < 1e-6 => time::date_of((x.round() as i64).saturating_mul(DAY_MS)),
             DateAxis::Days => {
                 let t = time::format_ms((x * DAY_MS as f64).round() as i64);
                 format!("{} {}", t.get(..10).unwrap_or(""), t.get(11..16).unwrap_or(""))
@@ -385,6 +385,8 @@ pub fn trend(t: &Trend<'_>) -> String {
             .flat_map(|s| s.points.iter().map(|p| p.0))
             .chain(t.bands.iter().flat_map(|b| [b.from_ms, b.to_ms]));
         let (first, last) = all_ms.fold((i64::MAX, i64::MIN), |(a, b), x| (a.min(x), b.max(x)));
+        // No points (a store without field units): an empty day at the epoch, not a span of ±2^63 ms.
+        let (first, last) = if first > last { (0, DAY_MS) } else { (first, last) };
         let axis = DateAxis::for_span(last.saturating_sub(first));
         let (x0, x1) = ok_range(axis.x(first), axis.x(last));
         let ys = t.series.iter().flat_map(|s| s.points.iter().map(|p| p.1)).chain(t.levels.iter().map(|m| m.at));
@@ -558,6 +560,14 @@ mod tests {
         assert!(s.contains("bay &lt;1&gt;"), "{s}");
         assert!(s.contains("600.0 ms") || s.contains("700.0 ms"));
         assert!(count(&s, "<rect") >= 5);
+    }
+
+    /// A trend with nothing in it (`report` on a store without field units)
+    /// overflowed an i64 labelling an axis from −2^63 to 2^63 ms.
+    #[test]
+    fn an_empty_trend_draws() {
+        let s = trend(&Trend { title: "fleet", y_desc: "C/C0", series: &[], levels: &[], bands: &[] });
+        assert!(s.starts_with("<svg") && s.contains("1970-01-01"), "{s}");
     }
 
     #[test]

@@ -13,12 +13,18 @@ use crate::report::aging::{self, FleetReport, UnitTrend};
 use crate::report::yields::{self, Tally, YieldReport};
 use crate::Error;
 
-/// A folder of report files, and what was written into it.
+/// A folder of report files, and what was written into it. Files are
+/// written under temporary names and take their names together at
+/// [`ReportDir::commit`]: a report that fails half-way leaves the folder's
+/// earlier files as they were (a dropped, uncommitted folder removes its
+/// temporary files).
 #[derive(Debug)]
 pub struct ReportDir {
     dir: PathBuf,
-    /// Files written, in order.
+    /// Files written (under their final names once committed), in order.
     pub files: Vec<PathBuf>,
+    /// (temporary, final) names not yet committed.
+    staged: Vec<(PathBuf, PathBuf)>,
 }
 
 /// The charts of a yield report: one hold histogram per station, and per
@@ -49,24 +55,50 @@ impl ReportDir {
     /// [`Error::Io`] when it cannot be created.
     pub fn create(dir: &Path) -> Result<ReportDir, Error> {
         std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
-        Ok(ReportDir { dir: dir.to_path_buf(), files: Vec::new() })
+        Ok(ReportDir { dir: dir.to_path_buf(), files: Vec::new(), staged: Vec::new() })
     }
 
-    /// The path of `name` in the folder.
+    /// The path `name` will have in the folder.
     #[must_use]
     pub fn path(&self, name: &str) -> PathBuf {
         self.dir.join(name)
     }
 
-    /// Writes one file.
+    /// Stages `name`: its temporary path, renamed to `name` on commit.
+    fn stage(&mut self, name: &str) -> PathBuf {
+        let tmp = self.dir.join(format!(".{name}.{}.partial", std::process::id()));
+        self.staged.push((tmp.clone(), self.dir.join(name)));
+        self.files.push(self.dir.join(name));
+        tmp
+    }
+
+    /// Writes one file (under a temporary name until [`ReportDir::commit`]).
     ///
     /// # Errors
     /// [`Error::Io`] naming the file.
     pub fn put(&mut self, name: &str, text: &str) -> Result<(), Error> {
-        let p = self.dir.join(name);
-        std::fs::write(&p, text).map_err(|e| Error::io(&p, e))?;
-        self.files.push(p);
-        Ok(())
+        let tmp = self.stage(name);
+        std::fs::write(&tmp, text).map_err(|e| Error::io(self.dir.join(name), e))
+    }
+
+    /// A file to stream `name` into (under a temporary name until [`ReportDir::commit`]).
+    ///
+    /// # Errors
+    /// [`Error::Io`] naming the file.
+    pub fn create_file(&mut self, name: &str) -> Result<std::fs::File, Error> {
+        let tmp = self.stage(name);
+        std::fs::File::create(&tmp).map_err(|e| Error::io(self.dir.join(name), e))
+    }
+
+    /// Gives every staged file its name. Returns the files.
+    ///
+    /// # Errors
+    /// [`Error::Io`] naming a file that could not be renamed.
+    pub fn commit(mut self) -> Result<Vec<PathBuf>, Error> {
+        for (tmp, name) in std::mem::take(&mut self.staged) {
+            std::fs::rename(&tmp, &name).map_err(|e| Error::io(&name, e))?;
+        }
+        Ok(std::mem::take(&mut self.files))
     }
 
     /// `yield.txt` (`rows` per table), `hold-STATION.svg` per station, and
@@ -111,6 +143,14 @@ impl ReportDir {
             charts.units.push(svg);
         }
         Ok(charts)
+    }
+}
+
+impl Drop for ReportDir {
+    fn drop(&mut self) {
+        for (tmp, _) in &self.staged {
+            let _ = std::fs::remove_file(tmp);
+        }
     }
 }
 
@@ -319,7 +359,7 @@ pub fn store_report(
     let mut out = ReportDir::create(dir)?;
     let setups: HashMap<i64, Setup> = store.setups()?;
     let rejects_path = out.path("rejects.csv");
-    let rej = std::fs::File::create(&rejects_path).map_err(|e| Error::io(&rejects_path, e))?;
+    let rej = out.create_file("rejects.csv")?;
     let mut tally = Tally::new(&setups, true, Some(Box::new(std::io::BufWriter::new(rej))));
     let mut fleet = FleetTally::new(&setups);
     each_record(store, filter, |station, s, role| {
@@ -331,14 +371,13 @@ pub fn store_report(
         }
     })?;
     let y = tally.finish().map_err(|e| Error::io(&rejects_path, e))?;
-    out.files.push(rejects_path);
     let f = fleet.finish(limit_ratio, horizon_months);
     let yc = out.yields(&y, 40)?;
     let units: Vec<&UnitTrend> = needing_attention(&f).into_iter().take(12).collect();
     let ac = out.aging(&f, 40, &units)?;
     let html = crate::report::html::page(&y, &f, &store.sources()?, &yc, &ac);
     out.put("report.html", &html)?;
-    Ok((y, f, out.files))
+    Ok((y, f, out.commit()?))
 }
 
 #[cfg(test)]
@@ -360,7 +399,16 @@ mod tests {
         let dir = tempfile::tempdir().map_err(|e| Error::io("tempdir", e))?;
         let mut out = ReportDir::create(&dir.path().join("r"))?;
         out.put("a.txt", "x")?;
-        assert_eq!(out.files, vec![dir.path().join("r").join("a.txt")]);
+        assert!(!dir.path().join("r").join("a.txt").exists(), "named only on commit");
+        assert_eq!(out.commit()?, vec![dir.path().join("r").join("a.txt")]);
+        assert_eq!(std::fs::read_to_string(dir.path().join("r").join("a.txt")).ok().as_deref(), Some("x"));
+        // A report that fails half-way: the earlier file stays, no temporary file is left.
+        let mut out = ReportDir::create(&dir.path().join("r"))?;
+        out.put("a.txt", "y")?;
+        drop(out);
+        assert_eq!(std::fs::read_to_string(dir.path().join("r").join("a.txt")).ok().as_deref(), Some("x"));
+        let left = std::fs::read_dir(dir.path().join("r")).map(|d| d.count()).unwrap_or(0);
+        assert_eq!(left, 1);
         std::fs::write(dir.path().join("file"), "").map_err(|e| Error::io("file", e))?;
         let e = ReportDir::create(&dir.path().join("file").join("sub")).err().map(|e| e.kind());
         assert_eq!(e, Some(crate::Kind::Environment));

@@ -90,7 +90,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     if let Some(out) = &a.out {
         let units: Vec<&UnitTrend> =
             if a.unit.is_some() { report.units.iter().collect() } else { needing_attention(&report) };
-        ReportDir::create(out)?.aging(&report, a.rows, &units)?;
+        let mut d = ReportDir::create(out)?;
+        d.aging(&report, a.rows, &units)?;
+        d.commit()?;
     }
     finish(&a, &report)
 }

@@ -99,11 +99,8 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let floor = a.alert_below.as_deref().map(|t| fraction("alert-below", t, 0.0, 1.0, "0 % to 100 %")).transpose()?;
     a.setup.setup()?;
     let mut dir = a.out.as_deref().map(ReportDir::create).transpose()?;
-    let reject_log: RejectLog = match &dir {
-        Some(d) => {
-            let p = d.path("rejects.csv");
-            Some(Box::new(std::io::BufWriter::new(std::fs::File::create(&p).map_err(|e| Error::io(&p, e))?)))
-        }
+    let reject_log: RejectLog = match &mut dir {
+        Some(d) => Some(Box::new(std::io::BufWriter::new(d.create_file("rejects.csv")?))),
         None => None,
     };
     let report = if let Some(dir) = &a.parquet {
@@ -117,8 +114,9 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     } else {
         from_logs(&a, &filter, reject_log)?
     };
-    if let Some(d) = &mut dir {
+    if let Some(mut d) = dir {
         d.yields(&report, a.rows)?;
+        d.commit()?;
     }
     if a.json {
         emit_json(&report)?;
