@@ -393,22 +393,40 @@ fn every_command_refuses_alike() {
         .replace("diode = { drop = \"0.6\" }", "diode = { drop = \"1.0\" }")
         .replace("c = \"10%\"", "c = \"10%\"\nvdd = \"10%\"");
     write(dir.path(), "edge.toml", &edge);
-    let commands: [&[&str]; 5] = [
+    // A tempco that drives C through zero at the hot end (−3 %/°C over 35 °C), and an
+    // aging that loses all of C: once only the commands whose window reached those
+    // corners refused them (eval exit 0, spread and window 2), naming the nominal key.
+    let hot = format!("{GOOD}\n[environment]\ntemp_min = \"-25\"\ntemp_max = \"60\"\nc_tempco = \"-30000\"\n");
+    write(dir.path(), "hot.toml", &hot);
+    let old = format!(
+        "{GOOD}\n[aging]\nkind = \"class2\"\nloss_per_decade = \"60%\"\nref_hours = \"1000\"\nhours = \"87600\"\n"
+    );
+    write(dir.path(), "old.toml", &old);
+    let commands: [&[&str]; 6] = [
         &["eval"],
         &["window", "--clock", "1MHz"],
         &["spread", "--samples", "100"],
         &["timer-vs-rc", "--clock", "1M", "--clock-tolerance", "1%"],
         &["curve", "--plot", "c.svg"],
+        &["coverage"],
     ];
-    for (file, code, key) in [("wide.toml", 2, "tolerance.c"), ("flat.toml", 1, ""), ("edge.toml", 1, "tolerance.vdd")]
-    {
+    for (file, code, key) in [
+        ("wide.toml", 2, "tolerance.c"),
+        ("flat.toml", 1, ""),
+        ("edge.toml", 1, "tolerance.vdd"),
+        ("hot.toml", 2, "environment.c_tempco: at the corner"),
+        ("old.toml", 2, "aging.loss_per_decade: at the corner"),
+    ] {
         for cmd in commands {
             let mut args = vec![cmd[0], file];
             args.extend_from_slice(&cmd[1..]);
             let out = run(dir.path(), &args);
             let err = text(&out.stderr);
             assert_eq!(out.status.code(), Some(code), "{args:?}: {err}");
-            if code == 2 || cmd[0] != "eval" {
+            if file == "hot.toml" {
+                assert!(err.contains("at 60.0 °C: -105.0 %"), "{args:?}: {err}");
+            }
+            if code == 2 || (cmd[0] != "eval" && cmd[0] != "coverage") {
                 assert_eq!(err.lines().count(), 1, "{args:?}: {err}");
                 assert!(err.contains(file) && err.contains(key), "{args:?}: {err}");
             }

@@ -477,7 +477,7 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         None => (None, None),
     };
     spread.aging = aging;
-    Ok(StageFile {
+    let sf = StageFile {
         path: path.to_path_buf(),
         name: raw.name.map(Spanned::into_inner),
         stage,
@@ -488,7 +488,9 @@ pub fn parse(path: &Path, text: &str) -> Result<StageFile, StageFileError> {
         rated_life,
         fixture_temp_mdeg_c,
         spec_s,
-    })
+    };
+    sf.check_corners()?;
+    Ok(sf)
 }
 
 /// A family's threshold bands as the spread's threshold corners: separate
@@ -814,18 +816,58 @@ impl StageFile {
         }
     }
 
+    /// Every corner of the file's widest spread (the field's: tolerances,
+    /// environment, aging) lies in the model's domain, checked when the file
+    /// is read: a tolerance, tempco or aging that pushes a corner out is
+    /// refused by every command alike (exit 2), not only by those whose
+    /// window reaches that corner. (Whether the stage *works* at a corner is
+    /// each window's question: exit 1 there.)
+    fn check_corners(&self) -> Result<(), StageFileError> {
+        let spread = self.spread_for(Purpose::Field);
+        let active = spread.active();
+        let mut high: u16 = 0;
+        loop {
+            let corner = Corner { high, active };
+            if let Err(error @ rc_model::Error::OutOfDomain(_)) =
+                spread.at_corner(&self.stage, corner).and_then(|s| s.check())
+            {
+                return Err(self.corner_error(&CornerFailure { corner, error }));
+            }
+            if high == active {
+                return Ok(());
+            }
+            high = high.wrapping_sub(active) & active;
+        }
+    }
+
     /// How every command refuses a corner that fails: the message names the
     /// tolerance, tempco or aging keys that move the failing quantity to
     /// that corner, the corner and the quantity's value there. The exit code
     /// is that of [`StageFile::refusal`] for the same error.
     #[must_use]
     pub fn corner_refusal(&self, f: &CornerFailure) -> crate::Error {
-        let keys = self.corner_keys(f.corner, f.error);
-        let value = match f.error {
-            rc_model::Error::OutOfDomain(q) => {
-                self.spread.at_corner(&self.stage, f.corner).ok().and_then(|s| quantity_text(q, &s))
+        let err = self.corner_error(f);
+        match self.refusal(f.error) {
+            crate::Error::StageFails(_) => crate::Error::StageFails(err.to_string()),
+            _ => crate::Error::StageFile(err),
+        }
+    }
+
+    /// The one-line error of a failing corner (see [`StageFile::corner_refusal`]).
+    fn corner_error(&self, f: &CornerFailure) -> StageFileError {
+        let (keys, value) = match (f.error, self.pushed_through_zero(f.corner)) {
+            (rc_model::Error::OutOfDomain(Quantity::Tolerance), Some((key, value))) => {
+                (vec![key.to_owned()], Some(value))
             }
-            _ => None,
+            _ => {
+                let value = match f.error {
+                    rc_model::Error::OutOfDomain(q) => {
+                        self.spread.at_corner(&self.stage, f.corner).ok().and_then(|s| quantity_text(q, &s))
+                    }
+                    _ => None,
+                };
+                (self.corner_keys(f.corner, f.error), value)
+            }
         };
         let message = format!(
             "at the corner {}{}: {}",
@@ -834,11 +876,82 @@ impl StageFile {
             f.error
         );
         let line = keys.first().and_then(|k| self.origins.line_of(k));
-        let err = StageFileError { file: self.path.clone(), line, key: Some(keys.join(", ")), message };
-        match self.refusal(f.error) {
-            crate::Error::StageFails(_) => crate::Error::StageFails(err.to_string()),
-            _ => crate::Error::StageFile(err),
-        }
+        StageFileError { file: self.path.clone(), line, key: Some(keys.join(", ")), message }
+    }
+
+    /// The coefficient that drives a value through zero at `corner` (the
+    /// model says only "tolerance"): found by taking each tempco, and the
+    /// aging, out in turn until the corner is back in the domain. Its key and
+    /// what it amounts to there.
+    fn pushed_through_zero(&self, corner: Corner) -> Option<(&'static str, String)> {
+        use rc_model::window::Param;
+        let spread = self.spread_for(Purpose::Field);
+        let fine = |s: &Spread| s.at_corner(&self.stage, corner).and_then(|st| st.check()).is_ok();
+        let temp = corner.sides().find(|(p, _)| *p == Param::Temp).and_then(|(_, high)| {
+            let (lo, hi) = spread.temp_mdeg_c?;
+            Some(if high { hi } else { lo })
+        });
+        let tc = spread.tempco;
+        let at = |t: i32| format!("at {:.1} °C", f64::from(t) / 1e3);
+        let change = |ppm: i32, t: i32| f64::from(ppm) * f64::from(t - spread.ref_mdeg_c) / 1e7;
+        let candidates: [(&'static str, Spread, String); 5] = [
+            (
+                "aging",
+                Spread { aging: None, ..spread },
+                "the capacitance lost by the end of the aging horizon".to_owned(),
+            ),
+            (
+                "environment.c_tempco",
+                Spread { tempco: rc_model::window::Tempco { c_ppm_per_c: 0, ..tc }, ..spread },
+                temp.map_or_else(String::new, |t| {
+                    format!(
+                        "{} ppm/°C {}: {:+.1} % (accepted: above −100 %)",
+                        tc.c_ppm_per_c,
+                        at(t),
+                        change(tc.c_ppm_per_c, t)
+                    )
+                }),
+            ),
+            (
+                "environment.r_tempco",
+                Spread { tempco: rc_model::window::Tempco { r_ppm_per_c: 0, ..tc }, ..spread },
+                temp.map_or_else(String::new, |t| {
+                    format!(
+                        "{} ppm/°C {}: {:+.1} % (accepted: above −100 %)",
+                        tc.r_ppm_per_c,
+                        at(t),
+                        change(tc.r_ppm_per_c, t)
+                    )
+                }),
+            ),
+            (
+                "environment.drop_tempco",
+                Spread { tempco: rc_model::window::Tempco { drop_uv_per_c: 0, ..tc }, ..spread },
+                temp.map_or_else(String::new, |t| format!("{} mV/°C {}", f64::from(tc.drop_uv_per_c) / 1e3, at(t))),
+            ),
+            (
+                "environment.threshold_tempco",
+                Spread { tempco: rc_model::window::Tempco { threshold_ppm_per_c: 0, ..tc }, ..spread },
+                temp.map_or_else(String::new, |t| format!("{} ppm/°C {}", tc.threshold_ppm_per_c, at(t))),
+            ),
+        ];
+        let (key, _, value) = candidates.into_iter().find(|(_, s, _)| fine(s))?;
+        // Aging: the key the file gave that sets the loss.
+        let key = if key == "aging" {
+            ["aging.loss_per_decade", "aging.loss", "aging.hours"]
+                .into_iter()
+                .find(|k| self.origins.line_of(k).is_some())
+                .unwrap_or(key)
+        } else {
+            key
+        };
+        let value = match (key, spread.aging.map(|a| a.remaining_ppm())) {
+            (k, Some(Err(_))) if k.starts_with("aging") => {
+                "the capacitance lost by the end of the aging horizon: 100 % or more (accepted: below 100 %)".to_owned()
+            }
+            _ => value,
+        };
+        Some((key, value))
     }
 
     /// The keys of the file that move the quantity of `error` at `corner`
