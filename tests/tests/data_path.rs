@@ -336,3 +336,100 @@ fn parallel_log_reading_matches_one_piece() {
         assert!(e.contains("p.csv:17001: clock_hz: \"1000000x\" is not a whole number"), "{threads} threads: {e}");
     }
 }
+
+/// What was done to one frame of the soak stream.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Damage {
+    BitFlip,
+    DropByte,
+    InsertByte,
+    DropDelimiter,
+    InsertDelimiter,
+    Truncate,
+}
+
+/// The soak: 10^6 frames through `listen` with 1 % of them corrupted (bit
+/// flips, dropped and inserted bytes, dropped and inserted delimiters,
+/// truncation), seeded. No wrong record is stored; every frame whose bytes and
+/// delimiters arrived intact is stored (the reader is back in step at the
+/// next delimiter after any damage); and the accounting balances by its rule:
+/// every run of bytes between two delimiters (or before the end) counts once,
+/// as a record or as a bad frame — so a dropped delimiter costs two records
+/// and one bad frame, an inserted one costs one record and two bad frames.
+#[test]
+fn soak_a_million_frames_with_one_percent_damaged() {
+    use rand::{Rng, SeedableRng};
+    const FRAMES: u32 = 1_000_000;
+    let soak = |i: u32| Record { temp_mdeg_c: Some(-5_000 + (i % 90_000) as i32), ..rec(i) };
+    let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(20_261_202);
+    let kinds = [
+        Damage::BitFlip,
+        Damage::DropByte,
+        Damage::InsertByte,
+        Damage::DropDelimiter,
+        Damage::InsertDelimiter,
+        Damage::Truncate,
+    ];
+    let mut bytes = Vec::with_capacity(FRAMES as usize * 32);
+    let mut intact = vec![true; FRAMES as usize];
+    let mut done = [0u32; 6];
+    for i in 0..FRAMES {
+        let mut f = record::encode(&soak(i)).map(|f| f.to_vec()).unwrap_or_default();
+        if rng.random_bool(0.01) {
+            let k = rng.random_range(0..kinds.len());
+            done[k] += 1;
+            let body = f.len() - 1; // the last byte is the delimiter
+            let at = rng.random_range(0..body);
+            match kinds[k] {
+                Damage::BitFlip => f[at] ^= 1 << rng.random_range(0..8),
+                Damage::DropByte => drop(f.remove(at)),
+                Damage::InsertByte => f.insert(at, rng.random_range(1..=255)),
+                Damage::DropDelimiter => {
+                    f.pop();
+                    // Merged with the next frame: both lost.
+                    if let Some(next) = intact.get_mut(i as usize + 1) {
+                        *next = false;
+                    }
+                }
+                Damage::InsertDelimiter => f.insert(at.max(1), 0),
+                Damage::Truncate => {
+                    f.truncate(at.max(1));
+                    f.push(0);
+                }
+            }
+            intact[i as usize] = false;
+        }
+        bytes.extend_from_slice(&f);
+    }
+    let runs = bytes.split(|&b| b == 0).filter(|r| !r.is_empty()).count() as u64;
+    let dir = tmp();
+    let mut store = Store::open(&dir.path().join("soak.db")).unwrap_or_else(|e| panic!("{e}"));
+    let got =
+        collect::listen(&mut store, "soak", collect::Input::once(Cursor::new(bytes)), &labels(), |_| {}, || false)
+            .unwrap_or_else(|e| panic!("{e}"));
+    let mut wrong = 0u64;
+    let mut stored = vec![false; FRAMES as usize];
+    store
+        .for_each(&Filter::default(), |s| {
+            let i = s.record.seq;
+            let ok = i < FRAMES && s.record == soak(i) && s.measured_ms == i64::from(i) * 1_000;
+            wrong += u64::from(!ok);
+            if let Some(x) = stored.get_mut(i as usize) {
+                *x = ok;
+            }
+        })
+        .unwrap_or_else(|e| panic!("{e}"));
+    assert_eq!(wrong, 0, "wrong records stored");
+    let lost_intact = (0..FRAMES as usize).filter(|&i| intact[i] && !stored[i]).count();
+    assert_eq!(lost_intact, 0, "intact frames not stored");
+    let refused: u64 = got.refused.values().sum();
+    assert_eq!(got.counts.records, got.stored + got.duplicates + refused);
+    assert_eq!(got.counts.records + got.counts.bad_frames, runs, "the accounting rule");
+    let damaged = u64::from(done.iter().sum::<u32>());
+    assert!((9_000..11_000).contains(&damaged), "{damaged} frames damaged: {done:?}");
+    assert!(done.iter().all(|&n| n > 1_000), "every kind of damage: {done:?}");
+    eprintln!(
+        "soak: {} frames, {damaged} damaged {done:?}; {} stored, {} bad frames, {} byte runs",
+        FRAMES, got.stored, got.counts.bad_frames, runs
+    );
+}
