@@ -31,6 +31,9 @@ RUSTDOCFLAGS="-D warnings" cargo doc -q --workspace --no-deps
 step "tests"
 cargo test --workspace
 
+step "the whole input space (any u32/u64/i32) of the model and the firmware engine, under release-checked"
+cargo test -q --profile release-checked -p rc-model -p hold-firmware
+
 step "the shipped SQL on Spark and DataFusion agrees with rchold (a synthetic fleet of 10^6 records)"
 RCHOLD_PROFILE=dev bash benches/fleet_on_engines.sh 10000 100
 

@@ -297,7 +297,7 @@ fn tempco_scale(v: u64, coeff_ppm_per_c: i32, delta_mdeg: i64) -> Result<u64, Er
 }
 
 fn offset_u32(v: u32, delta: i64) -> Result<u32, Error> {
-    u32::try_from(i64::from(v) + delta).map_err(|_| Error::OutOfDomain(Quantity::Tolerance))
+    i64::from(v).checked_add(delta).and_then(|x| u32::try_from(x).ok()).ok_or(Error::OutOfDomain(Quantity::Tolerance))
 }
 
 impl Spread {
@@ -421,11 +421,18 @@ impl Spread {
         s.temp_mdeg_c = temp_mdeg_c;
         s.r_mohm = tempco_scale(s.r_mohm, self.tempco.r_ppm_per_c, delta)?;
         s.c_ff = tempco_scale(s.c_ff, self.tempco.c_ppm_per_c, delta)?;
+        // In i128: any i32 coefficient times any Δ (|Δ| < 2^33 m°C) is below
+        // 2^64, times any supply below 2^96; a shift that leaves i64 is refused.
+        // (In the domain — |Δ| ≤ 205 °C, the coefficients the stage file
+        // accepts — every product fits i64 and the result is the same.)
+        let wide = |v: i128| i64::try_from(v).map_err(|_| Error::OutOfDomain(Quantity::Tolerance));
         if let Diode::Drop { drop_uv } = s.diode {
-            let d = i64::from(self.tempco.drop_uv_per_c) * delta / 1000;
+            let d = wide(i128::from(self.tempco.drop_uv_per_c) * i128::from(delta) / 1000)?;
             s.diode = Diode::Drop { drop_uv: offset_u32(drop_uv, d)? };
         }
-        let shift = i64::from(self.tempco.threshold_ppm_per_c) * delta / 1000 * i64::from(s.vdd_uv) / 1_000_000;
+        let shift = wide(
+            i128::from(self.tempco.threshold_ppm_per_c) * i128::from(delta) / 1000 * i128::from(s.vdd_uv) / 1_000_000,
+        )?;
         s.rise_uv = offset_u32(s.rise_uv, shift)?;
         s.fall_uv = offset_u32(s.fall_uv, shift)?;
         Ok(s)
