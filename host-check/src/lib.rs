@@ -4,6 +4,7 @@ pub mod data;
 pub mod design;
 pub mod error;
 pub mod fmt;
+pub mod guard;
 pub mod input;
 pub mod par;
 pub mod reference;

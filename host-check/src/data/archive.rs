@@ -610,7 +610,9 @@ fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>, Er
         |m: &dyn std::fmt::Display| Error::Input(format!("{}: not a readable Parquet file: {m}", path.display()));
     let f = File::open(path).map_err(|e| Error::io(path, e))?;
     let len = f.metadata().map_err(|e| Error::io(path, e))?.len();
-    let builder = ParquetRecordBatchReaderBuilder::try_new(f).map_err(|e| unreadable(&e))?;
+    let builder = crate::guard::third_party(|| ParquetRecordBatchReaderBuilder::try_new(f))
+        .map_err(|m| unreadable(&m))?
+        .map_err(|e| unreadable(&e))?;
     for (g, rg) in builder.metadata().row_groups().iter().enumerate() {
         for c in rg.columns() {
             let start = c.dictionary_page_offset().unwrap_or_else(|| c.data_page_offset());
@@ -645,7 +647,11 @@ pub fn read_setups(dir: &Path) -> Result<HashMap<i64, Setup>, Error> {
         .build()
         .map_err(|e| Error::Input(format!("{}: not a readable Parquet file: {e}", path.display())))?;
     let mut out = HashMap::new();
-    for b in reader {
+    let mut reader = reader;
+    // The decoder behind the guard (crate::guard): a damaged page must not end the process.
+    while let Some(b) = crate::guard::third_party(|| reader.next())
+        .map_err(|m| Error::Input(format!("{}: not a readable Parquet file: {m}", path.display())))?
+    {
         let b = b.map_err(|e| Error::Input(format!("{}: {e}", path.display())))?;
         let int = |c: &str| -> Result<Vec<i64>, Error> {
             let col = b.column_by_name(c).ok_or_else(|| bad(c, "missing"))?;
@@ -730,11 +736,13 @@ pub fn read_part(
     if let Some(rg) = row_group {
         builder = builder.with_row_groups(vec![rg]);
     }
-    let reader = builder.build().map_err(|e| unreadable(&e))?;
+    let mut reader = builder.build().map_err(|e| unreadable(&e))?;
     let mut n = 0u64;
     let i64s = |b: &RecordBatch, c: &str| b.column_by_name(c).and_then(|a| a.as_primitive_opt::<Int64Type>().cloned());
     let i32s = |b: &RecordBatch, c: &str| b.column_by_name(c).and_then(|a| a.as_primitive_opt::<Int32Type>().cloned());
-    for b in reader {
+    // The decoder behind the guard (crate::guard): a damaged page once made the
+    // parquet crate overflow a shift (found by the `parquet` fuzz target).
+    while let Some(b) = crate::guard::third_party(|| reader.next()).map_err(|m| unreadable(&m))? {
         let b = b.map_err(|e| unreadable(&e))?;
         let (unit, seq, ms) = (i64s(&b, "unit_id"), i64s(&b, "seq"), i64s(&b, "measured_ms"));
         let batch = b.column_by_name("batch").and_then(|a| a.as_string_opt::<i32>().cloned());
@@ -969,6 +977,13 @@ mod tests {
         let e = read_part(&part, None, &COLUMNS.map(|c| c.0), |_| {}).err().map(|e| e.to_string()).unwrap_or_default();
         assert!(e.contains(&path.display().to_string()) && e.contains("lies outside the file"), "{e}");
         assert!(row_groups(&part).is_err());
+        // Found by the same target: a damaged page made the decoder overflow a
+        // shift (with overflow checks on, as in tests): one error, not a crash.
+        std::fs::write(&path, include_bytes!("../../fuzz/found/parquet/shift-overflow-in-page")).map_err(err)?;
+        let e = read_part(&part, None, &COLUMNS.map(|c| c.0), |_| {}).err().map(|e| e.to_string());
+        if let Some(e) = e {
+            assert!(e.contains(&path.display().to_string()) && !e.contains('\n'), "{e}");
+        }
         Ok(())
     }
 

@@ -145,7 +145,11 @@ impl Mapping {
             })?;
             verdicts.insert(word, v);
         }
-        let format = time::format_description::parse_owned::<2>(&raw.time.format)
+        // Through the guard: a malformed description ("[hour[:[minute]") trips a
+        // debug assertion inside `time` 0.3.55 (found by the `mapping` fuzz target).
+        let format = crate::guard::third_party(|| time::format_description::parse_owned::<2>(&raw.time.format))
+            .map_err(|_| "not a format description the time crate can read".to_owned())
+            .and_then(|r| r.map_err(|e| e.to_string()))
             .map(|f| vec![f])
             .map_err(|e| bad("time.format", format!("{e} (accepted: a `time` crate format description)")))?;
         let zone = raw.time.zone.unwrap_or_else(|| "+00:00".into());
@@ -296,5 +300,24 @@ impl Mapping {
             n += 1;
         }
         Ok(n)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Found by the `mapping` fuzz target: a format description with a
+    /// bracket inside a component ("[hour[:[minute]") tripped a debug
+    /// assertion inside the `time` crate; now it is refused in one line.
+    #[test]
+    fn a_malformed_time_format_is_refused_not_a_crash() {
+        let found: &[u8] = include_bytes!("../../fuzz/found/mapping/nested-format-bracket");
+        let map = found.split(|&b| b == 0xFF).next().unwrap_or_default();
+        let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
+        let path = dir.path().join("m.toml");
+        std::fs::write(&path, map).unwrap_or_else(|e| panic!("{e}"));
+        let e = Mapping::load(&path).err().map(|e| e.to_string()).unwrap_or_default();
+        assert!(e.contains("time.format") && !e.contains('\n'), "{e}");
     }
 }
