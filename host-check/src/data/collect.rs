@@ -101,6 +101,8 @@ pub struct Progress {
     pub stored: u64,
     /// Records that were already stored.
     pub duplicates: u64,
+    /// Of those, records with other content than the stored one (the first kept).
+    pub conflicts: u64,
     /// The last good record.
     pub last: Option<Record>,
     /// Time since the stream started.
@@ -122,6 +124,9 @@ pub struct Listened {
     pub stored: u64,
     /// Records already stored.
     pub duplicates: u64,
+    /// Of those, records with other content than the stored one (a retest,
+    /// or a unit that restarted its numbers): the first is kept.
+    pub conflicts: u64,
     /// Records refused by the record check ([`crate::data::validate`]), by the field at fault.
     pub refused: std::collections::BTreeMap<&'static str, u64>,
     /// Each unit's sequence numbers as the stream delivered them.
@@ -284,8 +289,16 @@ pub fn listen(
     let mut pending_refused = 0u64;
     let mut counts = Counts::default();
     let mut committed = Counts::default();
-    let mut progress =
-        Progress { counts, stored: 0, duplicates: 0, last: None, elapsed: Duration::ZERO, lost: None, reopened: 0 };
+    let mut progress = Progress {
+        counts,
+        stored: 0,
+        duplicates: 0,
+        conflicts: 0,
+        last: None,
+        elapsed: Duration::ZERO,
+        lost: None,
+        reopened: 0,
+    };
     let mut refused = std::collections::BTreeMap::new();
     let mut units: std::collections::BTreeMap<u32, UnitSeq> = std::collections::BTreeMap::new();
     let mut changed_units = std::collections::BTreeSet::new();
@@ -369,6 +382,7 @@ pub fn listen(
                 batch.commit(source_id, counts.bad_frames - committed.bad_frames, counts.bytes - committed.bytes)?;
             progress.stored += w.stored;
             progress.duplicates += w.duplicates;
+            progress.conflicts += w.conflicts;
             committed = counts;
         }
         last_commit = Instant::now();
@@ -385,6 +399,7 @@ pub fn listen(
         counts,
         stored: progress.stored,
         duplicates: progress.duplicates,
+        conflicts: progress.conflicts,
         refused,
         units,
         reopened: progress.reopened,
@@ -596,9 +611,20 @@ mod tests {
     fn a_stream_is_stored_once_and_its_repeats_counted() -> Result<(), CollectError> {
         let dir = tempfile::tempdir().map_err(|e| CollectError::Io { what: "tempdir".into(), error: e })?;
         let mut store = Store::open(&dir.path().join("s.db"))?;
-        let bytes: Vec<u8> = [frame(0), frame(1), frame(1)].concat();
+        // A unit that restarted its numbers and now fails: the same key, other content.
+        let retest = hold_firmware::record::encode(&Record {
+            hold_ticks: Some(40),
+            verdict: Verdict::Short,
+            hint: Hint::WrongPart,
+            ..good(0)
+        })
+        .map(|f| f.to_vec())
+        .unwrap_or_default();
+        let bytes: Vec<u8> = [frame(0), frame(1), frame(1), retest].concat();
         let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
-        assert_eq!((l.stored, l.duplicates, l.counts.bad_frames), (2, 1, 0));
+        // Once the conflicting record vanished among the repeats: now it is counted apart.
+        assert_eq!((l.stored, l.duplicates, l.conflicts, l.counts.bad_frames), (2, 2, 1, 0));
+        assert_eq!(store.sources()?.first().map(|s| (s.duplicates, s.conflicts)), Some((2, 1)));
         assert_eq!(store.count()?, 2);
         assert_eq!(source_name(None, Some("/dev/ttyUSB0")), "serial /dev/ttyUSB0");
         Ok(())

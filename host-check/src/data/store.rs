@@ -171,7 +171,8 @@ const MIGRATIONS: [&str; 6] = [
      ) WITHOUT ROWID;
      ALTER TABLE source ADD COLUMN seq_missing INTEGER NOT NULL DEFAULT 0;
      ALTER TABLE source ADD COLUMN seq_back INTEGER NOT NULL DEFAULT 0;
-     ALTER TABLE source ADD COLUMN gap_units INTEGER NOT NULL DEFAULT 0;",
+     ALTER TABLE source ADD COLUMN gap_units INTEGER NOT NULL DEFAULT 0;
+     ALTER TABLE source ADD COLUMN conflicts INTEGER NOT NULL DEFAULT 0;",
 ];
 
 /// One unit's sequence numbers as one stream delivered them. The rule: a
@@ -239,6 +240,9 @@ pub struct Source {
     pub seq_back: u64,
     /// Units with skipped numbers (streams).
     pub gap_units: u64,
+    /// Records already stored with other content (same station, unit and
+    /// number): counted in `duplicates` too, the first kept.
+    pub conflicts: u64,
 }
 
 /// An error of the store, with the database file it concerns.
@@ -370,6 +374,9 @@ pub struct Written {
     pub stored: u64,
     /// Records skipped because (station, unit, seq) was already stored.
     pub duplicates: u64,
+    /// Of those, records whose content differs from the stored one (a
+    /// retest, or a unit that restarted its numbers): the first is kept.
+    pub conflicts: u64,
 }
 
 /// The store.
@@ -382,6 +389,10 @@ pub struct Store {
 const INSERT: &str = "INSERT OR IGNORE INTO reading (station_id, unit_id, seq, measured_ms, batch_id, setup_id, \
      source_id, clock_hz, press_ticks, on_ticks, hold_ticks, temp_mdeg_c, c_dev_ppm, codes) \
      VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)";
+
+/// A stored record's content as compared with a repeat of its key: clock,
+/// press, turn-on, hold, temperature, capacitance deviation, codes.
+type Content = (Option<i64>, i64, Option<i64>, Option<i64>, Option<i32>, Option<i32>, i64);
 
 /// The three codes of a record in one integer: verdict + 16·hint + 256·drift.
 #[must_use]
@@ -750,6 +761,7 @@ impl Store {
             pending: Summaries::default(),
             stored: 0,
             duplicates: 0,
+            conflicts: 0,
             refused: 0,
         })
     }
@@ -957,7 +969,7 @@ impl Store {
             .conn
             .prepare(
                 "SELECT id, kind, name, records, duplicates, bad_frames, bytes, refused, seq_missing, seq_back, \
-                 gap_units FROM source ORDER BY id",
+                 gap_units, conflicts FROM source ORDER BY id",
             )
             .map_err(|e| self.err(e))?;
         let rows = st
@@ -975,6 +987,7 @@ impl Store {
                     seq_missing: u(8)?,
                     seq_back: u(9)?,
                     gap_units: u(10)?,
+                    conflicts: u(11)?,
                 })
             })
             .map_err(|e| self.err(e))?;
@@ -1404,6 +1417,7 @@ pub struct Batch<'c> {
     pending: Summaries,
     stored: u64,
     duplicates: u64,
+    conflicts: u64,
     refused: u64,
 }
 
@@ -1495,7 +1509,18 @@ impl Batch<'_> {
         source_id: i64,
     ) -> Result<(), StoreError> {
         let Batch {
-            tx, path, stations, batches, setups, drifting, newly_drifting, pending, stored, duplicates, ..
+            tx,
+            path,
+            stations,
+            batches,
+            setups,
+            drifting,
+            newly_drifting,
+            pending,
+            stored,
+            duplicates,
+            conflicts,
+            ..
         } = self;
         let err = |e: rusqlite::Error| StoreError { path: path.clone(), message: e.to_string() };
         let mut st = tx.prepare_cached(INSERT).map_err(err)?;
@@ -1553,6 +1578,31 @@ impl Batch<'_> {
                 pending.add(station_id, batch_id, measured_ms, r, setup, setups, drifting);
             } else {
                 *duplicates += 1;
+                // Same key: the same measurement again, or another one (a retest, a restart)?
+                let stored_as: Content = tx
+                    .prepare_cached(
+                        "SELECT coalesce(r.clock_hz, u.clock_hz), r.press_ticks, r.on_ticks, r.hold_ticks, \
+                         r.temp_mdeg_c, r.c_dev_ppm, r.codes FROM reading r LEFT JOIN setup u ON u.id = r.setup_id \
+                         WHERE r.station_id = ?1 AND r.unit_id = ?2 AND r.seq = ?3",
+                    )
+                    .and_then(|mut q| {
+                        q.query_row(params![station_id, r.unit_id, r.seq], |x| {
+                            Ok((x.get(0)?, x.get(1)?, x.get(2)?, x.get(3)?, x.get(4)?, x.get(5)?, x.get(6)?))
+                        })
+                    })
+                    .map_err(err)?;
+                let this = (
+                    Some(i64::from(r.clock_hz)),
+                    u64_sql(r.press_ticks),
+                    r.on_ticks.map(u64_sql),
+                    r.hold_ticks.map(u64_sql),
+                    r.temp_mdeg_c,
+                    r.c_deviation_ppm,
+                    pack_codes(r),
+                );
+                if stored_as != this {
+                    *conflicts += 1;
+                }
             }
         }
         Ok(())
@@ -1632,18 +1682,20 @@ impl Batch<'_> {
         self.tx
             .execute(
                 "UPDATE source SET records = records + ?1, duplicates = duplicates + ?2, \
-                 bad_frames = bad_frames + ?3, bytes = bytes + ?4, refused = refused + ?6 WHERE id = ?5",
+                 bad_frames = bad_frames + ?3, bytes = bytes + ?4, refused = refused + ?6, \
+                 conflicts = conflicts + ?7 WHERE id = ?5",
                 params![
                     u64_sql(self.stored),
                     u64_sql(self.duplicates),
                     u64_sql(bad_frames),
                     u64_sql(bytes),
                     source_id,
-                    u64_sql(self.refused)
+                    u64_sql(self.refused),
+                    u64_sql(self.conflicts)
                 ],
             )
             .map_err(e)?;
-        let w = Written { source_id, stored: self.stored, duplicates: self.duplicates };
+        let w = Written { source_id, stored: self.stored, duplicates: self.duplicates, conflicts: self.conflicts };
         self.tx.commit().map_err(e)?;
         Ok(w)
     }

@@ -129,6 +129,15 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
+/// How many of the records already stored had other content, if any.
+pub fn conflicts(n: u64) -> String {
+    if n == 0 {
+        String::new()
+    } else {
+        format!(" ({n} of them with other content: a retest or a restarted unit; the first is kept)")
+    }
+}
+
 /// The line `listen` ends with: what was stored, refused and dropped, and
 /// how the units' sequence numbers ran.
 fn summary(source: &str, l: &collect::Listened, db: &std::path::Path) -> String {
@@ -163,10 +172,11 @@ fn summary(source: &str, l: &collect::Listened, db: &std::path::Path) -> String 
         (false, n) => format!(" · input reopened {n}×"),
     };
     format!(
-        "{}: {} records stored, {} already stored, {refused} refused{why}, {} bad frames, {} bytes{seq} (source {} in {}){end}\n",
+        "{}: {} records stored, {} already stored{}, {refused} refused{why}, {} bad frames, {} bytes{seq} (source {} in {}){end}\n",
         source,
         l.stored,
         l.duplicates,
+        conflicts(l.conflicts),
         l.counts.bad_frames,
         l.counts.bytes,
         l.source_id,

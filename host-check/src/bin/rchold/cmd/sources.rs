@@ -27,7 +27,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         return units(&store, &a.db, id);
     }
     let mut o = format!(
-        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  name\n",
+        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  name\n",
         a.db.display(),
         store.schema_version()?,
         store.count()?,
@@ -35,6 +35,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         "kind",
         "stored",
         "repeated",
+        "conflict",
         "refused",
         "bad",
         "skipped",
@@ -44,8 +45,18 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     for s in store.sources()? {
         let _ = writeln!(
             o,
-            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  {}",
-            s.id, s.kind, s.records, s.duplicates, s.refused, s.bad_frames, s.seq_missing, s.seq_back, s.bytes, s.name
+            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  {}",
+            s.id,
+            s.kind,
+            s.records,
+            s.duplicates,
+            s.conflicts,
+            s.refused,
+            s.bad_frames,
+            s.seq_missing,
+            s.seq_back,
+            s.bytes,
+            s.name
         );
     }
     emit(&o)?;
