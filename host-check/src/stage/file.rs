@@ -893,7 +893,13 @@ impl StageFile {
         });
         let tc = spread.tempco;
         let at = |t: i32| format!("at {:.1} °C", f64::from(t) / 1e3);
-        let change = |ppm: i32, t: i32| f64::from(ppm) * f64::from(t - spread.ref_mdeg_c) / 1e7;
+        // A relative coefficient (R, C) and the change it makes at the corner's temperature.
+        let scaled = |ppm: i32| {
+            temp.map_or_else(String::new, |t| {
+                let change = f64::from(ppm) * f64::from(t - spread.ref_mdeg_c) / 1e7;
+                format!("{ppm} ppm/°C {}: {change:+.1} % (accepted: above −100 %)", at(t))
+            })
+        };
         let candidates: [(&'static str, Spread, String); 5] = [
             (
                 "aging",
@@ -903,26 +909,12 @@ impl StageFile {
             (
                 "environment.c_tempco",
                 Spread { tempco: rc_model::window::Tempco { c_ppm_per_c: 0, ..tc }, ..spread },
-                temp.map_or_else(String::new, |t| {
-                    format!(
-                        "{} ppm/°C {}: {:+.1} % (accepted: above −100 %)",
-                        tc.c_ppm_per_c,
-                        at(t),
-                        change(tc.c_ppm_per_c, t)
-                    )
-                }),
+                scaled(tc.c_ppm_per_c),
             ),
             (
                 "environment.r_tempco",
                 Spread { tempco: rc_model::window::Tempco { r_ppm_per_c: 0, ..tc }, ..spread },
-                temp.map_or_else(String::new, |t| {
-                    format!(
-                        "{} ppm/°C {}: {:+.1} % (accepted: above −100 %)",
-                        tc.r_ppm_per_c,
-                        at(t),
-                        change(tc.r_ppm_per_c, t)
-                    )
-                }),
+                scaled(tc.r_ppm_per_c),
             ),
             (
                 "environment.drop_tempco",
