@@ -174,9 +174,9 @@ proptest! {
     fn frames_take_any_record_and_any_bytes(
         seq in any::<u32>(), unit_id in any::<u32>(), press_ticks in any::<u64>(), on in any::<Option<u64>>(),
         hold in any::<Option<u64>>(), clock_hz in any::<u32>(), temp in any::<Option<i32>>(), dev in any::<Option<i32>>(),
-        junk in proptest::collection::vec(any::<u8>(), 0..80),
+        boot in any::<u32>(), junk in proptest::collection::vec(any::<u8>(), 0..80),
     ) {
-        let r = Record { seq, unit_id, press_ticks, on_ticks: on, hold_ticks: hold, clock_hz, temp_mdeg_c: temp,
+        let r = Record { seq, unit_id, boot, press_ticks, on_ticks: on, hold_ticks: hold, clock_hz, temp_mdeg_c: temp,
             c_deviation_ppm: dev, verdict: hold_firmware::Verdict::Long, hint: hold_firmware::Hint::WrongPart,
             drift: hold_firmware::drift::DriftState::Drifting };
         let f = record::encode(&r).map_err(|e| TestCaseError::fail(format!("{e:?}")))?;

@@ -20,6 +20,7 @@ fn record(seq: u32, verdict: Verdict, hold: Option<u64>) -> Record {
     Record {
         seq,
         unit_id: 4_100 + seq,
+        boot: seq % 3,
         press_ticks: 120_000,
         on_ticks: Some(48),
         hold_ticks: hold,

@@ -6,7 +6,7 @@ use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::{Duration, Instant};
 
-use crate::util::{count, rchold, rename_stations, set_fields, synth, text};
+use crate::util::{col, count, rchold, rename_stations, set_fields, synth, text};
 
 #[test]
 fn a_bad_log_is_refused_in_one_line_and_stores_nothing() {
@@ -134,6 +134,7 @@ fn listen_from_a_file_then_report() {
         let r = record::Record {
             seq: i,
             unit_id: 77,
+            boot: 0,
             press_ticks: 200_000,
             on_ticks: Some(2_600),
             hold_ticks: Some(15_770_000 - u64::from(i) * 2_000),
@@ -244,7 +245,7 @@ fn the_recheck_judges_verdicts_and_hints_apart() {
     let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     synth(dir.path(), "ours.csv", 3_000, 5);
     // Every hint "none": the same log as another tester would write it.
-    set_fields(dir.path(), "ours.csv", "theirs.csv", &[(11, "none")]);
+    set_fields(dir.path(), "ours.csv", "theirs.csv", &[("hint", "none")]);
     let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
     let report = |file: &str| {
         let out = rchold(dir.path(), &["yield", "--csv", file, "--stage", &stage, "--json"]);
@@ -270,7 +271,7 @@ fn the_recheck_judges_verdicts_and_hints_apart() {
 fn rchold_judges_holds_a_log_leaves_unjudged() {
     let dir = tempfile::tempdir().unwrap_or_else(|e| panic!("{e}"));
     synth(dir.path(), "ours.csv", 2_000, 9);
-    set_fields(dir.path(), "ours.csv", "blank.csv", &[(10, ""), (11, "")]);
+    set_fields(dir.path(), "ours.csv", "blank.csv", &[("verdict", ""), ("hint", "")]);
     let stage = format!("{}/../examples/lumen-keypad.toml", env!("CARGO_MANIFEST_DIR"));
     let refused = rchold(dir.path(), &["ingest", "blank.csv", "--db", "b.db"]);
     assert_eq!(refused.status.code(), Some(2));
@@ -312,23 +313,23 @@ fn a_foreign_log_ingests_through_a_mapping() {
     let mut foreign = String::from("Serial,Result,Hold [ms],Tester,Lot,Run,Timestamp,Temp,Press [ms],Latency [ms]\n");
     for l in ours.lines().skip(1) {
         let f: Vec<&str> = l.split(',').collect();
-        let g = |i: usize| f.get(i).copied().unwrap_or("");
-        let utc = time::OffsetDateTime::parse(g(0), &time::format_description::well_known::Rfc3339)
+        let g = |name: &str| f.get(col(name)).copied().unwrap_or("");
+        let utc = time::OffsetDateTime::parse(g("measured_at"), &time::format_description::well_known::Rfc3339)
             .unwrap_or_else(|e| panic!("{e}"));
         let at = utc.to_offset(time::UtcOffset::from_hms(1, 0, 0).unwrap_or(time::UtcOffset::UTC)).format(&local);
         let ms = |t: &str| t.parse::<f64>().map(|x| format!("{:.3}", x / 1000.0)).unwrap_or_default();
         foreign.push_str(&format!(
             "{},{},{},{},{},{},{},{},{},{}\n",
-            g(3),
-            words(g(10)),
-            ms(g(8)),
-            g(1),
-            g(2),
-            g(4),
+            g("unit"),
+            words(g("verdict")),
+            ms(g("hold_ticks")),
+            g("station"),
+            g("batch"),
+            g("seq"),
             at.unwrap_or_default(),
-            g(9),
-            ms(g(6)),
-            ms(g(7))
+            g("temp_c"),
+            ms(g("press_ticks")),
+            ms(g("on_ticks"))
         ));
     }
     std::fs::write(dir.path().join("foreign.csv"), foreign).unwrap_or_else(|e| panic!("{e}"));
@@ -435,6 +436,7 @@ fn a_quiet_night_then_a_signal() {
         let r = hold_firmware::record::Record {
             seq,
             unit_id: 4_242,
+            boot: 0,
             press_ticks: 200_000,
             on_ticks: Some(2_600),
             hold_ticks: Some(15_770_000),
@@ -493,14 +495,14 @@ fn a_quiet_night_then_a_signal() {
     assert!(best < Duration::from_millis(250), "signals took {took:?}");
     assert!(took.iter().all(|t| *t < Duration::from_secs(2)), "signals took {took:?}");
     let src = rchold(dir.path(), &["sources", "--db", "night.db"]);
-    // The first stream's row: 5 stored, none repeated, conflicting, refused or bad, 2 skipped, 0 back.
+    // The first stream's row: 5 stored, none repeated, retests, refused or bad, 2 skipped, 0 back, no restarts.
     let listing = text(&src.stdout);
     let row: Vec<&str> = listing
         .lines()
         .map(|l| l.split_whitespace().collect::<Vec<_>>())
         .find(|t| t.first() == Some(&"1"))
         .unwrap_or_default();
-    assert_eq!(row.get(1..9), Some(&["stream", "5", "0", "0", "0", "0", "2", "0"][..]), "{listing}");
+    assert_eq!(row.get(1..10), Some(&["stream", "5", "0", "0", "0", "0", "2", "0", "0"][..]), "{listing}");
     let units = rchold(dir.path(), &["sources", "--db", "night.db", "--units", "1"]);
     assert!(
         text(&units.stdout).contains("1 unit; 2 numbers skipped in 1 unit, 0 not above"),

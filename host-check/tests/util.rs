@@ -76,17 +76,22 @@ pub fn rename_stations(dir: &Path, name: &str, prefix: &str) {
     std::fs::write(dir.join(name), t).unwrap_or_else(|e| panic!("{e}"));
 }
 
+/// The 0-based position of field `name` in a log line (as rchold writes logs).
+pub fn col(name: &str) -> usize {
+    host_check::data::log::FIELDS.iter().position(|f| *f == name).unwrap_or_else(|| panic!("no log field {name}"))
+}
+
 /// Copies the log `from` to `to` in `dir` with the given fields of every data
-/// line replaced: `(index, value)`, 0-based as in the log's header.
-pub fn set_fields(dir: &Path, from: &str, to: &str, fields: &[(usize, &str)]) {
+/// line replaced: `(name, value)`.
+pub fn set_fields(dir: &Path, from: &str, to: &str, fields: &[(&str, &str)]) {
     let text = std::fs::read_to_string(dir.join(from)).unwrap_or_default();
     let mut lines = text.lines();
     let header = lines.next().unwrap_or_default().to_owned();
     let out: String = std::iter::once(header)
         .chain(lines.map(|l| {
             let mut f: Vec<&str> = l.split(',').collect();
-            for &(i, v) in fields {
-                if let Some(x) = f.get_mut(i) {
+            for &(name, v) in fields {
+                if let Some(x) = f.get_mut(col(name)) {
                     *x = v;
                 }
             }

@@ -13,6 +13,7 @@ fn record(i: u32) -> Record {
     Record {
         seq: i,
         unit_id: 7 + i % 3,
+        boot: i / 1_000,
         press_ticks: 100_000 + u64::from(i),
         on_ticks: Some(60 + u64::from(i % 5)),
         hold_ticks: if i.is_multiple_of(11) { None } else { Some(739_000 + u64::from(i) * 3) },

@@ -286,6 +286,8 @@ pub fn run_field(setup: &Setup) -> ! {
         let rec = Record {
             seq,
             unit_id: 0x4B35,
+            // The emulated board keeps nothing across a reset: every run is its first boot.
+            boot: 1,
             press_ticks: m.press_ticks,
             on_ticks: m.on_ticks,
             hold_ticks: m.hold_ticks,

@@ -53,12 +53,16 @@ fn send_record(rec: &Record, send: &mut impl FnMut(&[u8])) -> bool {
     }
 }
 
+/// The simulated tester's boot counter: a run is one start.
+pub const BOOT: u32 = 1;
+
 /// A fixture's record of one board: sequence = board index, no temperature,
 /// no drift tracking.
 fn fixture_record(seq: usize, board: &Board, m: &hold_firmware::Measurement, clock_hz: u32) -> Record {
     Record {
         seq: seq as u32,
         unit_id: board.unit_id,
+        boot: BOOT,
         press_ticks: m.press_ticks,
         on_ticks: m.on_ticks,
         hold_ticks: m.hold_ticks,
@@ -143,6 +147,7 @@ pub fn run_days(setup: &Setup, file: &[u8], mut send: impl FnMut(&[u8])) -> Resu
         let rec = Record {
             seq: day as u32,
             unit_id: board.unit_id,
+            boot: BOOT,
             press_ticks: m.press_ticks,
             on_ticks: m.on_ticks,
             hold_ticks: m.hold_ticks,

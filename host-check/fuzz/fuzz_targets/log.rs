@@ -31,8 +31,9 @@ fn one_piece(p: &std::path::Path, data: &[u8]) -> Result<Vec<Seen>, ()> {
 
 fn in_pieces(p: &std::path::Path, parts: usize) -> Result<Vec<Seen>, ()> {
     let mut seen = Vec::new();
-    for (start, end) in log::split(p, parts).map_err(|_| ())? {
-        log::read_range(p, start, end, |_, l| {
+    let (layout, pieces) = log::split(p, parts).map_err(|_| ())?;
+    for (start, end) in pieces {
+        log::read_range(p, layout, start, end, |_, l| {
             seen.push((l.station.to_owned(), l.batch.to_owned(), l.measured_ms, l.record));
             Ok(())
         })

@@ -40,9 +40,10 @@ use crate::data::{codes, time};
 use crate::Error;
 
 /// The columns of a readings file, in order, with their Arrow types
-/// (`true`: may be null).
-pub const COLUMNS: [(&str, DataType, bool); 14] = [
+/// (`true`: may be null). `boot` came later: a file without it reads as boot 0.
+pub const COLUMNS: [(&str, DataType, bool); 15] = [
     ("unit_id", DataType::Int64, false),
+    ("boot", DataType::Int64, false),
     ("seq", DataType::Int64, false),
     ("measured_ms", DataType::Int64, false),
     ("batch", DataType::Utf8, false),
@@ -122,6 +123,7 @@ pub fn hive_unescape(v: &str) -> Option<String> {
 #[derive(Default)]
 struct Part {
     unit: Vec<i64>,
+    boot: Vec<i64>,
     seq: Vec<i64>,
     ms: Vec<i64>,
     /// Each row's batch as an index into `batches` (no string per row).
@@ -146,6 +148,7 @@ fn sat(v: u64) -> i64 {
 impl Part {
     fn push(&mut self, batch: &str, ms: i64, r: &Record, setup_id: i64) {
         self.unit.push(i64::from(r.unit_id));
+        self.boot.push(i64::from(r.boot));
         self.seq.push(i64::from(r.seq));
         self.ms.push(ms);
         // A partition's batch mostly repeats: the last one is looked at first.
@@ -179,6 +182,7 @@ impl Part {
         let p = std::mem::take(self);
         let cols: Vec<ArrayRef> = vec![
             Arc::new(Int64Array::from(p.unit)),
+            Arc::new(Int64Array::from(p.boot)),
             Arc::new(Int64Array::from(p.seq)),
             Arc::new(Int64Array::from(p.ms)),
             Arc::new(StringArray::from_iter_values(
@@ -480,7 +484,7 @@ pub fn export_logs(paths: &[PathBuf], setup: Option<&Setup>, target: &Path, thre
     let mut piece_no = 0usize;
     let result = (|| {
         for path in paths {
-            let pieces = log::split(path, threads)?;
+            let (layout, pieces) = log::split(path, threads)?;
             let results: Vec<Result<ArchiveWriter, Error>> = std::thread::scope(|scope| {
                 let handles: Vec<_> = pieces
                     .iter()
@@ -489,7 +493,7 @@ pub fn export_logs(paths: &[PathBuf], setup: Option<&Setup>, target: &Path, thre
                         let mut mine = w.sibling(&format!("{}", piece_no + i));
                         scope.spawn(move || {
                             let mut write_error = None;
-                            let r = log::read_range(path, a, b, |_, l| {
+                            let r = log::read_range(path, layout, a, b, |_, l| {
                                 let mut l = l.clone();
                                 if l.unjudged() {
                                     judge.ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut l)?;
@@ -725,7 +729,12 @@ pub fn read_part(
     let schema = builder.schema().clone();
     let mut indices = Vec::new();
     for (name, ty, _) in COLUMNS.iter().filter(|c| wanted.contains(&c.0)) {
-        let (i, field) = schema.column_with_name(name).ok_or_else(|| bad(name, "missing".into()))?;
+        let Some((i, field)) = schema.column_with_name(name) else {
+            if *name == "boot" {
+                continue; // written before the column: boot 0
+            }
+            return Err(bad(name, "missing".into()));
+        };
         if field.data_type() != ty {
             return Err(bad(name, format!("is {}, not {ty}", field.data_type())));
         }
@@ -745,6 +754,7 @@ pub fn read_part(
     while let Some(b) = crate::guard::third_party(|| reader.next()).map_err(|m| unreadable(&m))? {
         let b = b.map_err(|e| unreadable(&e))?;
         let (unit, seq, ms) = (i64s(&b, "unit_id"), i64s(&b, "seq"), i64s(&b, "measured_ms"));
+        let boot = i64s(&b, "boot");
         let batch = b.column_by_name("batch").and_then(|a| a.as_string_opt::<i32>().cloned());
         let (setup, clock, press) = (i32s(&b, "setup_id"), i64s(&b, "clock_hz"), i64s(&b, "press_ticks"));
         let (on, hold) = (i64s(&b, "on_ticks"), i64s(&b, "hold_ticks"));
@@ -783,6 +793,7 @@ pub fn read_part(
             }
             let record = Record {
                 unit_id: u32_of(&unit, "unit_id")?,
+                boot: u32_of(&boot, "boot")?,
                 seq: u32_of(&seq, "seq")?,
                 clock_hz: u32_of(&clock, "clock_hz")?,
                 press_ticks: ticks(&press, "press_ticks")?.unwrap_or(0),

@@ -101,7 +101,8 @@ pub struct Progress {
     pub stored: u64,
     /// Records that were already stored.
     pub duplicates: u64,
-    /// Of those, records with other content than the stored one (the first kept).
+    /// Of the records stored, retests: their key (station, unit, boot, seq)
+    /// was stored before with other content.
     pub conflicts: u64,
     /// The last good record.
     pub last: Option<Record>,
@@ -124,8 +125,8 @@ pub struct Listened {
     pub stored: u64,
     /// Records already stored.
     pub duplicates: u64,
-    /// Of those, records with other content than the stored one (a retest,
-    /// or a unit that restarted its numbers): the first is kept.
+    /// Of the records stored, retests: their key (station, unit, boot, seq)
+    /// was stored before with other content (both are kept).
     pub conflicts: u64,
     /// Records refused by the record check ([`crate::data::validate`]), by the field at fault.
     pub refused: std::collections::BTreeMap<&'static str, u64>,
@@ -338,7 +339,10 @@ pub fn listen(
                                 start_ms.saturating_add(i64::from(r.seq).saturating_mul(period_ms))
                             }
                         };
-                        units.entry(r.unit_id).or_insert_with(|| UnitSeq::starting_at(r.seq)).see(r.seq);
+                        units
+                            .entry(r.unit_id)
+                            .or_insert_with(|| UnitSeq::starting_at(r.boot, r.seq))
+                            .see(r.boot, r.seq);
                         changed_units.insert(r.unit_id);
                         pending.push((at, r));
                         progress.last = Some(r);
@@ -468,6 +472,20 @@ fn ingest_with(
         what: path.display().to_string(),
         error: std::io::Error::other(e.to_string()),
     })?;
+    // Contents stored before are recognised without parsing them: a regular
+    // file as long as a stored log is hashed first (a file of a length no
+    // stored log has cannot be one of them, and is not: SHA-256 costs a
+    // quarter of the parse). The digest that decides is still the one taken
+    // while parsing (below), so a file changed in between is judged by what
+    // was read.
+    let len = std::fs::metadata(path).ok().filter(|m| path.as_os_str() != "-" && m.is_file()).map(|m| m.len());
+    if len.map(|n| store.log_of_length(n)).transpose()? == Some(true) {
+        let mut d = crate::input::Digesting::new(std::fs::File::open(path).map_err(io_err(path))?);
+        std::io::copy(&mut d, &mut std::io::sink()).map_err(io_err(path))?;
+        if let Some(earlier) = store.log_source(&d.finish().0)? {
+            return Ok(Ingested::AlreadyStored { source_id: earlier });
+        }
+    }
     // Read once: "-" is standard input; pipes and FIFOs work as files do.
     let (input, name): (Box<dyn Read + Send>, String) = if path.as_os_str() == "-" {
         (Box::new(io::stdin()), "standard input".to_owned())
@@ -580,6 +598,7 @@ pub fn source_name(path: Option<&PathBuf>, port: Option<&str>) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::data::store::Filter;
     use hold_firmware::drift::DriftState;
     use hold_firmware::{Hint, Verdict};
 
@@ -591,6 +610,7 @@ mod tests {
         Record {
             seq,
             unit_id: 1,
+            boot: 0,
             press_ticks: 10,
             on_ticks: Some(1),
             hold_ticks: Some(100),
@@ -620,12 +640,30 @@ mod tests {
         })
         .map(|f| f.to_vec())
         .unwrap_or_default();
-        let bytes: Vec<u8> = [frame(0), frame(1), frame(1), retest].concat();
+        // The same unit after a reset, numbering from 0 again under its next boot.
+        let rebooted =
+            hold_firmware::record::encode(&Record { boot: 1, ..good(0) }).map(|f| f.to_vec()).unwrap_or_default();
+        let bytes: Vec<u8> = [frame(0), frame(1), frame(1), retest.clone(), retest, rebooted].concat();
         let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
-        // Once the conflicting record vanished among the repeats: now it is counted apart.
-        assert_eq!((l.stored, l.duplicates, l.conflicts, l.counts.bad_frames), (2, 2, 1, 0));
-        assert_eq!(store.sources()?.first().map(|s| (s.duplicates, s.conflicts)), Some((2, 1)));
-        assert_eq!(store.count()?, 2);
+        // Once the conflicting record vanished among the repeats, then it was
+        // counted apart; now it is kept as a retest (once: its own repeat is a
+        // duplicate), and the restart is a key of its own.
+        assert_eq!((l.stored, l.duplicates, l.conflicts, l.counts.bad_frames), (4, 2, 1, 0));
+        let src = store.sources()?.first().cloned();
+        assert_eq!(src.as_ref().map(|s| (s.records, s.duplicates, s.conflicts)), Some((4, 2, 1)));
+        assert_eq!(src.as_ref().map(|s| (s.seq_back, s.restarts)), Some((3, 1)));
+        assert_eq!(store.count()?, 4);
+        let mut kept = Vec::new();
+        store.for_each(&Filter::default(), |x| kept.push((x.record.boot, x.record.seq, x.record.verdict)))?;
+        assert_eq!(
+            kept,
+            [
+                (0, 0, Verdict::WithinWindow),
+                (0, 0, Verdict::Short),
+                (0, 1, Verdict::WithinWindow),
+                (1, 0, Verdict::WithinWindow)
+            ]
+        );
         assert_eq!(source_name(None, Some("/dev/ttyUSB0")), "serial /dev/ttyUSB0");
         Ok(())
     }
@@ -746,15 +784,32 @@ mod tests {
         let other = |seq: u32| {
             hold_firmware::record::encode(&Record { unit_id: 2, ..good(seq) }).map(|f| f.to_vec()).unwrap_or_default()
         };
-        let bytes: Vec<u8> =
-            [frame(0), frame(1), frame(5), other(10), frame(6), frame(3), other(11), other(20)].concat();
+        // Unit 1 restarts (its next boot numbers from 0 again): neither skipped nor back.
+        let rebooted = |seq: u32| {
+            hold_firmware::record::encode(&Record { boot: 1, ..good(seq) }).map(|f| f.to_vec()).unwrap_or_default()
+        };
+        let bytes: Vec<u8> = [
+            frame(0),
+            frame(1),
+            frame(5),
+            other(10),
+            frame(6),
+            frame(3),
+            other(11),
+            other(20),
+            rebooted(0),
+            rebooted(1),
+        ]
+        .concat();
         let l = listen(&mut store, "t", Input::once(io::Cursor::new(bytes)), &labels(), |_| {}, || false)?;
-        let seq = |u: u32| l.units.get(&u).map(|x| (x.first_seq, x.last_seq, x.received, x.missing, x.back));
-        assert_eq!(seq(1), Some((0, 3, 5, 3, 1)));
-        assert_eq!(seq(2), Some((10, 20, 3, 8, 0)));
+        let seq = |u: u32| {
+            l.units.get(&u).map(|x| (x.first_seq, x.last_seq, x.received, x.missing, x.back, x.boot, x.restarts))
+        };
+        assert_eq!(seq(1), Some((0, 1, 7, 3, 1, 1, 1)));
+        assert_eq!(seq(2), Some((10, 20, 3, 8, 0, 0, 0)));
         let src = store.sources()?;
-        let s = src.first().map(|s| (s.seq_missing, s.seq_back, s.gap_units));
-        assert_eq!(s, Some((11, 1, 2)));
+        let s = src.first().map(|s| (s.seq_missing, s.seq_back, s.gap_units, s.restarts));
+        assert_eq!(s, Some((11, 1, 2, 1)));
         let units = store.source_units(l.source_id)?;
         assert_eq!(units.first().map(|(u, x)| (*u, x.missing)), Some((2, 8)), "most skipped first");
         Ok(())

@@ -155,6 +155,7 @@ mod tests {
         Record {
             seq,
             unit_id: 7,
+            boot: 0,
             press_ticks: 100_000,
             on_ticks: Some(54),
             hold_ticks: Some(739_617),

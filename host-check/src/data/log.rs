@@ -1,7 +1,9 @@
-//! The measurement log: a CSV file of our own schema ("rchold log, version 1").
+//! The measurement log: a CSV file of our own schema ("rchold log", version 2;
+//! version 1 is still read).
 //!
-//! The first line is exactly [`HEADER`]; each further line is one
-//! measurement. Fields, in order:
+//! The first line is exactly [`HEADER`] (or [`HEADER_V1`]: a log without the
+//! `boot` field, read as boot 0); each further line is one measurement, with
+//! as many fields as its header. Fields, in order:
 //!
 //! | field | meaning | accepted |
 //! |---|---|---|
@@ -9,6 +11,7 @@
 //! | `station` | fixture or fleet name | 1 … 64 bytes of UTF-8, no control characters |
 //! | `batch` | production batch or fleet group | 0 … 64 bytes, as `station` |
 //! | `unit` | board or unit serial | 0 … 4 294 967 295 |
+//! | `boot` | the unit's boot counter (version 2 only) | 0 … 4 294 967 295 |
 //! | `seq` | the unit's measurement number | 0 … 4 294 967 295 |
 //! | `clock_hz` | tick clock of the tester | 1 000 … 200 000 000 |
 //! | `press_ticks` | press length | 0 … 2^63 − 1 |
@@ -36,16 +39,21 @@ use hold_firmware::Verdict;
 
 use crate::data::{codes, time};
 
-/// The header line of a version-1 log.
-pub const HEADER: &str =
+/// The header line of a version-2 log (what rchold writes).
+pub const HEADER: &str = "measured_at,station,batch,unit,boot,seq,clock_hz,press_ticks,on_ticks,hold_ticks,temp_c,\
+verdict,hint,drift,c_dev_ppm";
+
+/// The header line of a version-1 log (no `boot`; still read).
+pub const HEADER_V1: &str =
     "measured_at,station,batch,unit,seq,clock_hz,press_ticks,on_ticks,hold_ticks,temp_c,verdict,hint,drift,c_dev_ppm";
 
-/// Field names in order.
-pub const FIELDS: [&str; 14] = [
+/// Field names of a version-2 log, in order.
+pub const FIELDS: [&str; 15] = [
     "measured_at",
     "station",
     "batch",
     "unit",
+    "boot",
     "seq",
     "clock_hz",
     "press_ticks",
@@ -57,6 +65,45 @@ pub const FIELDS: [&str; 14] = [
     "drift",
     "c_dev_ppm",
 ];
+
+/// Which version of the log a file is, from its header.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Layout {
+    /// [`HEADER_V1`]: 14 fields, no `boot`.
+    V1,
+    /// [`HEADER`]: 15 fields.
+    V2,
+}
+
+impl Layout {
+    /// Fields per line.
+    #[must_use]
+    pub const fn fields(self) -> usize {
+        match self {
+            Layout::V1 => 14,
+            Layout::V2 => 15,
+        }
+    }
+
+    /// From which of the line's fields on the slots of [`FIELDS`] are one
+    /// further on: 4 for a version-1 line (it has no `boot`, which reads as
+    /// `0`), none for version 2.
+    const fn boot_skipped(self) -> usize {
+        match self {
+            Layout::V1 => 4,
+            Layout::V2 => usize::MAX,
+        }
+    }
+
+    /// The header line.
+    #[must_use]
+    pub const fn header(self) -> &'static str {
+        match self {
+            Layout::V1 => HEADER_V1,
+            Layout::V2 => HEADER,
+        }
+    }
+}
 
 /// A problem in a log file, with where it is.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -212,11 +259,12 @@ fn label<'a>(field: &'static str, b: &'a [u8], min: usize) -> FieldResult<&'a st
     Ok(s)
 }
 
-/// Parses one data line's fields (exactly 14).
+/// Parses one data line's fields, in the order of [`FIELDS`] (a version-1
+/// line with `boot` given as `0`).
 ///
 /// # Errors
 /// The field at fault and a message with the accepted range.
-pub fn parse_fields<'a>(f: &[&'a [u8]; 14]) -> Result<Line<'a>, (&'static str, String)> {
+pub fn parse_fields<'a>(f: &[&'a [u8]; 15]) -> Result<Line<'a>, (&'static str, String)> {
     parse_fields_cached(f, &mut time::DayCache::default())
 }
 
@@ -225,15 +273,16 @@ pub fn parse_fields<'a>(f: &[&'a [u8]; 14]) -> Result<Line<'a>, (&'static str, S
 /// # Errors
 /// The field at fault and a message with the accepted range.
 pub fn parse_fields_cached<'a>(
-    f: &[&'a [u8]; 14],
+    f: &[&'a [u8]; 15],
     days: &mut time::DayCache,
 ) -> Result<Line<'a>, (&'static str, String)> {
-    let [at, station, batch, unit, seq, clock, press, on, hold, temp, verdict, hint, drift, dev] = *f;
+    let [at, station, batch, unit, boot, seq, clock, press, on, hold, temp, verdict, hint, drift, dev] = *f;
     let measured_ms = time::parse_ms_cached(at, days)
         .ok_or_else(|| ("measured_at", format!("{} is not a UTC time (accepted: {})", text(at), time::FORM)))?;
     let station = label("station", station, 1)?;
     let batch = label("batch", batch, 0)?;
     let unit_id = number("unit", unit, u64::from(u32::MAX), U32)? as u32;
+    let boot = number("boot", boot, u64::from(u32::MAX), U32)? as u32;
     let seq = number("seq", seq, u64::from(u32::MAX), U32)? as u32;
     let clock_hz = number("clock_hz", clock, 200_000_000, "1000 … 200000000")?;
     if clock_hz < 1_000 {
@@ -298,6 +347,7 @@ pub fn parse_fields_cached<'a>(
         record: Record {
             seq,
             unit_id,
+            boot,
             press_ticks,
             on_ticks,
             hold_ticks,
@@ -322,12 +372,13 @@ pub fn parse_fields_cached<'a>(
 /// of `x ^ ",,,,,,,,"` is zero where a comma is, and of `x ^ "\"\"…"` where a
 /// quote is (the exact zero-byte test of S. E. Anderson's "Bit Twiddling
 /// Hacks"). `Ok(None)` when the line holds a quote; `Err(count)` for a field
-/// count other than 14.
+/// count other than the layout's. The fields come in the order of [`FIELDS`]
+/// (a version-1 line gets `boot` `0`).
 #[inline]
-fn split_plain(line: &[u8]) -> Result<Option<[&[u8]; 14]>, usize> {
+fn split_plain(line: &[u8], layout: Layout) -> Result<Option<[&[u8]; 15]>, usize> {
     const LOW7: u64 = 0x7F7F_7F7F_7F7F_7F7F;
     let zero_bytes = |x: u64| !(((x & LOW7) + LOW7) | x | LOW7);
-    let mut cuts = [0usize; 15];
+    let mut cuts = [0usize; 16];
     let mut n = 0usize;
     let words = line.chunks_exact(8);
     let tail = words.remainder();
@@ -355,27 +406,31 @@ fn split_plain(line: &[u8]) -> Result<Option<[&[u8]; 14]>, usize> {
             n += 1;
         }
     }
-    if n != 13 {
+    if n + 1 != layout.fields() {
         return Err(n + 1);
     }
-    if let Some(last) = cuts.get_mut(13) {
+    if let Some(last) = cuts.get_mut(n) {
         *last = line.len();
     }
-    let mut f: [&[u8]; 14] = [&[]; 14];
+    let mut f: [&[u8]; 15] = [b"0"; 15];
     let mut start = 0;
-    for (slot, &end) in f.iter_mut().zip(&cuts) {
-        *slot = line.get(start..end).unwrap_or(&[]);
+    let skip = layout.boot_skipped();
+    for (k, &end) in cuts.iter().take(n + 1).enumerate() {
+        if let Some(slot) = f.get_mut(k + usize::from(k >= skip)) {
+            *slot = line.get(start..end).unwrap_or(&[]);
+        }
         start = end + 1;
     }
     Ok(Some(f))
 }
 
-/// Splits one line (without its line break) into its 14 fields; lines with
-/// quotes go through the csv crate. `Err` with a message for a wrong count.
-fn fields<'a>(line: &'a [u8], quoted: &'a mut csv::ByteRecord) -> Result<[&'a [u8]; 14], String> {
-    let mut f: [&[u8]; 14] = [&[]; 14];
-    let wrong = |n: usize| format!("{n} fields (accepted: exactly {}: {HEADER})", FIELDS.len());
-    if let Some(f) = split_plain(line).map_err(&wrong)? {
+/// Splits one line (without its line break) into its fields, in the order
+/// of [`FIELDS`]; lines with quotes go through the csv crate. `Err` with a
+/// message for a wrong count.
+fn fields<'a>(line: &'a [u8], layout: Layout, quoted: &'a mut csv::ByteRecord) -> Result<[&'a [u8]; 15], String> {
+    let mut f: [&[u8]; 15] = [b"0"; 15];
+    let wrong = |n: usize| format!("{n} fields (accepted: exactly {}: {})", layout.fields(), layout.header());
+    if let Some(f) = split_plain(line, layout).map_err(&wrong)? {
         return Ok(f);
     }
     let mut rdr = csv::ReaderBuilder::new().has_headers(false).flexible(true).from_reader(line);
@@ -384,25 +439,30 @@ fn fields<'a>(line: &'a [u8], quoted: &'a mut csv::ByteRecord) -> Result<[&'a [u
         Ok(false) => return Err(wrong(0)),
         Err(e) => return Err(format!("unreadable CSV: {e}")),
     }
-    if quoted.len() != 14 {
+    if quoted.len() != layout.fields() {
         return Err(wrong(quoted.len()));
     }
-    for (slot, v) in f.iter_mut().zip(quoted.iter()) {
-        *slot = v;
+    let skip = layout.boot_skipped();
+    for (k, v) in quoted.iter().enumerate() {
+        if let Some(slot) = f.get_mut(k + usize::from(k >= skip)) {
+            *slot = v;
+        }
     }
     Ok(f)
 }
 
-/// Checks the header line.
+/// Checks the header line and says which version the log is.
 ///
 /// # Errors
-/// A message when it is not [`HEADER`].
-pub fn check_header(line: &[u8]) -> Result<(), String> {
+/// A message when it is neither [`HEADER`] nor [`HEADER_V1`].
+pub fn check_header(line: &[u8]) -> Result<Layout, String> {
     let line = line.strip_suffix(b"\r").unwrap_or(line);
     if line == HEADER.as_bytes() {
-        Ok(())
+        Ok(Layout::V2)
+    } else if line == HEADER_V1.as_bytes() {
+        Ok(Layout::V1)
     } else {
-        Err(format!("not an rchold log: the first line must be exactly {HEADER:?}"))
+        Err(format!("not an rchold log: the first line must be exactly {HEADER:?} (or, version 1, {HEADER_V1:?})"))
     }
 }
 
@@ -414,6 +474,7 @@ pub fn check_header(line: &[u8]) -> Result<(), String> {
 /// The first bad line's offset, field and message, or `each`'s error.
 pub fn parse_chunk(
     chunk: &[u8],
+    layout: Layout,
     mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
 ) -> Result<u64, (u64, Option<&'static str>, String)> {
     let mut quoted = csv::ByteRecord::new();
@@ -424,7 +485,7 @@ pub fn parse_chunk(
         let end = memchr::memchr(b'\n', chunk.get(at..).unwrap_or(&[])).map_or(chunk.len(), |i| at + i);
         let raw = chunk.get(at..end).unwrap_or(&[]);
         let line = raw.strip_suffix(b"\r").unwrap_or(raw);
-        let f = fields(line, &mut quoted).map_err(|m| (n, None, m))?;
+        let f = fields(line, layout, &mut quoted).map_err(|m| (n, None, m))?;
         let parsed = parse_fields_cached(&f, &mut days).map_err(|(field, m)| (n, Some(field), m))?;
         each(n, &parsed).map_err(|m| (n, None, m))?;
         n += 1;
@@ -450,7 +511,7 @@ pub fn read<R: Read>(
     let at = |line: u64, field: Option<&'static str>, message: String| LogError::at(file, line, field, message);
     let mut buf: Vec<u8> = Vec::with_capacity(BLOCK);
     let mut line_no = 0u64; // lines before the buffer's start
-    let mut header_done = false;
+    let mut layout: Option<Layout> = None;
     let mut n = 0u64;
     let mut eof = false;
     while !eof {
@@ -468,18 +529,17 @@ pub fn read<R: Read>(
         // Whole lines only, unless at the end.
         let usable = if eof { buf.len() } else { memchr::memrchr(b'\n', &buf).map_or(0, |i| i + 1) };
         let mut start = 0;
-        if !header_done && (usable > 0 || eof) {
+        if layout.is_none() && (usable > 0 || eof) {
             let end = memchr::memchr(b'\n', buf.get(..usable).unwrap_or(&[])).unwrap_or(usable);
             if buf.is_empty() {
                 return Err(at(1, None, format!("empty file: an rchold log starts with {HEADER:?}")));
             }
-            check_header(buf.get(..end).unwrap_or(&[])).map_err(|m| at(1, None, m))?;
-            header_done = true;
+            layout = Some(check_header(buf.get(..end).unwrap_or(&[])).map_err(|m| at(1, None, m))?);
             line_no = 1;
             start = (end + 1).min(usable);
         }
         let chunk = buf.get(start..usable).unwrap_or(&[]);
-        match parse_chunk(chunk, |i, l| each(line_no + i + 1, l)) {
+        match parse_chunk(chunk, layout.unwrap_or(Layout::V2), |i, l| each(line_no + i + 1, l)) {
             Ok(c) => {
                 n += c;
                 line_no += c;
@@ -497,7 +557,7 @@ pub fn read<R: Read>(
             ));
         }
     }
-    if !header_done {
+    if layout.is_none() {
         return Err(at(1, None, format!("empty file: an rchold log starts with {HEADER:?}")));
     }
     Ok(n)
@@ -516,13 +576,14 @@ pub enum RangeError {
 }
 
 /// Reads the data lines in bytes `start .. end` of the log at `path` (both
-/// at line starts), in blocks, calling `each` with the line's index within
-/// the range. Memory: one block.
+/// at line starts, lines of `layout`, as [`split`] found), in blocks,
+/// calling `each` with the line's index within the range. Memory: one block.
 ///
 /// # Errors
 /// Read errors and the first bad line.
 pub fn read_range(
     path: &Path,
+    layout: Layout,
     start: u64,
     end: u64,
     mut each: impl FnMut(u64, &Line<'_>) -> Result<(), String>,
@@ -546,7 +607,7 @@ pub fn read_range(
         let eof = got == 0;
         let data = buf.get(..filled).unwrap_or(&[]);
         let usable = if eof { filled } else { memchr::memrchr(b'\n', data).map_or(0, |i| i + 1) };
-        match parse_chunk(data.get(..usable).unwrap_or(&[]), |i, l| each(n + i, l)) {
+        match parse_chunk(data.get(..usable).unwrap_or(&[]), layout, |i, l| each(n + i, l)) {
             Ok(c) => n += c,
             Err((i, field, m)) => return Err(RangeError::Line(n + i, field, m)),
         }
@@ -563,11 +624,11 @@ pub fn read_range(
 }
 
 /// Checks a log's header and splits its data into up to `parts` byte ranges
-/// that start and end at line starts.
+/// that start and end at line starts; returns the log's layout with them.
 ///
 /// # Errors
 /// A [`LogError`] for a missing or wrong header, or a read error.
-pub fn split(path: &Path, parts: usize) -> Result<Vec<(u64, u64)>, LogError> {
+pub fn split(path: &Path, parts: usize) -> Result<(Layout, Vec<(u64, u64)>), LogError> {
     use std::io::{Seek, SeekFrom};
     let at = |line: u64, message: String| LogError { file: path.to_path_buf(), line, field: None, message };
     let mut f = std::fs::File::open(path).map_err(|e| at(1, format!("cannot read: {e}")))?;
@@ -579,7 +640,7 @@ pub fn split(path: &Path, parts: usize) -> Result<Vec<(u64, u64)>, LogError> {
         return Err(at(1, format!("empty file: an rchold log starts with {HEADER:?}")));
     }
     let header_end = memchr::memchr(b'\n', &head).map_or(head.len(), |i| i + 1);
-    check_header(head.get(..header_end).map_or(&[][..], |h| h.strip_suffix(b"\n").unwrap_or(h)))
+    let layout = check_header(head.get(..header_end).map_or(&[][..], |h| h.strip_suffix(b"\n").unwrap_or(h)))
         .map_err(|m| at(1, m))?;
     let data = size.saturating_sub(header_end as u64);
     let parts = parts.clamp(1, 64) as u64;
@@ -607,13 +668,14 @@ pub fn split(path: &Path, parts: usize) -> Result<Vec<(u64, u64)>, LogError> {
         cuts.push(p.clamp(last, size));
     }
     cuts.push(size);
-    Ok(cuts
+    let pieces = cuts
         .windows(2)
         .filter_map(|w| match w {
             [a, b] if b > a => Some((*a, *b)),
             _ => None,
         })
-        .collect())
+        .collect();
+    Ok((layout, pieces))
 }
 
 /// Lines (1-based number of the first line) that start at byte `offset`.
@@ -689,11 +751,12 @@ pub fn write_line(
     });
     writeln!(
         out,
-        "{},{},{},{},{},{},{},{},{},{},{},{},{},{}",
+        "{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}",
         time::format_ms(measured_ms),
         guarded(station),
         guarded(batch),
         r.unit_id,
+        r.boot,
         r.seq,
         r.clock_hz,
         r.press_ticks,
@@ -717,6 +780,7 @@ mod tests {
         Record {
             seq: 3,
             unit_id: 1_204,
+            boot: 9,
             press_ticks: 50_000,
             on_ticks: Some(12),
             hold_ticks: Some(74_000),
@@ -782,9 +846,41 @@ mod tests {
         Ok(())
     }
 
+    /// A version-1 log (no `boot`) reads as boot 0, lines of 14 fields only.
+    #[test]
+    fn version_1_logs_still_read() -> Result<(), LogError> {
+        let line =
+            "2027-03-01T08:00:00Z,bay-1,B7,1204,3,1000000,50000,12,74000,-5.25,short,near-the-edge,settling,-151000";
+        let want = Record { boot: 0, ..rec() };
+        let got = parse_all(&format!("{HEADER_V1}\n{line}\n"))?;
+        assert_eq!(got.first().map(|g| g.3), Some(want));
+        // Quoted: the csv crate's path reads it alike.
+        let quoted = line.replace("bay-1", "\"bay-1\"");
+        assert_eq!(parse_all(&format!("{HEADER_V1}\n{quoted}\n"))?.first().map(|g| g.3), Some(want));
+        let e =
+            parse_all(&format!("{HEADER_V1}\n{}\n", line.replace(",1204,", ",1204,9,"))).err().map(|e| e.to_string());
+        assert!(e.is_some_and(|e| e.starts_with("t.csv:2: 15 fields (accepted: exactly 14: measured_at,")));
+        let dir = tempfile::tempdir().map_err(|e| LogError::at(Path::new("t.csv"), 0, None, e.to_string()))?;
+        let path = dir.path().join("v1.csv");
+        let _ = std::fs::write(&path, format!("{HEADER_V1}\n{line}\n{quoted}\n"));
+        let (layout, pieces) = split(&path, 2)?;
+        assert_eq!(layout, Layout::V1);
+        let mut n = 0;
+        for (a, b) in pieces {
+            read_range(&path, layout, a, b, |_, l| {
+                assert_eq!(l.record, want);
+                n += 1;
+                Ok(())
+            })
+            .map_err(|_| LogError::at(&path, 0, None, "read".into()))?;
+        }
+        assert_eq!(n, 2);
+        Ok(())
+    }
+
     #[test]
     fn bad_fields_name_line_field_and_range() {
-        let good = "2027-03-01T08:00:00Z,bay-1,B7,1204,3,1000000,50000,12,74000,23.5,within-window,none,settling,";
+        let good = "2027-03-01T08:00:00Z,bay-1,B7,1204,2,3,1000000,50000,12,74000,23.5,within-window,none,settling,";
         let cases = [
             (
                 good.replace("1000000,", "999,"),
@@ -798,7 +894,9 @@ mod tests {
             (good.replace(",74000,", ",,"), "t.csv:3: hold_ticks: is empty but verdict is within-window"),
             (good.replace("08:00:00Z", "08:00:00"), "t.csv:3: measured_at: \"2027-03-01T08:00:00\" is not a UTC time"),
             (good.replace(",1204,", ",-4,"), "t.csv:3: unit: \"-4\" is not a whole number (accepted: 0 … 4294967295)"),
-            (good.replace(",none,", ",none,x,"), "t.csv:3: 15 fields (accepted: exactly 14"),
+            (good.replace(",1204,2,", ",1204,4294967296,"), "t.csv:3: boot: \"4294967296\" is out of range"),
+            (good.replace(",none,", ",none,x,"), "t.csv:3: 16 fields (accepted: exactly 15"),
+            (good.replace(",1204,2,", ",1204,"), "t.csv:3: 14 fields (accepted: exactly 15"),
         ];
         for (line, want) in cases {
             let text = format!("{HEADER}\n{good}\n{line}\n{good}\n");

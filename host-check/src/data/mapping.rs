@@ -10,6 +10,7 @@
 //! hold = "Hold [ms]"
 //! batch = "Lot"             # optional (default: empty)
 //! seq = "Run"               # optional (default: the line number)
+//! boot = "Power-ups"        # optional: the unit's boot counter (default: 0)
 //! press = "Press [ms]"      # optional (default: 0)
 //! on = "Latency [ms]"       # optional
 //! temp_c = "Temp"           # optional
@@ -53,6 +54,7 @@ struct RawColumns {
     hold: String,
     batch: Option<String>,
     seq: Option<String>,
+    boot: Option<String>,
     press: Option<String>,
     on: Option<String>,
     temp_c: Option<String>,
@@ -215,7 +217,7 @@ impl Mapping {
         let opt = |name: &Option<String>, key: &'static str| name.as_ref().map(|n| need(key, n)).transpose();
         let (batch, seq, press, on) =
             (opt(&c.batch, "batch")?, opt(&c.seq, "seq")?, opt(&c.press, "press")?, opt(&c.on, "on")?);
-        let (temp, verdict) = (opt(&c.temp_c, "temp_c")?, opt(&c.verdict, "verdict")?);
+        let (temp, verdict, boot) = (opt(&c.temp_c, "temp_c")?, opt(&c.verdict, "verdict")?, opt(&c.boot, "boot")?);
         let mut n = 0u64;
         for (i, row) in rdr.records().enumerate() {
             let line_no = i as u64 + 2;
@@ -241,6 +243,10 @@ impl Mapping {
             let seq_no: u32 = match seq {
                 Some(_) => cell(seq).trim().parse().map_err(|_| bad("seq", cell(seq), "0 … 4294967295"))?,
                 None => u32::try_from(line_no).unwrap_or(u32::MAX),
+            };
+            let boot_no: u32 = match boot {
+                Some(_) => cell(boot).trim().parse().map_err(|_| bad("boot", cell(boot), "0 … 4294967295"))?,
+                None => 0,
             };
             let t =
                 |field: &'static str, k: Option<usize>, u: TimeUnit, empty_ok: bool| -> Result<Option<u64>, LogError> {
@@ -283,6 +289,7 @@ impl Mapping {
                 record: Record {
                     seq: seq_no,
                     unit_id,
+                    boot: boot_no,
                     press_ticks,
                     on_ticks,
                     hold_ticks,

@@ -46,11 +46,11 @@ use crate::report::aging;
 use crate::stage::file::StageFile;
 
 /// The schema version this build writes.
-pub const SCHEMA_VERSION: u32 = 6;
+pub const SCHEMA_VERSION: u32 = 7;
 
 /// Migrations: entry `i` moves a database from version `i` to `i + 1`
 /// (3 → 4 is followed by the summaries' recount, [`Store::migrate_to`]).
-const MIGRATIONS: [&str; 6] = [
+const MIGRATIONS: [&str; 7] = [
     // 0 → 1: the tables.
     "CREATE TABLE setup (
         id INTEGER PRIMARY KEY,
@@ -173,14 +173,58 @@ const MIGRATIONS: [&str; 6] = [
      ALTER TABLE source ADD COLUMN seq_back INTEGER NOT NULL DEFAULT 0;
      ALTER TABLE source ADD COLUMN gap_units INTEGER NOT NULL DEFAULT 0;
      ALTER TABLE source ADD COLUMN conflicts INTEGER NOT NULL DEFAULT 0;",
+    // 6 → 7: the unit's boot in the key (a restart is not a repeat), and a
+    // key repeated with other content kept as a retest (`retest` 1, 2, …)
+    // rather than dropped; per stream, each unit's restarts.
+    "DROP VIEW measurement;
+     DROP INDEX reading_reject;
+     ALTER TABLE reading RENAME TO reading_6;
+     CREATE TABLE reading (
+        station_id INTEGER NOT NULL,
+        unit_id INTEGER NOT NULL,
+        boot INTEGER NOT NULL,
+        seq INTEGER NOT NULL,
+        retest INTEGER NOT NULL,
+        measured_ms INTEGER NOT NULL,
+        batch_id INTEGER NOT NULL,
+        setup_id INTEGER NOT NULL,
+        source_id INTEGER NOT NULL,
+        clock_hz INTEGER,
+        press_ticks INTEGER NOT NULL,
+        on_ticks INTEGER,
+        hold_ticks INTEGER,
+        temp_mdeg_c INTEGER,
+        c_dev_ppm INTEGER,
+        codes INTEGER NOT NULL,
+        PRIMARY KEY (station_id, unit_id, boot, seq, retest)
+     ) WITHOUT ROWID;
+     INSERT INTO reading
+        SELECT station_id, unit_id, 0, seq, 0, measured_ms, batch_id, setup_id, source_id, clock_hz,
+               press_ticks, on_ticks, hold_ticks, temp_mdeg_c, c_dev_ppm, codes
+        FROM reading_6;
+     DROP TABLE reading_6;
+     CREATE INDEX reading_reject ON reading (station_id, unit_id, boot, seq, retest) WHERE codes % 16 != 0;
+     CREATE VIEW measurement AS
+        SELECT r.station_id, r.unit_id, r.boot, r.seq, r.retest, b.name AS batch, r.measured_ms,
+               coalesce(r.clock_hz, s.clock_hz) AS clock_hz, r.press_ticks, r.on_ticks, r.hold_ticks,
+               r.temp_mdeg_c, r.codes % 16 AS verdict, (r.codes / 16) % 16 AS hint, r.codes / 256 AS drift,
+               r.c_dev_ppm, nullif(r.setup_id, 0) AS setup_id, r.source_id
+        FROM reading r JOIN batch b ON b.id = r.batch_id LEFT JOIN setup s ON s.id = r.setup_id;
+     ALTER TABLE source_unit ADD COLUMN boot INTEGER NOT NULL DEFAULT 0;
+     ALTER TABLE source_unit ADD COLUMN restarts INTEGER NOT NULL DEFAULT 0;
+     ALTER TABLE source ADD COLUMN restarts INTEGER NOT NULL DEFAULT 0;",
 ];
 
 /// One unit's sequence numbers as one stream delivered them. The rule: a
-/// record whose number is above the one before adds the numbers between to
-/// `missing`; one whose number is not above it counts in `back` (a repeat, a
-/// late arrival or a restart after a reboot).
+/// record of another boot than the one before counts in `restarts` (its
+/// numbering starts afresh); within a boot, a record whose number is above
+/// the one before adds the numbers between to `missing`, and one whose number
+/// is not above it counts in `back` (a repeat, a late arrival, or a restart
+/// of a unit that sends no boot counter).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct UnitSeq {
+    /// Boot of the last record received.
+    pub boot: u32,
     /// First sequence number received.
     pub first_seq: u32,
     /// Last sequence number received.
@@ -191,19 +235,24 @@ pub struct UnitSeq {
     pub missing: u64,
     /// Records whose number was not above the one before.
     pub back: u64,
+    /// Records of another boot than the one before.
+    pub restarts: u64,
 }
 
 impl UnitSeq {
-    /// A unit first seen at `seq` (nothing received yet: call [`UnitSeq::see`]).
+    /// A unit first seen at `seq` of `boot` (nothing received yet: call [`UnitSeq::see`]).
     #[must_use]
-    pub const fn starting_at(seq: u32) -> UnitSeq {
-        UnitSeq { first_seq: seq, last_seq: seq, received: 0, missing: 0, back: 0 }
+    pub const fn starting_at(boot: u32, seq: u32) -> UnitSeq {
+        UnitSeq { boot, first_seq: seq, last_seq: seq, received: 0, missing: 0, back: 0, restarts: 0 }
     }
 
-    /// Counts a record numbered `seq`.
-    pub fn see(&mut self, seq: u32) {
+    /// Counts a record numbered `seq` of `boot`.
+    pub fn see(&mut self, boot: u32, seq: u32) {
         if self.received > 0 {
-            if seq > self.last_seq {
+            if boot != self.boot {
+                self.restarts += 1;
+                self.boot = boot;
+            } else if seq > self.last_seq {
                 self.missing += u64::from(seq - self.last_seq - 1);
             } else {
                 self.back += 1;
@@ -240,9 +289,12 @@ pub struct Source {
     pub seq_back: u64,
     /// Units with skipped numbers (streams).
     pub gap_units: u64,
-    /// Records already stored with other content (same station, unit and
-    /// number): counted in `duplicates` too, the first kept.
+    /// Records whose key (station, unit, boot, number) was stored already
+    /// with other content: stored as retests (in `records`). Stores older
+    /// than schema 7 counted them in `duplicates` instead and kept the first.
     pub conflicts: u64,
+    /// Records of another boot than their unit's one before (streams).
+    pub restarts: u64,
 }
 
 /// An error of the store, with the database file it concerns.
@@ -372,10 +424,10 @@ pub struct Written {
     pub source_id: i64,
     /// New measurements stored.
     pub stored: u64,
-    /// Records skipped because (station, unit, seq) was already stored.
+    /// Records skipped because they were stored already (key and [`Content`]).
     pub duplicates: u64,
-    /// Of those, records whose content differs from the stored one (a
-    /// retest, or a unit that restarted its numbers): the first is kept.
+    /// Records stored as retests: their key (station, unit, boot, seq) was
+    /// stored with other content (counted in `stored` too).
     pub conflicts: u64,
 }
 
@@ -386,13 +438,32 @@ pub struct Store {
     path: PathBuf,
 }
 
-const INSERT: &str = "INSERT OR IGNORE INTO reading (station_id, unit_id, seq, measured_ms, batch_id, setup_id, \
-     source_id, clock_hz, press_ticks, on_ticks, hold_ticks, temp_mdeg_c, c_dev_ppm, codes) \
-     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14)";
+const INSERT: &str = "INSERT OR IGNORE INTO reading (station_id, unit_id, boot, seq, retest, measured_ms, batch_id, \
+     setup_id, source_id, clock_hz, press_ticks, on_ticks, hold_ticks, temp_mdeg_c, c_dev_ppm, codes) \
+     VALUES (?1, ?2, ?3, ?4, ?16, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12, ?13, ?14, ?15)";
 
-/// A stored record's content as compared with a repeat of its key: clock,
-/// press, turn-on, hold, temperature, capacitance deviation, codes.
-type Content = (Option<i64>, i64, Option<i64>, Option<i64>, Option<i32>, Option<i32>, i64);
+/// What tells two records of one key (station, unit, boot, seq) apart:
+/// clock, press, turn-on, hold, temperature, capacitance deviation and the
+/// three codes (not the time, batch or setup: the same measurement sent
+/// twice is the same). The one rule of repeats, for the store and for
+/// `yield --csv`: a record whose key and content are both stored already is
+/// a duplicate (not stored again); one whose key is stored with other
+/// content only is a retest (stored beside it).
+pub type Content = (Option<i64>, i64, Option<i64>, Option<i64>, Option<i32>, Option<i32>, i64);
+
+/// The [`Content`] of a record.
+#[must_use]
+pub fn content(r: &Record) -> Content {
+    (
+        Some(i64::from(r.clock_hz)),
+        u64_sql(r.press_ticks),
+        r.on_ticks.map(u64_sql),
+        r.hold_ticks.map(u64_sql),
+        r.temp_mdeg_c,
+        r.c_deviation_ppm,
+        pack_codes(r),
+    )
+}
 
 /// The three codes of a record in one integer: verdict + 16·hint + 256·drift.
 #[must_use]
@@ -599,8 +670,10 @@ impl Store {
         self.conn.query_row("PRAGMA user_version", [], |r| r.get(0)).map_err(|e| self.err(e))
     }
 
-    /// Applies the migrations from the version on disk up to `target`
-    /// (each in its own transaction). [`Store::open`] migrates to the latest.
+    /// Applies the migrations from the version on disk up to `target`, in one
+    /// transaction (a store of schema 3 or older goes on to the latest: its
+    /// summaries are counted from its rows in the latest layout).
+    /// [`Store::open`] migrates to the latest.
     ///
     /// # Errors
     /// A database newer than this build, or SQLite errors.
@@ -614,14 +687,12 @@ impl Store {
                 format!("schema version {on_disk} was written by a newer rchold (this one knows 0 … {SCHEMA_VERSION})"),
             ));
         }
-        for v in on_disk..target.min(SCHEMA_VERSION) {
+        // Past schema 3 the summaries are counted from the rows, read in the
+        // latest layout: such a migration goes on to the latest.
+        let target = if on_disk <= 3 && target > 3 { SCHEMA_VERSION } else { target.min(SCHEMA_VERSION) };
+        for v in on_disk..target {
             let sql = MIGRATIONS.get(v as usize).ok_or_else(|| se(&path, "missing migration"))?;
             tx.execute_batch(sql).map_err(|e| se(&path, format!("migration {v} → {}: {e}", v + 1)))?;
-            if v == 3 {
-                // The summaries of the rows carried over.
-                let sums = recount(&tx, &path)?;
-                write_summaries(&tx, &path, &sums, true)?;
-            }
             if v == 0 {
                 for (i, n) in codes::VERDICTS.iter().map(|v| v.name()).enumerate() {
                     tx.execute("INSERT INTO verdict VALUES (?1, ?2)", params![i as i64, n])
@@ -635,6 +706,12 @@ impl Store {
                 }
             }
             tx.pragma_update(None, "user_version", v + 1).map_err(|e| se(&path, e))?;
+        }
+        if (on_disk..target).contains(&3) {
+            // The summaries of the rows carried over from before schema 4,
+            // counted once the rows have their latest layout.
+            let sums = recount(&tx, &path)?;
+            write_summaries(&tx, &path, &sums, true)?;
         }
         tx.commit().map_err(|e| se(&path, e))?;
         self.schema_version()
@@ -722,6 +799,21 @@ impl Store {
         self.conn
             .query_row("SELECT id FROM source WHERE digest = ?1", [digest], |r| r.get(0))
             .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// Whether a stored log file has `bytes` bytes (a file of another length
+    /// cannot have a stored log's contents).
+    ///
+    /// # Errors
+    /// SQLite errors.
+    pub fn log_of_length(&self, bytes: u64) -> Result<bool, StoreError> {
+        self.conn
+            .query_row(
+                "SELECT EXISTS (SELECT 1 FROM source WHERE kind = 'log' AND bytes = ?1)",
+                [u64_sql(bytes)],
+                |r| r.get(0),
+            )
             .map_err(|e| self.err(e))
     }
 
@@ -850,7 +942,7 @@ impl Store {
     }
 
     /// The rows matching `filter` (and `station`, by id), in (station, unit,
-    /// seq) order; `each` returns `false` to stop.
+    /// boot, seq, retest) order; `each` returns `false` to stop.
     fn scan(
         conn: &Connection,
         path: &Path,
@@ -872,7 +964,7 @@ impl Store {
         let err = |e: rusqlite::Error| se(path, e);
         let mut sql = String::from(
             "SELECT m.station_id, m.batch_id, m.measured_ms, m.unit_id, m.seq, coalesce(m.clock_hz, u.clock_hz), \
-             m.press_ticks, m.on_ticks, m.hold_ticks, m.temp_mdeg_c, m.codes, m.c_dev_ppm, m.setup_id \
+             m.press_ticks, m.on_ticks, m.hold_ticks, m.temp_mdeg_c, m.codes, m.c_dev_ppm, m.setup_id, m.boot \
              FROM reading m LEFT JOIN setup u ON u.id = m.setup_id WHERE 1",
         );
         let mut args: Vec<rusqlite::types::Value> = Vec::new();
@@ -904,7 +996,7 @@ impl Store {
             // The partial index `reading_reject` holds exactly these rows.
             sql.push_str(" AND m.codes % 16 != 0");
         }
-        sql.push_str(" ORDER BY m.station_id, m.unit_id, m.seq");
+        sql.push_str(" ORDER BY m.station_id, m.unit_id, m.boot, m.seq, m.retest");
         let mut st = conn.prepare(&sql).map_err(err)?;
         let mut rows = st.query(rusqlite::params_from_iter(args)).map_err(err)?;
         let bad = |what: &str, code: i64| se(path, format!("stored {what} code {code} is unknown to this rchold"));
@@ -916,6 +1008,7 @@ impl Store {
             let record = Record {
                 unit_id: u32::try_from(get(3)?).unwrap_or(u32::MAX),
                 seq: u32::try_from(get(4)?).unwrap_or(u32::MAX),
+                boot: u32::try_from(get(13)?).unwrap_or(u32::MAX),
                 clock_hz: u32::try_from(opt(5)?.unwrap_or(0)).unwrap_or(0),
                 press_ticks: get(6)?.max(0) as u64,
                 on_ticks: opt(7)?.map(|v| v.max(0) as u64),
@@ -943,8 +1036,8 @@ impl Store {
         let mut st = self
             .conn
             .prepare(
-                "SELECT unit_id, first_seq, last_seq, received, missing, back FROM source_unit \
-                 WHERE source_id = ?1 ORDER BY missing DESC, back DESC, unit_id",
+                "SELECT unit_id, first_seq, last_seq, received, missing, back, boot, restarts FROM source_unit \
+                 WHERE source_id = ?1 ORDER BY missing DESC, back DESC, restarts DESC, unit_id",
             )
             .map_err(|e| self.err(e))?;
         let rows = st
@@ -953,7 +1046,15 @@ impl Store {
                 let seq = |i: usize| r.get::<_, i64>(i).map(|v| u32::try_from(v).unwrap_or(0));
                 Ok((
                     seq(0)?,
-                    UnitSeq { first_seq: seq(1)?, last_seq: seq(2)?, received: u(3)?, missing: u(4)?, back: u(5)? },
+                    UnitSeq {
+                        boot: seq(6)?,
+                        first_seq: seq(1)?,
+                        last_seq: seq(2)?,
+                        received: u(3)?,
+                        missing: u(4)?,
+                        back: u(5)?,
+                        restarts: u(7)?,
+                    },
                 ))
             })
             .map_err(|e| self.err(e))?;
@@ -969,7 +1070,7 @@ impl Store {
             .conn
             .prepare(
                 "SELECT id, kind, name, records, duplicates, bad_frames, bytes, refused, seq_missing, seq_back, \
-                 gap_units, conflicts FROM source ORDER BY id",
+                 gap_units, conflicts, restarts FROM source ORDER BY id",
             )
             .map_err(|e| self.err(e))?;
         let rows = st
@@ -988,6 +1089,7 @@ impl Store {
                     seq_back: u(9)?,
                     gap_units: u(10)?,
                     conflicts: u(11)?,
+                    restarts: u(12)?,
                 })
             })
             .map_err(|e| self.err(e))?;
@@ -1478,7 +1580,8 @@ impl Batch<'_> {
         Ok(None)
     }
 
-    /// Stores one measurement; `false` if (station, unit, seq) was stored already.
+    /// Stores one measurement; `false` if it was stored already (its key and
+    /// [`Content`]); a stored key with other content stores it as a retest.
     ///
     /// # Errors
     /// SQLite errors.
@@ -1498,7 +1601,9 @@ impl Batch<'_> {
 
     /// Stores measurements `(station, batch, measured_ms, record)` measured
     /// against `setup_id`, through one prepared statement (an ingest's fast
-    /// path); (station, unit, seq) already stored counts as a duplicate.
+    /// path); a record stored already (key and [`Content`]) counts as a
+    /// duplicate, one whose key is stored with other content is stored as a
+    /// retest (and counted in `conflicts`).
     ///
     /// # Errors
     /// SQLite errors.
@@ -1550,25 +1655,65 @@ impl Batch<'_> {
             crate::data::validate::record(r).map_err(|e| se(path, format!("unit {} seq {}: {e}", r.unit_id, r.seq)))?;
             // The clock is stored only where it is not the setup's.
             let clock = if setup_clock == Some(r.clock_hz) { None } else { Some(r.clock_hz) };
-            let n = st
-                .execute(params![
+            let (press, on, hold, codes) =
+                (u64_sql(r.press_ticks), r.on_ticks.map(u64_sql), r.hold_ticks.map(u64_sql), pack_codes(r));
+            let mut put = |retest: i64| {
+                st.execute(params![
                     station_id,
                     r.unit_id,
+                    r.boot,
                     r.seq,
                     measured_ms,
                     batch_id,
                     setup,
                     source_id,
                     clock,
-                    u64_sql(r.press_ticks),
-                    r.on_ticks.map(u64_sql),
-                    r.hold_ticks.map(u64_sql),
+                    press,
+                    on,
+                    hold,
                     r.temp_mdeg_c,
                     r.c_deviation_ppm,
-                    pack_codes(r),
+                    codes,
+                    retest,
                 ])
-                .map_err(err)?;
-            if n == 1 {
+                .map(|n| n == 1)
+                .map_err(err)
+            };
+            let mut fresh = put(0)?;
+            if !fresh {
+                // The key is stored: the same measurement again, or another one (a retest)?
+                let this = content(r);
+                let mut versions = tx
+                    .prepare_cached(
+                        "SELECT coalesce(r.clock_hz, u.clock_hz), r.press_ticks, r.on_ticks, r.hold_ticks, \
+                         r.temp_mdeg_c, r.c_dev_ppm, r.codes, r.retest FROM reading r \
+                         LEFT JOIN setup u ON u.id = r.setup_id \
+                         WHERE r.station_id = ?1 AND r.unit_id = ?2 AND r.boot = ?3 AND r.seq = ?4",
+                    )
+                    .map_err(err)?;
+                let mut rows = versions.query(params![station_id, r.unit_id, r.boot, r.seq]).map_err(err)?;
+                let (mut same, mut last) = (false, 0i64);
+                while let Some(x) = rows.next().map_err(err)? {
+                    let stored_as: Content = (
+                        x.get(0).map_err(err)?,
+                        x.get(1).map_err(err)?,
+                        x.get(2).map_err(err)?,
+                        x.get(3).map_err(err)?,
+                        x.get(4).map_err(err)?,
+                        x.get(5).map_err(err)?,
+                        x.get(6).map_err(err)?,
+                    );
+                    same |= stored_as == this;
+                    last = last.max(x.get(7).map_err(err)?);
+                }
+                if same {
+                    *duplicates += 1;
+                } else {
+                    *conflicts += 1;
+                    fresh = put(last + 1)?;
+                }
+            }
+            if fresh {
                 *stored += 1;
                 if r.drift != DriftState::Settling && !drifting.contains(&station_id) {
                     // From now on every record of the station belongs in aging.
@@ -1576,33 +1721,6 @@ impl Batch<'_> {
                     newly_drifting.insert(station_id);
                 }
                 pending.add(station_id, batch_id, measured_ms, r, setup, setups, drifting);
-            } else {
-                *duplicates += 1;
-                // Same key: the same measurement again, or another one (a retest, a restart)?
-                let stored_as: Content = tx
-                    .prepare_cached(
-                        "SELECT coalesce(r.clock_hz, u.clock_hz), r.press_ticks, r.on_ticks, r.hold_ticks, \
-                         r.temp_mdeg_c, r.c_dev_ppm, r.codes FROM reading r LEFT JOIN setup u ON u.id = r.setup_id \
-                         WHERE r.station_id = ?1 AND r.unit_id = ?2 AND r.seq = ?3",
-                    )
-                    .and_then(|mut q| {
-                        q.query_row(params![station_id, r.unit_id, r.seq], |x| {
-                            Ok((x.get(0)?, x.get(1)?, x.get(2)?, x.get(3)?, x.get(4)?, x.get(5)?, x.get(6)?))
-                        })
-                    })
-                    .map_err(err)?;
-                let this = (
-                    Some(i64::from(r.clock_hz)),
-                    u64_sql(r.press_ticks),
-                    r.on_ticks.map(u64_sql),
-                    r.hold_ticks.map(u64_sql),
-                    r.temp_mdeg_c,
-                    r.c_deviation_ppm,
-                    pack_codes(r),
-                );
-                if stored_as != this {
-                    *conflicts += 1;
-                }
             }
         }
         Ok(())
@@ -1625,9 +1743,11 @@ impl Batch<'_> {
             let mut st = self
                 .tx
                 .prepare_cached(
-                    "INSERT INTO source_unit VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7) ON CONFLICT (source_id, unit_id) \
+                    "INSERT INTO source_unit (source_id, unit_id, first_seq, last_seq, received, missing, back, boot, \
+                     restarts) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9) ON CONFLICT (source_id, unit_id) \
                      DO UPDATE SET last_seq = excluded.last_seq, received = excluded.received, \
-                     missing = excluded.missing, back = excluded.back",
+                     missing = excluded.missing, back = excluded.back, boot = excluded.boot, \
+                     restarts = excluded.restarts",
                 )
                 .map_err(e)?;
             for (unit, u) in units {
@@ -1639,7 +1759,9 @@ impl Batch<'_> {
                     i64::from(u.last_seq),
                     u64_sql(u.received),
                     u64_sql(u.missing),
-                    u64_sql(u.back)
+                    u64_sql(u.back),
+                    i64::from(u.boot),
+                    u64_sql(u.restarts)
                 ])
                 .map_err(e)?;
             }
@@ -1647,9 +1769,9 @@ impl Batch<'_> {
         if any {
             self.tx
                 .execute(
-                    "UPDATE source SET (seq_missing, seq_back, gap_units) = (SELECT coalesce(sum(missing), 0), \
-                     coalesce(sum(back), 0), count(*) FILTER (WHERE missing > 0) FROM source_unit \
-                     WHERE source_id = ?1) WHERE id = ?1",
+                    "UPDATE source SET (seq_missing, seq_back, gap_units, restarts) = (SELECT \
+                     coalesce(sum(missing), 0), coalesce(sum(back), 0), count(*) FILTER (WHERE missing > 0), \
+                     coalesce(sum(restarts), 0) FROM source_unit WHERE source_id = ?1) WHERE id = ?1",
                     [source_id],
                 )
                 .map_err(e)?;
@@ -1711,6 +1833,7 @@ pub(crate) mod tests {
         Record {
             seq,
             unit_id,
+            boot: 0,
             press_ticks: 5_000,
             on_ticks: Some(3),
             hold_ticks: Some(70_000),

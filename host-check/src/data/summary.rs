@@ -297,7 +297,9 @@ pub struct UnitSums {
     pub n: u64,
     /// First time, ms.
     pub first_ms: i64,
-    /// Last time, ms (ties: the higher sequence number is the last).
+    /// Last time, ms (ties: the higher sequence number is the last, then —
+    /// a retest at the same time — the higher deviation: whatever the order
+    /// the points come in).
     pub last_ms: i64,
     /// The last point's sequence number.
     pub last_seq: u32,
@@ -349,7 +351,7 @@ impl UnitSums {
         self.sdd = self.sdd.saturating_add(d * d);
         self.std = self.std.saturating_add(t * d);
         self.first_ms = self.first_ms.min(ms);
-        if (ms, seq) >= (self.last_ms, self.last_seq) {
+        if (ms, seq, ppm) >= (self.last_ms, self.last_seq, self.last_ppm) {
             (self.last_ms, self.last_seq, self.last_ppm) = (ms, seq, ppm);
         }
     }
@@ -368,7 +370,7 @@ impl UnitSums {
         self.sdd = self.sdd.saturating_add(o.sdd);
         self.std = self.std.saturating_add(o.std);
         self.first_ms = self.first_ms.min(o.first_ms);
-        if (o.last_ms, o.last_seq) >= (self.last_ms, self.last_seq) {
+        if (o.last_ms, o.last_seq, o.last_ppm) >= (self.last_ms, self.last_seq, self.last_ppm) {
             (self.last_ms, self.last_seq, self.last_ppm) = (o.last_ms, o.last_seq, o.last_ppm);
         }
     }

@@ -20,7 +20,7 @@ use crate::Error;
 
 /// The columns every report reads: which record, when, in which batch,
 /// against which setup, on which clock.
-const KEY_COLUMNS: [&str; 6] = ["unit_id", "seq", "measured_ms", "batch", "setup_id", "clock_hz"];
+const KEY_COLUMNS: [&str; 7] = ["unit_id", "boot", "seq", "measured_ms", "batch", "setup_id", "clock_hz"];
 
 /// The dataset's files that `filter`'s station and days can hold.
 fn selected(dir: &Path, filter: &Filter) -> Result<Vec<PartFile>, Error> {

@@ -67,8 +67,11 @@ impl ReportDir {
     /// Stages `name`: its temporary path, renamed to `name` on commit.
     fn stage(&mut self, name: &str) -> PathBuf {
         let tmp = self.dir.join(format!(".{name}.{}.partial", std::process::id()));
-        self.staged.push((tmp.clone(), self.dir.join(name)));
-        self.files.push(self.dir.join(name));
+        // Staged again (written afresh): one entry still.
+        if !self.staged.iter().any(|(t, _)| *t == tmp) {
+            self.staged.push((tmp.clone(), self.dir.join(name)));
+            self.files.push(self.dir.join(name));
+        }
         tmp
     }
 

@@ -63,7 +63,8 @@ pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldChar
     if !sources.is_empty() {
         o.push_str(
             "<h2>Sources</h2><table><tr><th>id</th><th class=l>kind</th><th>stored</th><th>repeated</th>\
-             <th>with other content</th><th>refused</th><th>bad frames</th><th>seq skipped</th><th>seq back</th><th>bytes</th>\
+             <th>retests</th><th>refused</th><th>bad frames</th><th>seq skipped</th><th>seq back</th><th>restarts</th>\
+             <th>bytes</th>\
              <th class=l>name</th></tr>",
         );
         for x in sources {
@@ -77,6 +78,7 @@ pub fn page(y: &YieldReport, f: &FleetReport, sources: &[Source], yc: &YieldChar
                 r(x.bad_frames),
                 r(x.seq_missing),
                 r(x.seq_back),
+                r(x.restarts),
                 r(x.bytes),
                 l(&x.name),
             ];
@@ -222,6 +224,7 @@ mod tests {
             seq_back: 0,
             gap_units: 0,
             conflicts: 0,
+            restarts: 0,
         };
         let p = page(&y, &f, &[src], &YieldCharts::default(), &AgingCharts::default());
         assert!(!p.contains("<script>") && p.contains("&lt;script&gt;") && p.contains("B&amp;1"));

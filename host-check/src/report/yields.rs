@@ -943,11 +943,66 @@ impl Tally {
     }
 }
 
+/// Where a reject log goes: called once per pass over the logs, each call
+/// starting the file afresh (`None`: no reject log).
+pub type RejectSink<'a> = dyn FnMut() -> Result<Option<Box<dyn Write + Send>>, Error> + 'a;
+
+/// Lines left out as repeats: (file, piece, line within the piece).
+type Skip = std::collections::HashSet<(usize, usize, u64)>;
+
+/// A line's key — station, unit, boot, sequence number — hashed: the
+/// station's bytes by FNV-1a, then the numbers, each round finished by
+/// SplitMix64's mixer (a bijection of 64 bits: two keys of one station that
+/// differ only in `seq` never share a hash). Equal hashes are only
+/// candidates: [`Pass::exact_repeats`] compares the keys themselves.
+fn key_hash(station: &str, r: &Record) -> u64 {
+    fn mix(mut z: u64) -> u64 {
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+    let mut h: u64 = 0xCBF2_9CE4_8422_2325;
+    for &b in station.as_bytes() {
+        h = (h ^ u64::from(b)).wrapping_mul(0x0000_0100_0000_01B3);
+    }
+    h = mix(h ^ (u64::from(r.unit_id) | u64::from(r.boot) << 32));
+    mix(h ^ u64::from(r.seq))
+}
+
+/// The values that occur more than once in `runs` (each sorted), by a
+/// k-way merge: no copy of the runs.
+fn repeated(runs: &[Vec<u64>]) -> std::collections::HashSet<u64> {
+    use std::cmp::Reverse;
+    let mut out = std::collections::HashSet::new();
+    let mut heap: std::collections::BinaryHeap<Reverse<(u64, usize, usize)>> =
+        runs.iter().enumerate().filter_map(|(k, r)| r.first().map(|&v| Reverse((v, k, 0)))).collect();
+    let mut last = None;
+    while let Some(Reverse((v, k, i))) = heap.pop() {
+        if last == Some(v) {
+            out.insert(v);
+        }
+        last = Some(v);
+        if let Some(&next) = runs.get(k).and_then(|r| r.get(i + 1)) {
+            heap.push(Reverse((next, k, i + 1)));
+        }
+    }
+    out
+}
+
 /// Reads measurement logs in parallel pieces — each file split at line
 /// breaks into one piece per thread, each piece tallied on its own, the
 /// tallies merged in file order — and returns the report. Every record is
 /// judged against setup `setup_id` of `setups` (when given); `keep` says
-/// which records count. Rejects go to `reject_log` in file order.
+/// which records count. Rejects go to the reject log in file order.
+///
+/// Repeats count as the store counts them (the rule of
+/// [`crate::data::store::Content`]): a line whose key (station, unit, boot,
+/// seq) and content an earlier line had is left out, before `keep` looks
+/// at it; one whose key came with other content counts as a retest. The
+/// first pass keeps an 8-byte hash of every line's key; only if two lines
+/// share one are the logs read again: once for the lines of those keys,
+/// compared exactly, and once more to tally without the repeats (the
+/// reject log written afresh).
 ///
 /// # Errors
 /// The first bad line of the first file that has one (file, line, field,
@@ -957,61 +1012,173 @@ pub fn tally_logs(
     setups: &HashMap<i64, Setup>,
     setup_id: Option<i64>,
     recheck: bool,
-    reject_log: Option<Box<dyn Write + Send>>,
+    reject_log: &mut RejectSink<'_>,
     keep: &(dyn Fn(&log::Line<'_>) -> bool + Sync),
     threads: usize,
 ) -> Result<YieldReport, Error> {
-    let mut total = Tally::new(setups, recheck, reject_log);
-    let buffer = matches!(total.reject_log, RejectLog::Writer(_));
     // Lines that leave verdict or hint empty are judged against the given stage's window.
     let judge = setup_id.and_then(|id| setups.get(&id)).map(HoldJudge::new).transpose()?;
     let judge = judge.as_ref();
-    for path in paths {
-        let pieces = log::split(path, threads)?;
-        let results: Vec<Result<Tally, (u64, log::RangeError)>> = std::thread::scope(|scope| {
-            let handles: Vec<_> = pieces
-                .iter()
-                .map(|&(a, b)| {
-                    scope.spawn(move || {
-                        let mut t = Tally::new(setups, recheck, None);
-                        if buffer {
-                            t.buffer_rejects();
-                        }
-                        log::read_range(path, a, b, |_, l| {
-                            if keep(l) {
-                                let mut l = l.clone();
-                                if l.unjudged() {
-                                    judge.ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut l)?;
-                                }
-                                t.add(l.station, l.batch, l.measured_ms, &l.record, setup_id);
-                            }
-                            Ok(())
+    let pass = Pass { paths, judge, threads };
+    let mut keys = Vec::new();
+    let total =
+        pass.tally(Tally::new(setups, recheck, reject_log()?), setup_id, keep, &Skip::new(), Some(&mut keys))?;
+    let suspects = repeated(&keys);
+    drop(keys);
+    if suspects.is_empty() {
+        return total.finish().map_err(|e| Error::io("rejects.csv", e));
+    }
+    drop(total);
+    let skip = pass.exact_repeats(&suspects)?;
+    let total = pass.tally(Tally::new(setups, recheck, reject_log()?), setup_id, keep, &skip, None)?;
+    total.finish().map_err(|e| Error::io("rejects.csv", e))
+}
+
+/// The logs of one `tally_logs`, read in the same pieces on every pass.
+struct Pass<'a> {
+    paths: &'a [std::path::PathBuf],
+    judge: Option<&'a HoldJudge>,
+    threads: usize,
+}
+
+impl Pass<'_> {
+    /// Calls `each(piece's tally-or-state, line index, line)` for every line of
+    /// every piece of every file, the pieces of a file in parallel; returns
+    /// each file's pieces' results in order, or the first bad line.
+    fn pieces<T: Send>(
+        &self,
+        start: impl Fn(usize, usize) -> T + Sync,
+        each: impl Fn(&mut T, usize, u64, &log::Line<'_>) -> Result<(), String> + Sync,
+        finish: impl Fn(&mut T) + Sync,
+        mut done: impl FnMut(T),
+    ) -> Result<(), Error> {
+        for (fi, path) in self.paths.iter().enumerate() {
+            let (layout, pieces) = log::split(path, self.threads)?;
+            let (start, each, finish) = (&start, &each, &finish);
+            let results: Vec<Result<T, (u64, log::RangeError)>> = std::thread::scope(|scope| {
+                let handles: Vec<_> = pieces
+                    .iter()
+                    .enumerate()
+                    .map(|(pi, &(a, b))| {
+                        scope.spawn(move || {
+                            let mut t = start(fi, pi);
+                            log::read_range(path, layout, a, b, |i, l| each(&mut t, pi, i, l))
+                                .map(|_| {
+                                    finish(&mut t);
+                                    t
+                                })
+                                .map_err(|e| (a, e))
                         })
-                        .map(|_| t)
-                        .map_err(|e| (a, e))
                     })
-                })
-                .collect();
-            handles
-                .into_iter()
-                .map(|h| {
-                    h.join()
-                        .unwrap_or_else(|_| Err((0, log::RangeError::Line(0, None, "a reader thread failed".into()))))
-                })
-                .collect()
-        });
-        for r in results {
-            match r {
-                Ok(t) => total.merge(t),
-                Err((_, log::RangeError::Io(e))) => return Err(Error::io(path, e)),
-                Err((start, log::RangeError::Line(i, field, m))) => {
-                    let first = log::line_at(path, start).map_err(|e| Error::io(path, e))?;
-                    return Err(log::LogError { file: path.clone(), line: first + i, field, message: m }.into());
+                    .collect();
+                handles
+                    .into_iter()
+                    .map(|h| {
+                        h.join().unwrap_or_else(|_| {
+                            Err((0, log::RangeError::Line(0, None, "a reader thread failed".into())))
+                        })
+                    })
+                    .collect()
+            });
+            for r in results {
+                match r {
+                    Ok(t) => done(t),
+                    Err((_, log::RangeError::Io(e))) => return Err(Error::io(path, e)),
+                    Err((start, log::RangeError::Line(i, field, m))) => {
+                        let first = log::line_at(path, start).map_err(|e| Error::io(path, e))?;
+                        return Err(log::LogError { file: path.clone(), line: first + i, field, message: m }.into());
+                    }
                 }
             }
         }
+        Ok(())
     }
-    total.finish().map_err(|e| Error::io("rejects.csv", e))
+
+    /// The line as judged (a verdict or hint left empty settled against the stage).
+    fn settled<'l>(&self, l: &log::Line<'l>) -> Result<log::Line<'l>, String> {
+        let mut l = l.clone();
+        if l.unjudged() {
+            self.judge.ok_or_else(|| NO_JUDGE.to_owned())?.settle(&mut l)?;
+        }
+        Ok(l)
+    }
+
+    /// One tally over the logs without the lines in `skip`; with `keys`, the
+    /// key hashes of every line read (kept or not), one sorted run per piece.
+    fn tally(
+        &self,
+        mut total: Tally,
+        setup_id: Option<i64>,
+        keep: &(dyn Fn(&log::Line<'_>) -> bool + Sync),
+        skip: &Skip,
+        mut keys: Option<&mut Vec<Vec<u64>>>,
+    ) -> Result<Tally, Error> {
+        let buffer = matches!(total.reject_log, RejectLog::Writer(_));
+        let hashing = keys.is_some();
+        let proto = total.fork();
+        let proto = std::sync::Mutex::new(proto);
+        self.pieces(
+            |fi, _| {
+                let mut t = proto.lock().unwrap_or_else(std::sync::PoisonError::into_inner).fork();
+                if buffer {
+                    t.buffer_rejects();
+                }
+                (t, fi, Vec::new())
+            },
+            |(t, fi, hashes), pi, i, l| {
+                if skip.contains(&(*fi, pi, i)) {
+                    return Ok(());
+                }
+                if hashing {
+                    hashes.push(key_hash(l.station, &l.record));
+                }
+                if keep(l) {
+                    let l = self.settled(l)?;
+                    t.add(l.station, l.batch, l.measured_ms, &l.record, setup_id);
+                }
+                Ok(())
+            },
+            |(_, _, hashes)| hashes.sort_unstable(),
+            |(t, _, hashes)| {
+                total.merge(t);
+                if let Some(k) = keys.as_deref_mut() {
+                    k.push(hashes);
+                }
+            },
+        )?;
+        Ok(total)
+    }
+
+    /// The lines that repeat an earlier line's key and content, among those
+    /// whose key hash is in `suspects`, compared exactly in file order.
+    fn exact_repeats(&self, suspects: &std::collections::HashSet<u64>) -> Result<Skip, Error> {
+        type Candidate = (u64, (String, u32, u32, u32), crate::data::store::Content);
+        let mut seen: HashMap<(String, u32, u32, u32), Vec<crate::data::store::Content>> = HashMap::new();
+        let mut skip = Skip::new();
+        self.pieces(
+            |fi, pi| (fi, pi, Vec::<Candidate>::new()),
+            |(_, _, found), _, i, l| {
+                if suspects.contains(&key_hash(l.station, &l.record)) {
+                    let l = self.settled(l)?;
+                    let r = &l.record;
+                    found.push((i, (l.station.to_owned(), r.unit_id, r.boot, r.seq), crate::data::store::content(r)));
+                }
+                Ok(())
+            },
+            |_| {},
+            |(fi, pi, found)| {
+                for (i, key, content) in found {
+                    let versions = seen.entry(key).or_default();
+                    if versions.contains(&content) {
+                        skip.insert((fi, pi, i));
+                    } else {
+                        versions.push(content);
+                    }
+                }
+            },
+        )?;
+        Ok(skip)
+    }
 }
 
 /// `part` as a percentage of `total` to 2 decimals, or a dash.
@@ -1275,6 +1442,7 @@ pub(crate) mod tests {
         Record {
             seq: 0,
             unit_id: unit,
+            boot: 0,
             press_ticks: 100_000,
             on_ticks: Some(54),
             hold_ticks: Some(hold),

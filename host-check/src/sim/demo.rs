@@ -250,6 +250,7 @@ fn fixture_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Record>, S
             Ok(Record {
                 seq: i,
                 unit_id: 3_100_001 + i,
+                boot: 1,
                 press_ticks: m.press_ticks,
                 on_ticks: m.on_ticks,
                 hold_ticks: m.hold_ticks,
@@ -331,6 +332,7 @@ fn fleet_records(sc: &Scenario, ledger: &mut Ledger) -> Result<(Vec<Vec<Record>>
                 out.push(Record {
                     seq: day,
                     unit_id: id,
+                    boot: 1,
                     press_ticks: m.press_ticks,
                     on_ticks: m.on_ticks,
                     hold_ticks: m.hold_ticks,

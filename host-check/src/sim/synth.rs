@@ -61,6 +61,7 @@ pub fn write_log(out: &Path, records: u64, stations: u32, seed: u64) -> Result<(
         let r = Record {
             seq: 0,
             unit_id: (i & 0xFFFF_FFFF) as u32,
+            boot: 1,
             press_ticks: 100_000,
             on_ticks: Some(on),
             hold_ticks: Some(hold),
@@ -164,6 +165,7 @@ pub fn fleet(
             let r = Record {
                 seq: day,
                 unit_id: u,
+                boot: 1,
                 press_ticks: 100_000,
                 on_ticks: Some(on),
                 hold_ticks: Some(hold),

@@ -119,6 +119,7 @@ fn main() -> ! {
     let record = Record {
         seq: 1_234,
         unit_id: 0x00C0_FFEE,
+        boot: 17,
         press_ticks: 100_000,
         on_ticks: Some(161),
         hold_ticks: Some(712_345),

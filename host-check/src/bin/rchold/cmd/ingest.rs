@@ -42,11 +42,11 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         };
         let line = match result {
             Ok(Ingested::Stored { written, lines }) => format!(
-                "{}: {lines} lines, {} stored, {} already stored{} (source {})\n",
+                "{}: {lines} lines, {} stored{}, {} already stored (source {})\n",
                 f.display(),
                 written.stored,
+                crate::cmd::listen::retests(written.conflicts),
                 written.duplicates,
-                crate::cmd::listen::conflicts(written.conflicts),
                 written.source_id
             ),
             Ok(Ingested::AlreadyStored { source_id }) => {

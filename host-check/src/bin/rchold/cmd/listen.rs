@@ -129,12 +129,12 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// How many of the records already stored had other content, if any.
-pub fn conflicts(n: u64) -> String {
-    if n == 0 {
-        String::new()
-    } else {
-        format!(" ({n} of them with other content: a retest or a restarted unit; the first is kept)")
+/// How many of the records stored are retests, if any.
+pub fn retests(n: u64) -> String {
+    match n {
+        0 => String::new(),
+        1 => " (1 of them a retest: its station, unit, boot and number were stored with other content)".to_owned(),
+        n => format!(" ({n} of them retests: their station, unit, boot and number were stored with other content)"),
     }
 }
 
@@ -150,16 +150,21 @@ fn summary(source: &str, l: &collect::Listened, db: &std::path::Path) -> String 
     };
     let missing: u64 = l.units.values().map(|u| u.missing).sum();
     let back: u64 = l.units.values().map(|u| u.back).sum();
+    let restarts: u64 = l.units.values().map(|u| u.restarts).sum();
+    let restarted = match restarts {
+        0 => String::new(),
+        n => format!(", {n} restart{} (a unit's next boot)", if n == 1 { "" } else { "s" }),
+    };
     let mut gaps: Vec<(&u32, &host_check::data::store::UnitSeq)> =
         l.units.iter().filter(|(_, u)| u.missing > 0).collect();
     gaps.sort_by_key(|(unit, u)| (std::cmp::Reverse(u.missing), **unit));
     let worst: Vec<String> = gaps.iter().take(3).map(|(unit, u)| format!("unit {unit} {}", u.missing)).collect();
     let more = if gaps.len() > 3 { ", …" } else { "" };
-    let seq = match (missing, back) {
-        (0, 0) => String::new(),
-        _ if gaps.is_empty() => format!("; sequence: {back} not above the one before"),
+    let seq = match (missing, back, restarts) {
+        (0, 0, 0) => String::new(),
+        _ if gaps.is_empty() => format!("; sequence: {back} not above the one before{restarted}"),
         _ => format!(
-            "; sequence: {missing} numbers skipped in {} unit{} ({}{more}), {back} not above the one before",
+            "; sequence: {missing} numbers skipped in {} unit{} ({}{more}), {back} not above the one before{restarted}",
             gaps.len(),
             if gaps.len() == 1 { "" } else { "s" },
             worst.join(", ")
@@ -172,11 +177,11 @@ fn summary(source: &str, l: &collect::Listened, db: &std::path::Path) -> String 
         (false, n) => format!(" · input reopened {n}×"),
     };
     format!(
-        "{}: {} records stored, {} already stored{}, {refused} refused{why}, {} bad frames, {} bytes{seq} (source {} in {}){end}\n",
+        "{}: {} records stored{}, {} already stored, {refused} refused{why}, {} bad frames, {} bytes{seq} (source {} in {}){end}\n",
         source,
         l.stored,
+        retests(l.conflicts),
         l.duplicates,
-        conflicts(l.conflicts),
         l.counts.bad_frames,
         l.counts.bytes,
         l.source_id,

@@ -15,7 +15,7 @@ pub struct Args {
     /// The measurement store (SQLite).
     #[arg(long, default_value = "rchold.db")]
     db: PathBuf,
-    /// List the units of stream ID: sequence numbers received, skipped, and not above the one before.
+    /// List the units of stream ID: sequence numbers received, skipped, not above the one before, and restarts.
     #[arg(long, value_name = "ID")]
     units: Option<i64>,
 }
@@ -27,7 +27,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         return units(&store, &a.db, id);
     }
     let mut o = format!(
-        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  name\n",
+        "{} (schema {}), {} measurements\n  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  name\n",
         a.db.display(),
         store.schema_version()?,
         store.count()?,
@@ -35,17 +35,18 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
         "kind",
         "stored",
         "repeated",
-        "conflict",
+        "retests",
         "refused",
         "bad",
         "skipped",
         "back",
+        "restarts",
         "bytes"
     );
     for s in store.sources()? {
         let _ = writeln!(
             o,
-            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  {}",
+            "  {:>4} {:<7} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>9} {:>11}  {}",
             s.id,
             s.kind,
             s.records,
@@ -55,6 +56,7 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
             s.bad_frames,
             s.seq_missing,
             s.seq_back,
+            s.restarts,
             s.bytes,
             s.name
         );
@@ -75,25 +77,28 @@ fn units(store: &Store, db: &std::path::Path, id: i64) -> anyhow::Result<ExitCod
     let units = store.source_units(id)?;
     let n = |k: usize, what: &str| format!("{k} {what}{}", if k == 1 { "" } else { "s" });
     let mut o = format!(
-        "source {id} ({} {}): {}; {} numbers skipped in {}, {} not above the one before\n  {:>10} {:>10} {:>10} {:>9} {:>9} {:>9}\n",
+        "source {id} ({} {}): {}; {} numbers skipped in {}, {} not above the one before, {} restarts\n  {:>10} {:>10} {:>10} {:>9} {:>9} {:>9} {:>10} {:>9}\n",
         source.kind,
         source.name,
         n(units.len(), "unit"),
         source.seq_missing,
         n(usize::try_from(source.gap_units).unwrap_or(usize::MAX), "unit"),
         source.seq_back,
+        source.restarts,
         "unit",
         "first seq",
         "last seq",
         "received",
         "skipped",
-        "back"
+        "back",
+        "last boot",
+        "restarts"
     );
     for (unit, u) in units {
         let _ = writeln!(
             o,
-            "  {unit:>10} {:>10} {:>10} {:>9} {:>9} {:>9}",
-            u.first_seq, u.last_seq, u.received, u.missing, u.back
+            "  {unit:>10} {:>10} {:>10} {:>9} {:>9} {:>9} {:>10} {:>9}",
+            u.first_seq, u.last_seq, u.received, u.missing, u.back, u.boot, u.restarts
         );
     }
     emit(&o)?;

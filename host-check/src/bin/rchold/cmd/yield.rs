@@ -81,7 +81,7 @@ fn from_store(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldR
     tally.finish().map_err(|e| Error::io("rejects.csv", e))
 }
 
-fn from_logs(a: &Args, filter: &Filter, reject_log: RejectLog) -> Result<YieldReport, Error> {
+fn from_logs(a: &Args, filter: &Filter, reject_log: &mut yields::RejectSink<'_>) -> Result<YieldReport, Error> {
     let (setups, id) = a.setup.replacing()?;
     let keep = |l: &log::Line<'_>| {
         filter.station.as_deref().is_none_or(|s| s == l.station)
@@ -99,20 +99,24 @@ pub fn run(a: Args) -> anyhow::Result<ExitCode> {
     let floor = a.alert_below.as_deref().map(|t| fraction("alert-below", t, 0.0, 1.0, "0 % to 100 %")).transpose()?;
     a.setup.setup()?;
     let mut dir = a.out.as_deref().map(ReportDir::create).transpose()?;
-    let reject_log: RejectLog = match &mut dir {
-        Some(d) => Some(Box::new(std::io::BufWriter::new(d.create_file("rejects.csv")?))),
-        None => None,
+    // Started afresh on each call (a read of logs that finds repeats makes a second pass).
+    let mut reject_log = || -> Result<RejectLog, Error> {
+        Ok(match &mut dir {
+            Some(d) => Some(Box::new(std::io::BufWriter::new(d.create_file("rejects.csv")?))),
+            None => None,
+        })
     };
     let report = if let Some(dir) = &a.parquet {
+        let reject_log = reject_log()?;
         let (given, id) = a.setup.replacing()?;
         let threads = std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get);
         let given = id.map(|id| (given, id));
         let all = a.select.station.is_some();
         yield_from_parquet(dir, &filter, given, all, !a.skip_recheck, reject_log, threads)?
     } else if a.csv.is_empty() {
-        from_store(&a, &filter, reject_log)?
+        from_store(&a, &filter, reject_log()?)?
     } else {
-        from_logs(&a, &filter, reject_log)?
+        from_logs(&a, &filter, &mut reject_log)?
     };
     if let Some(mut d) = dir {
         d.yields(&report, a.rows)?;
