@@ -72,7 +72,13 @@ fn frames(root: &Path) -> Res {
     let mut noisy = all.clone();
     noisy.splice(9..9, [0x55, 0x00, 0x00, 0x13]);
     noisy.truncate(noisy.len() - 3);
-    write(&dir, "noisy", &noisy)
+    write(&dir, "noisy", &noisy)?;
+    // A frame of format 1 (no boot counter), as firmware built before it sends.
+    let v1: [u8; 20] = [
+        0x01, 0x02, 0x07, 0x01, 0x01, 0x05, 0x80, 0xc8, 0xd0, 0x07, 0x03, 0x03, 0x05, 0x01, 0x05, 0xaa, 0x7d, 0x66,
+        0xc1, 0x00,
+    ];
+    write(&dir, "format-1", &[&[63u8][..], &v1].concat())
 }
 
 fn log_text(records: &[Record]) -> Result<Vec<u8>, Box<dyn Error>> {
@@ -91,7 +97,16 @@ fn logs(root: &Path) -> Res {
     write(&dir, "five", &text)?;
     let crlf = String::from_utf8(text.clone())?.replace('\n', "\r\n");
     write(&dir, "crlf", crlf.as_bytes())?;
-    write(&dir, "bad-hold", &String::from_utf8(text)?.replace("742000", "-742000").into_bytes())
+    write(&dir, "bad-hold", &String::from_utf8(text.clone())?.replace("742000", "-742000").into_bytes())?;
+    // Version 1 (no boot column), as logs written before it are: each line
+    // read by the csv crate and written back without its fifth field.
+    let mut w = csv::WriterBuilder::new().terminator(csv::Terminator::Any(b'\n')).from_writer(Vec::new());
+    for row in csv::ReaderBuilder::new().has_headers(false).from_reader(&text[..]).records() {
+        w.write_record(row?.iter().enumerate().filter(|&(i, _)| i != 4).map(|(_, f)| f))?;
+    }
+    let v1 = String::from_utf8(w.into_inner().map_err(|e| e.to_string())?)?;
+    assert!(v1.starts_with(log::HEADER_V1));
+    write(&dir, "version-1", v1.as_bytes())
 }
 
 fn stages(root: &Path) -> Res {
