@@ -6,7 +6,8 @@
 //! the stage file with the independent `f64` reference.
 //!
 //! Everything is accumulated in one pass (memory grows with the number of
-//! stations, batches and days, not with the number of records).
+//! stations, batches and days, not with the number of records; reading logs,
+//! [`tally_logs`] also keeps 8 bytes per line to find repeated keys).
 
 use std::collections::HashMap;
 use std::fmt::Write as _;
@@ -969,24 +970,22 @@ fn key_hash(station: &str, r: &Record) -> u64 {
     mix(h ^ u64::from(r.seq))
 }
 
-/// The values that occur more than once in `runs` (each sorted), by a
-/// k-way merge: no copy of the runs.
-fn repeated(runs: &[Vec<u64>]) -> std::collections::HashSet<u64> {
-    use std::cmp::Reverse;
-    let mut out = std::collections::HashSet::new();
-    let mut heap: std::collections::BinaryHeap<Reverse<(u64, usize, usize)>> =
-        runs.iter().enumerate().filter_map(|(k, r)| r.first().map(|&v| Reverse((v, k, 0)))).collect();
-    let mut last = None;
-    while let Some(Reverse((v, k, i))) = heap.pop() {
-        if last == Some(v) {
-            out.insert(v);
-        }
-        last = Some(v);
-        if let Some(&next) = runs.get(k).and_then(|r| r.get(i + 1)) {
-            heap.push(Reverse((next, k, i + 1)));
-        }
-    }
-    out
+/// Key hashes by their top byte: one list per value, so that the lists of
+/// one value from every piece can be sorted on their own (small, in cache,
+/// on every core).
+type Buckets = Vec<Vec<u64>>;
+
+/// The hashes that occur more than once in all of `pieces`.
+fn repeated(pieces: &[Buckets]) -> std::collections::HashSet<u64> {
+    (0..256usize)
+        .into_par_iter()
+        .flat_map_iter(|b| {
+            let mut all: Vec<u64> = pieces.iter().filter_map(|p| p.get(b)).flatten().copied().collect();
+            all.sort_unstable();
+            let dups: Vec<u64> = all.windows(2).filter_map(|w| (w[0] == w[1]).then_some(w[0])).collect();
+            dups
+        })
+        .collect()
 }
 
 /// Reads measurement logs in parallel pieces — each file split at line
@@ -999,7 +998,8 @@ fn repeated(runs: &[Vec<u64>]) -> std::collections::HashSet<u64> {
 /// [`crate::data::store::Content`]): a line whose key (station, unit, boot,
 /// seq) and content an earlier line had is left out, before `keep` looks
 /// at it; one whose key came with other content counts as a retest. The
-/// first pass keeps an 8-byte hash of every line's key; only if two lines
+/// first pass keeps an 8-byte hash of every line's key (grouped by its top
+/// byte, each group sorted on its own, on every core); only if two lines
 /// share one are the logs read again: once for the lines of those keys,
 /// compared exactly, and once more to tally without the repeats (the
 /// reject log written afresh).
@@ -1049,12 +1049,11 @@ impl Pass<'_> {
         &self,
         start: impl Fn(usize, usize) -> T + Sync,
         each: impl Fn(&mut T, usize, u64, &log::Line<'_>) -> Result<(), String> + Sync,
-        finish: impl Fn(&mut T) + Sync,
         mut done: impl FnMut(T),
     ) -> Result<(), Error> {
         for (fi, path) in self.paths.iter().enumerate() {
             let (layout, pieces) = log::split(path, self.threads)?;
-            let (start, each, finish) = (&start, &each, &finish);
+            let (start, each) = (&start, &each);
             let results: Vec<Result<T, (u64, log::RangeError)>> = std::thread::scope(|scope| {
                 let handles: Vec<_> = pieces
                     .iter()
@@ -1063,10 +1062,7 @@ impl Pass<'_> {
                         scope.spawn(move || {
                             let mut t = start(fi, pi);
                             log::read_range(path, layout, a, b, |i, l| each(&mut t, pi, i, l))
-                                .map(|_| {
-                                    finish(&mut t);
-                                    t
-                                })
+                                .map(|_| t)
                                 .map_err(|e| (a, e))
                         })
                     })
@@ -1104,14 +1100,14 @@ impl Pass<'_> {
     }
 
     /// One tally over the logs without the lines in `skip`; with `keys`, the
-    /// key hashes of every line read (kept or not), one sorted run per piece.
+    /// key hashes of every line read (kept or not), by top byte, per piece.
     fn tally(
         &self,
         mut total: Tally,
         setup_id: Option<i64>,
         keep: &(dyn Fn(&log::Line<'_>) -> bool + Sync),
         skip: &Skip,
-        mut keys: Option<&mut Vec<Vec<u64>>>,
+        mut keys: Option<&mut Vec<Buckets>>,
     ) -> Result<Tally, Error> {
         let buffer = matches!(total.reject_log, RejectLog::Writer(_));
         let hashing = keys.is_some();
@@ -1123,14 +1119,17 @@ impl Pass<'_> {
                 if buffer {
                     t.buffer_rejects();
                 }
-                (t, fi, Vec::new())
+                (t, fi, if hashing { vec![Vec::new(); 256] } else { Vec::new() })
             },
             |(t, fi, hashes), pi, i, l| {
                 if skip.contains(&(*fi, pi, i)) {
                     return Ok(());
                 }
                 if hashing {
-                    hashes.push(key_hash(l.station, &l.record));
+                    let h = key_hash(l.station, &l.record);
+                    if let Some(b) = hashes.get_mut((h >> 56) as usize) {
+                        b.push(h);
+                    }
                 }
                 if keep(l) {
                     let l = self.settled(l)?;
@@ -1138,7 +1137,6 @@ impl Pass<'_> {
                 }
                 Ok(())
             },
-            |(_, _, hashes)| hashes.sort_unstable(),
             |(t, _, hashes)| {
                 total.merge(t);
                 if let Some(k) = keys.as_deref_mut() {
@@ -1165,7 +1163,6 @@ impl Pass<'_> {
                 }
                 Ok(())
             },
-            |_| {},
             |(fi, pi, found)| {
                 for (i, key, content) in found {
                     let versions = seen.entry(key).or_default();
