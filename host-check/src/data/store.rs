@@ -1,14 +1,19 @@
 //! The measurement store: one SQLite file (WAL mode), its schema versioned in
 //! `PRAGMA user_version` and migrated forward on open.
 //!
-//! Tables (schema 4):
+//! Tables (schema 7):
 //! - `setup` — what a station measured against: the stage file's text and the
 //!   firmware window in ticks (`hold_min_ticks`, `hold_max_ticks` at `clock_hz`).
 //! - `source` — one row per stream listened to or log file ingested, with its
-//!   counts (`records`, `duplicates`, `bad_frames`, `bytes`); a log file's
+//!   counts (`records`, `duplicates`, `conflicts` — the retests among the
+//!   records —, `refused`, `bad_frames`, `bytes`, and for streams the units'
+//!   `seq_missing`, `seq_back`, `gap_units`, `restarts`); a log file's
 //!   SHA-256 is unique, which makes re-ingesting it a no-op.
+//! - `source_unit` — each stream's units and how their numbers ran ([`UnitSeq`]).
 //! - `station`, `batch` — names, referred to by id.
-//! - `reading` — one compact row per record, keyed by (station, unit, seq):
+//! - `reading` — one compact row per record, keyed by (station, unit, boot,
+//!   seq, retest) — `retest` 0 for the first record of a key, 1, 2, … for
+//!   records of the same key with other [`Content`]:
 //!   time in ms since the epoch (UTC), batch and setup as ids (setup 0: none),
 //!   `clock_hz` only where it is not the setup's (NULL otherwise), temperature
 //!   in m°C, and verdict, hint and drift packed as `codes` = verdict +
@@ -858,7 +863,7 @@ impl Store {
         })
     }
 
-    /// Reads measurements matching `filter` in (station, unit, seq) order,
+    /// Reads measurements matching `filter` in (station, unit, boot, seq, retest) order,
     /// one at a time (memory stays bounded whatever the table's size).
     ///
     /// # Errors
@@ -1162,7 +1167,7 @@ impl Store {
     }
 
     /// The stored rejects (verdict not `within-window`) matching `filter`, in
-    /// (station, unit, seq) order, through the partial index that holds only
+    /// (station, unit, boot, seq, retest) order, through the partial index that holds only
     /// them; `each` returns `false` to stop.
     ///
     /// # Errors
