@@ -795,13 +795,6 @@ impl Tally {
         }
     }
 
-    /// Keeps this tally's reject log lines in memory, to be written in order
-    /// when it is merged into one with a log ([`Tally::merge`]): for a tally
-    /// of one piece of work among several.
-    pub fn buffer_rejects(&mut self) {
-        self.reject_log = RejectLog::Buffer(Vec::new());
-    }
-
     /// Whether the reject list is full and no reject log is written: a
     /// report from summaries stops reading rejects here.
     #[must_use]
@@ -1109,16 +1102,12 @@ impl Pass<'_> {
         skip: &Skip,
         mut keys: Option<&mut Vec<Buckets>>,
     ) -> Result<Tally, Error> {
-        let buffer = matches!(total.reject_log, RejectLog::Writer(_));
         let hashing = keys.is_some();
-        let proto = total.fork();
-        let proto = std::sync::Mutex::new(proto);
+        // A fork buffers its rejects when `total` writes a reject log; a Mutex only to share it.
+        let proto = std::sync::Mutex::new(total.fork());
         self.pieces(
             |fi, _| {
-                let mut t = proto.lock().unwrap_or_else(std::sync::PoisonError::into_inner).fork();
-                if buffer {
-                    t.buffer_rejects();
-                }
+                let t = proto.lock().unwrap_or_else(std::sync::PoisonError::into_inner).fork();
                 (t, fi, if hashing { vec![Vec::new(); 256] } else { Vec::new() })
             },
             |(t, fi, hashes), pi, i, l| {
