@@ -489,15 +489,21 @@ proptest! {
 
         let setups = std::collections::HashMap::new();
         let keep = |_: &log::Line<'_>| true;
+        // Each reject log as written (started afresh on every pass over the logs).
+        let (log_rejects, store_rejects) = (Shared::default(), Shared::default());
+        let mut sink = || {
+            log_rejects.0.lock().unwrap_or_else(std::sync::PoisonError::into_inner).clear();
+            Ok(Some(Box::new(log_rejects.clone()) as Box<dyn std::io::Write + Send>))
+        };
         let from_log = host_check::report::yields::tally_logs(
-            std::slice::from_ref(&path), &setups, None, false, &mut || Ok(None), &keep, threads,
+            std::slice::from_ref(&path), &setups, None, false, &mut sink, &keep, threads,
         ).map_err(|e| fail(&e))?;
 
         let mut store = Store::open(&dir.path().join("r.db")).map_err(|e| fail(&e))?;
         let Ingested::Stored { written, .. } = collect::ingest(&mut store, &path, None).map_err(|e| fail(&e))? else {
             return Err(TestCaseError::fail("not stored"));
         };
-        let mut tally = host_check::report::yields::Tally::new(&setups, false, None);
+        let mut tally = host_check::report::yields::Tally::new(&setups, false, Some(Box::new(store_rejects.clone())));
         let names = store.stations().map_err(|e| fail(&e))?;
         store.for_each(&Filter::default(), |x| {
             let station = names.get(&x.station_id).map_or("", String::as_str);
@@ -521,5 +527,33 @@ proptest! {
             v
         };
         prop_assert_eq!(json(&from_log), json(&from_store));
+        // The reject logs hold the same lines (in each path's order), each once.
+        prop_assert_eq!(log_rejects.lines(), store_rejects.lines());
+        prop_assert_eq!(log_rejects.lines().len() as u64, from_log.rejects_total + 1);
+    }
+}
+
+/// A reject log kept in memory, shared with the test.
+#[derive(Clone, Default)]
+struct Shared(std::sync::Arc<std::sync::Mutex<Vec<u8>>>);
+
+impl Shared {
+    /// The lines written, sorted.
+    fn lines(&self) -> Vec<String> {
+        let text =
+            String::from_utf8_lossy(&self.0.lock().unwrap_or_else(std::sync::PoisonError::into_inner)).into_owned();
+        let mut v: Vec<String> = text.lines().map(str::to_owned).collect();
+        v.sort();
+        v
+    }
+}
+
+impl std::io::Write for Shared {
+    fn write(&mut self, b: &[u8]) -> std::io::Result<usize> {
+        self.0.lock().unwrap_or_else(std::sync::PoisonError::into_inner).extend_from_slice(b);
+        Ok(b.len())
+    }
+    fn flush(&mut self) -> std::io::Result<()> {
+        Ok(())
     }
 }
